@@ -1,0 +1,1 @@
+//! Headless subcommands (in progress).

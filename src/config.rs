@@ -1,0 +1,748 @@
+//! Machine configuration: the TOML schema, its units, loading and validation.
+//!
+//! This module owns the meaning of every configuration key. Every numeric key states its unit
+//! in its doc comment; "unit" means the axis's own unit (`scale.unit`, e.g. mm), and duty is
+//! in percent of full PWM (−100…100). Unknown keys are errors (`deny_unknown_fields`) so a
+//! misspelt limit can never silently fall back to a default.
+//!
+//! Loading is two-phase: serde checks shape and types (its errors carry line and column), then
+//! [`MachineConfig::validate`] checks relations between values (soft_min < soft_max, …) and
+//! reports the key path, which [`ConfigError`] turns into a line and column with `toml_edit`.
+
+use std::path::{Path, PathBuf};
+
+use serde::{Deserialize, Serialize};
+
+/// The demo machine: a greenhouse tray-inspection gantry. Its numbers are invented.
+pub const DEMO_CONFIG: &str = include_str!("../configs/demo-greenhouse.toml");
+
+/// Name shown when the embedded demo is in use.
+pub const DEMO_SOURCE: &str = "built-in demo (configs/demo-greenhouse.toml)";
+
+/// Whole machine.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct MachineConfig {
+    pub machine: MachineSection,
+    /// One `[[axis]]` table per axis, in display order.
+    #[serde(rename = "axis")]
+    pub axes: Vec<AxisConfig>,
+}
+
+/// `[machine]`: machine-wide settings.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct MachineSection {
+    /// Shown in the cockpit header and written into captures.
+    pub name: String,
+    /// IEC 60204-1 stop category used by stop-all: 1 = controlled deceleration at each
+    /// axis's maximum acceleration, then motor off (default); 0 = motor off at once.
+    #[serde(default = "default_stop_category")]
+    pub stop_category: u8,
+}
+
+fn default_stop_category() -> u8 {
+    1
+}
+
+/// `[[axis]]`: one axis.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct AxisConfig {
+    /// Short name used on the command line (`--to x=300`) and on screen; letters, digits, `_`.
+    pub name: String,
+    pub transport: TransportConfig,
+    #[serde(default)]
+    pub board: BoardConfig,
+    pub scale: ScaleConfig,
+    pub controller: ControllerConfig,
+    pub motion: MotionConfig,
+    pub limits: LimitsConfig,
+}
+
+/// `[axis.transport]`: where the axis's board is.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "kind", rename_all = "snake_case", deny_unknown_fields)]
+pub enum TransportConfig {
+    /// The built-in simulator, in process.
+    Sim(SimConfig),
+    /// A board on a serial device (USB CDC or UART).
+    Serial {
+        /// Device path, e.g. `/dev/ttyACM0`.
+        device: String,
+        /// Baud rate in bit/s (ignored by USB CDC boards but required by UARTs).
+        #[serde(default = "default_baud")]
+        baud: u32,
+    },
+}
+
+fn default_baud() -> u32 {
+    921_600
+}
+
+/// `[axis.board]`: what the host asks of the board at link-up.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct BoardConfig {
+    /// Telemetry and control rate in Hz (the board's tick). 50…5000.
+    #[serde(default = "default_tick_hz")]
+    pub tick_hz: u16,
+    /// Board watchdog in ms: with no valid duty command for this long the board turns the
+    /// motor off by itself. 5…1000.
+    #[serde(default = "default_watchdog_ms")]
+    pub watchdog_ms: u16,
+}
+
+impl Default for BoardConfig {
+    fn default() -> Self {
+        Self { tick_hz: default_tick_hz(), watchdog_ms: default_watchdog_ms() }
+    }
+}
+
+fn default_tick_hz() -> u16 {
+    1000
+}
+fn default_watchdog_ms() -> u16 {
+    50
+}
+
+/// `[axis.transport]` with `kind = "sim"`: the simulated plant behind the simulated board.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SimConfig {
+    pub plant: PlantParams,
+    /// Faults present from start-up (tests inject them at run time instead).
+    #[serde(default)]
+    pub faults: SimFaults,
+}
+
+/// DC gearmotor → gearbox → belt pulley → carriage on a rail with hard stops.
+/// All SI except where the key name says mm.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct PlantParams {
+    /// Supply voltage at the driver, V.
+    pub supply_v: f64,
+    /// Armature resistance R, Ω.
+    pub resistance_ohm: f64,
+    /// Armature inductance L, H.
+    pub inductance_h: f64,
+    /// Torque constant Kt, N·m/A.
+    pub torque_constant: f64,
+    /// Back-EMF constant Ke, V·s/rad.
+    pub back_emf_constant: f64,
+    /// Rotor inertia J (motor side, incl. gearbox input), kg·m².
+    pub rotor_inertia: f64,
+    /// Viscous friction b at the motor shaft, N·m·s/rad.
+    pub viscous_friction: f64,
+    /// Gearbox ratio: motor revolutions per output revolution.
+    pub gear_ratio: f64,
+    /// Carriage travel per output-shaft revolution (belt pulley circumference), mm.
+    pub mm_per_output_rev: f64,
+    /// Moving mass of the carriage, kg.
+    pub carriage_mass_kg: f64,
+    /// Coulomb (sliding) friction force at the carriage, N.
+    pub coulomb_friction_n: f64,
+    /// Static (breakaway) friction force at the carriage, N; ≥ coulomb_friction_n.
+    pub static_friction_n: f64,
+    /// Driver deadband as a fraction of full duty (0…1): below it the bridge outputs nothing.
+    #[serde(default)]
+    pub driver_deadband: f64,
+    /// Encoder counts per motor revolution after 4× quadrature decoding.
+    pub encoder_counts_per_rev: u32,
+    /// Rail length between the hard stops, mm (the carriage moves in 0…rail_length_mm).
+    pub rail_length_mm: f64,
+    /// Carriage position at power-up, mm from the lower hard stop.
+    pub start_mm: f64,
+    /// Home switch position in mm from the lower stop, if the rail has one.
+    #[serde(default)]
+    pub home_switch_mm: Option<f64>,
+}
+
+impl PlantParams {
+    /// Encoder counts per mm of carriage travel implied by the mechanics.
+    pub fn counts_per_mm(&self) -> f64 {
+        f64::from(self.encoder_counts_per_rev) * self.gear_ratio / self.mm_per_output_rev
+    }
+}
+
+/// Faults the simulator can carry from start-up.
+#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SimFaults {
+    /// Motor leads swapped: positive duty drives the carriage backwards.
+    #[serde(default)]
+    pub reversed_motor: bool,
+    /// Probability (0…1) that a telemetry frame is lost.
+    #[serde(default)]
+    pub drop_frame_probability: f64,
+    /// Probability (0…1) that a telemetry frame arrives with a flipped bit.
+    #[serde(default)]
+    pub corrupt_frame_probability: f64,
+}
+
+/// `[axis.scale]`: counts to units, and which way is positive.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ScaleConfig {
+    /// Encoder counts per axis unit (after 4× decoding), counts/unit.
+    pub counts_per_unit: f64,
+    /// The axis unit's name, shown on screen (e.g. "mm", "deg").
+    #[serde(default = "default_unit")]
+    pub unit: String,
+    /// Negate the duty sent to the board (motor wired the other way round).
+    #[serde(default)]
+    pub invert_motor: bool,
+    /// Negate the encoder count (A and B swapped).
+    #[serde(default)]
+    pub invert_encoder: bool,
+}
+
+fn default_unit() -> String {
+    "mm".to_owned()
+}
+
+/// Position controller family.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum ControlMode {
+    /// Full `on_off_duty` towards the target while outside `tolerance`, zero inside it.
+    OnOff,
+    /// duty = kp · error (plus minimum-duty compensation), no I, no D, no feedforward.
+    Proportional,
+    /// Parallel PID with filtered derivative on measurement, anti-windup and feedforward.
+    Pid,
+}
+
+/// How the integrator is kept from winding up while the output saturates.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
+#[serde(rename_all = "snake_case")]
+pub enum AntiWindup {
+    /// Stop integrating while saturated and the error pushes further into saturation.
+    #[default]
+    Clamp,
+    /// Feed the saturation excess back into the integrator with time constant `tracking_time_s`.
+    BackCalculation,
+}
+
+/// `[axis.controller]`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ControllerConfig {
+    pub mode: ControlMode,
+    /// On-off: duty applied outside the tolerance band, %.
+    #[serde(default = "default_on_off_duty")]
+    pub on_off_duty: f64,
+    /// On-off: half-width of the band in which the output is zero, units.
+    #[serde(default = "default_tolerance")]
+    pub tolerance: f64,
+    /// Proportional gain, %/unit.
+    #[serde(default)]
+    pub kp: f64,
+    /// Integral gain, %/(unit·s).
+    #[serde(default)]
+    pub ki: f64,
+    /// Derivative gain, %·s/unit (acts on the measurement, not the error).
+    #[serde(default)]
+    pub kd: f64,
+    /// Time constant of the first-order derivative filter, s (Td/N in textbook form).
+    #[serde(default = "default_derivative_filter")]
+    pub derivative_filter_s: f64,
+    /// Largest magnitude the integral term may hold, %.
+    #[serde(default = "default_integral_limit")]
+    pub integral_limit: f64,
+    #[serde(default)]
+    pub anti_windup: AntiWindup,
+    /// Back-calculation tracking time constant Tt, s.
+    #[serde(default = "default_tracking_time")]
+    pub tracking_time_s: f64,
+    /// Smallest duty that moves the axis forwards (breakaway), %; added to any non-zero
+    /// forward output so the controller works on a linear plant.
+    #[serde(default)]
+    pub min_duty_forward: f64,
+    /// Same for the reverse direction, % (a positive number).
+    #[serde(default)]
+    pub min_duty_reverse: f64,
+    /// Output limit, %.
+    #[serde(default = "default_max_duty")]
+    pub max_duty: f64,
+    /// Velocity feedforward, % per unit/s of profile velocity.
+    #[serde(default)]
+    pub ff_velocity: f64,
+    /// Acceleration feedforward, % per unit/s² of profile acceleration.
+    #[serde(default)]
+    pub ff_acceleration: f64,
+    /// Static-friction feedforward, %, added in the direction of profile velocity.
+    #[serde(default)]
+    pub ff_static: f64,
+}
+
+fn default_on_off_duty() -> f64 {
+    40.0
+}
+fn default_tolerance() -> f64 {
+    0.5
+}
+fn default_derivative_filter() -> f64 {
+    0.002
+}
+fn default_integral_limit() -> f64 {
+    30.0
+}
+fn default_tracking_time() -> f64 {
+    0.05
+}
+fn default_max_duty() -> f64 {
+    100.0
+}
+
+/// `[axis.motion]`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct MotionConfig {
+    /// Profile velocity limit, unit/s.
+    pub max_velocity: f64,
+    /// Profile acceleration and deceleration limit, unit/s².
+    pub max_acceleration: f64,
+    /// A move is complete when |position − goal| stays inside this band, units.
+    #[serde(default = "default_in_position_band")]
+    pub in_position_band: f64,
+    /// … for this long, s.
+    #[serde(default = "default_in_position_dwell")]
+    pub in_position_dwell_s: f64,
+}
+
+fn default_in_position_band() -> f64 {
+    0.1
+}
+fn default_in_position_dwell() -> f64 {
+    0.1
+}
+
+/// `[axis.limits]`: supervision. Every trip latches until cleared.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct LimitsConfig {
+    /// Lower soft travel limit, units.
+    pub soft_min: f64,
+    /// Upper soft travel limit, units.
+    pub soft_max: f64,
+    /// Following-error band at standstill, units.
+    pub following_error: f64,
+    /// Extra following-error allowance per unit/s of profile velocity, s.
+    #[serde(default)]
+    pub following_error_per_velocity: f64,
+    /// Stall: |duty| above this, %, …
+    #[serde(default = "default_stall_duty")]
+    pub stall_duty: f64,
+    /// … with no encoder motion for this long, s, trips.
+    #[serde(default = "default_stall_timeout")]
+    pub stall_timeout_s: f64,
+    /// No valid telemetry for this long, s, trips link loss.
+    #[serde(default = "default_link_timeout")]
+    pub link_timeout_s: f64,
+    /// A count change larger than this between two consecutive frames is an encoder fault,
+    /// counts.
+    #[serde(default = "default_encoder_jump")]
+    pub encoder_jump_counts: u32,
+    /// Runaway: motion against the sign of a duty above `stall_duty` for this long, s.
+    #[serde(default = "default_runaway_timeout")]
+    pub runaway_timeout_s: f64,
+}
+
+fn default_stall_duty() -> f64 {
+    50.0
+}
+fn default_stall_timeout() -> f64 {
+    0.5
+}
+fn default_link_timeout() -> f64 {
+    0.1
+}
+fn default_encoder_jump() -> u32 {
+    2000
+}
+fn default_runaway_timeout() -> f64 {
+    0.1
+}
+
+/// Where a configuration came from, for messages.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum ConfigSource {
+    BuiltInDemo,
+    File(PathBuf),
+}
+
+impl std::fmt::Display for ConfigSource {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            Self::BuiltInDemo => f.write_str(DEMO_SOURCE),
+            Self::File(p) => write!(f, "{}", p.display()),
+        }
+    }
+}
+
+/// A configuration that could not be used.
+#[derive(Debug, thiserror::Error)]
+pub enum ConfigError {
+    #[error("{source_name}: cannot read: {err}")]
+    Read { source_name: String, err: std::io::Error },
+    /// Shape or type error from the TOML parser.
+    #[error("{source_name}:{line}:{column}: {message}")]
+    Parse { source_name: String, line: usize, column: usize, message: String },
+    /// A value that parsed but makes no sense, with the key path and its location.
+    #[error("{source_name}:{line}:{column}: {key}: {message}")]
+    Invalid { source_name: String, line: usize, column: usize, key: String, message: String },
+}
+
+/// A relation between values that does not hold; `path` is the TOML key path,
+/// e.g. `["axis", "1", "limits", "soft_max"]`.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Invalid {
+    pub path: Vec<String>,
+    pub message: String,
+}
+
+impl MachineConfig {
+    /// The embedded demo machine.
+    ///
+    /// # Errors
+    /// Only if the embedded file were broken, which a test rules out.
+    pub fn demo() -> Result<Self, ConfigError> {
+        Self::from_toml_str(DEMO_CONFIG, &ConfigSource::BuiltInDemo.to_string())
+    }
+
+    /// Reads and validates a file.
+    ///
+    /// # Errors
+    /// [`ConfigError`] naming the file, line, column and key.
+    pub fn load(path: &Path) -> Result<Self, ConfigError> {
+        let name = path.display().to_string();
+        let text = std::fs::read_to_string(path)
+            .map_err(|err| ConfigError::Read { source_name: name.clone(), err })?;
+        Self::from_toml_str(&text, &name)
+    }
+
+    /// The file if given, else the embedded demo.
+    ///
+    /// # Errors
+    /// As [`MachineConfig::load`].
+    pub fn load_or_demo(path: Option<&Path>) -> Result<(Self, ConfigSource), ConfigError> {
+        match path {
+            Some(p) => Ok((Self::load(p)?, ConfigSource::File(p.to_path_buf()))),
+            None => Ok((Self::demo()?, ConfigSource::BuiltInDemo)),
+        }
+    }
+
+    /// Parses and validates TOML text; `source_name` is used in messages.
+    ///
+    /// # Errors
+    /// [`ConfigError::Parse`] or [`ConfigError::Invalid`].
+    pub fn from_toml_str(text: &str, source_name: &str) -> Result<Self, ConfigError> {
+        let cfg: Self = toml::from_str(text).map_err(|e| {
+            let (line, column) =
+                e.span().map_or((1, 1), |s| line_col(text, s.start));
+            ConfigError::Parse {
+                source_name: source_name.to_owned(),
+                line,
+                column,
+                message: e.message().trim().to_owned(),
+            }
+        })?;
+        if let Some(bad) = cfg.validate().into_iter().next() {
+            let (line, column) = locate(text, &bad.path).unwrap_or((1, 1));
+            return Err(ConfigError::Invalid {
+                source_name: source_name.to_owned(),
+                line,
+                column,
+                key: display_path(&bad.path, &cfg),
+                message: bad.message,
+            });
+        }
+        Ok(cfg)
+    }
+
+    /// Relations the type system cannot express. Empty when the configuration is usable.
+    pub fn validate(&self) -> Vec<Invalid> {
+        let mut out = Vec::new();
+        if self.machine.stop_category > 1 {
+            out_push(
+                &mut out,
+                keys(&["machine", "stop_category"]),
+                format!(
+                    "expected 0 or 1 (IEC 60204-1 stop category), found {}",
+                    self.machine.stop_category
+                ),
+            );
+        }
+        if self.axes.is_empty() {
+            out_push(&mut out, keys(&["machine"]), "expected at least one [[axis]] table".into());
+        }
+        for (i, a) in self.axes.iter().enumerate() {
+            let at = |rest: &[&str]| {
+                let mut p = vec!["axis".to_owned(), i.to_string()];
+                p.extend(rest.iter().map(|s| (*s).to_owned()));
+                p
+            };
+            if a.name.is_empty() || !a.name.chars().all(|c| c.is_ascii_alphanumeric() || c == '_')
+            {
+                out_push(
+                    &mut out,
+                    at(&["name"]),
+                    format!("expected letters, digits or _, found {:?}", a.name),
+                );
+            }
+            if self.axes[..i].iter().any(|o| o.name == a.name) {
+                out_push(&mut out, at(&["name"]), format!("axis name {:?} is used twice", a.name));
+            }
+            let c = &a.controller;
+            let l = &a.limits;
+            let m = &a.motion;
+            for (key, v) in [
+                (&["scale", "counts_per_unit"][..], a.scale.counts_per_unit),
+                (&["motion", "max_velocity"], m.max_velocity),
+                (&["motion", "max_acceleration"], m.max_acceleration),
+                (&["motion", "in_position_band"], m.in_position_band),
+                (&["limits", "following_error"], l.following_error),
+                (&["limits", "stall_timeout_s"], l.stall_timeout_s),
+                (&["limits", "link_timeout_s"], l.link_timeout_s),
+                (&["limits", "runaway_timeout_s"], l.runaway_timeout_s),
+                (&["controller", "derivative_filter_s"], c.derivative_filter_s),
+                (&["controller", "tracking_time_s"], c.tracking_time_s),
+                (&["controller", "max_duty"], c.max_duty),
+            ] {
+                if !(v.is_finite() && v > 0.0) {
+                    out_push(&mut out, at(key), format!("expected a number > 0, found {v}"));
+                }
+            }
+            if c.mode == ControlMode::OnOff && !(c.tolerance.is_finite() && c.tolerance > 0.0) {
+                out_push(
+                    &mut out,
+                    at(&["controller", "tolerance"]),
+                    format!("expected a number > 0, found {}", c.tolerance),
+                );
+            }
+            for (key, v) in [
+                ("max_duty", c.max_duty),
+                ("on_off_duty", c.on_off_duty),
+                ("min_duty_forward", c.min_duty_forward),
+                ("min_duty_reverse", c.min_duty_reverse),
+                ("integral_limit", c.integral_limit),
+                ("ff_static", c.ff_static),
+            ] {
+                if !(v.is_finite() && (0.0..=100.0).contains(&v)) {
+                    out_push(&mut out, at(&["controller", key]), format!("expected 0…100 %, found {v}"));
+                }
+            }
+            for (key, v) in [
+                ("kp", c.kp),
+                ("ki", c.ki),
+                ("kd", c.kd),
+                ("ff_velocity", c.ff_velocity),
+                ("ff_acceleration", c.ff_acceleration),
+            ] {
+                if !(v.is_finite() && v >= 0.0) {
+                    out_push(&mut out, at(&["controller", key]), format!("expected a number ≥ 0, found {v}"));
+                }
+            }
+            if c.min_duty_forward >= c.max_duty || c.min_duty_reverse >= c.max_duty {
+                out_push(
+                    &mut out,
+                    at(&["controller", "max_duty"]),
+                    format!(
+                        "max_duty ({}) must exceed min_duty_forward ({}) and min_duty_reverse ({})",
+                        c.max_duty, c.min_duty_forward, c.min_duty_reverse
+                    ),
+                );
+            }
+            if !(l.soft_min.is_finite() && l.soft_max.is_finite() && l.soft_min < l.soft_max) {
+                out_push(
+                    &mut out,
+                    at(&["limits", "soft_max"]),
+                    format!("expected soft_max > soft_min, found {} ≤ {}", l.soft_max, l.soft_min),
+                );
+            }
+            if !(l.following_error_per_velocity.is_finite() && l.following_error_per_velocity >= 0.0)
+            {
+                out_push(
+                    &mut out,
+                    at(&["limits", "following_error_per_velocity"]),
+                    format!("expected a number ≥ 0, found {}", l.following_error_per_velocity),
+                );
+            }
+            if !(l.stall_duty.is_finite() && (0.0..=100.0).contains(&l.stall_duty)) {
+                out_push(
+                    &mut out,
+                    at(&["limits", "stall_duty"]),
+                    format!("expected 0…100 %, found {}", l.stall_duty),
+                );
+            }
+            if m.in_position_band >= l.following_error {
+                out_push(
+                    &mut out,
+                    at(&["motion", "in_position_band"]),
+                    format!(
+                        "in_position_band ({}) must be smaller than limits.following_error ({})",
+                        m.in_position_band, l.following_error
+                    ),
+                );
+            }
+            if !(m.in_position_dwell_s.is_finite() && m.in_position_dwell_s >= 0.0) {
+                out_push(
+                    &mut out,
+                    at(&["motion", "in_position_dwell_s"]),
+                    format!("expected a number ≥ 0, found {}", m.in_position_dwell_s),
+                );
+            }
+            if !(50..=5000).contains(&a.board.tick_hz) {
+                out_push(
+                    &mut out,
+                    at(&["board", "tick_hz"]),
+                    format!("expected 50…5000 Hz, found {}", a.board.tick_hz),
+                );
+            }
+            if !(5..=1000).contains(&a.board.watchdog_ms) {
+                out_push(
+                    &mut out,
+                    at(&["board", "watchdog_ms"]),
+                    format!("expected 5…1000 ms, found {}", a.board.watchdog_ms),
+                );
+            }
+            if let TransportConfig::Sim(sim) = &a.transport {
+                validate_plant(&sim.plant, &at(&["transport", "plant"]), &mut out);
+            }
+        }
+        out
+    }
+
+    /// The axis called `name`.
+    pub fn axis(&self, name: &str) -> Option<&AxisConfig> {
+        self.axes.iter().find(|a| a.name == name)
+    }
+}
+
+fn out_push(out: &mut Vec<Invalid>, path: Vec<String>, message: String) {
+    out.push(Invalid { path, message });
+}
+
+fn validate_plant(p: &PlantParams, base: &[String], out: &mut Vec<Invalid>) {
+    let at = |k: &str| {
+        let mut v = base.to_vec();
+        v.push(k.to_owned());
+        v
+    };
+    for (k, v) in [
+        ("supply_v", p.supply_v),
+        ("resistance_ohm", p.resistance_ohm),
+        ("torque_constant", p.torque_constant),
+        ("back_emf_constant", p.back_emf_constant),
+        ("rotor_inertia", p.rotor_inertia),
+        ("gear_ratio", p.gear_ratio),
+        ("mm_per_output_rev", p.mm_per_output_rev),
+        ("rail_length_mm", p.rail_length_mm),
+    ] {
+        if !(v.is_finite() && v > 0.0) {
+            out_push(out, at(k), format!("expected a number > 0, found {v}"));
+        }
+    }
+    for (k, v) in [
+        ("inductance_h", p.inductance_h),
+        ("viscous_friction", p.viscous_friction),
+        ("carriage_mass_kg", p.carriage_mass_kg),
+        ("coulomb_friction_n", p.coulomb_friction_n),
+    ] {
+        if !(v.is_finite() && v >= 0.0) {
+            out_push(out, at(k), format!("expected a number ≥ 0, found {v}"));
+        }
+    }
+    if !(p.static_friction_n.is_finite() && p.static_friction_n >= p.coulomb_friction_n) {
+        out_push(
+            out,
+            at("static_friction_n"),
+            format!(
+                "expected ≥ coulomb_friction_n ({}), found {}",
+                p.coulomb_friction_n, p.static_friction_n
+            ),
+        );
+    }
+    if !(0.0..1.0).contains(&p.driver_deadband) {
+        out_push(out, at("driver_deadband"), format!("expected 0 ≤ x < 1, found {}", p.driver_deadband));
+    }
+    if p.encoder_counts_per_rev == 0 {
+        out_push(out, at("encoder_counts_per_rev"), "expected a whole number > 0".to_owned());
+    }
+    if !(0.0..=p.rail_length_mm).contains(&p.start_mm) {
+        out_push(out, at("start_mm"), format!("expected 0…rail_length_mm ({}), found {}", p.rail_length_mm, p.start_mm));
+    }
+    if let Some(h) = p.home_switch_mm {
+        if !(0.0..=p.rail_length_mm).contains(&h) {
+            out_push(out, at("home_switch_mm"), format!("expected 0…rail_length_mm ({}), found {h}", p.rail_length_mm));
+        }
+    }
+}
+
+fn keys(k: &[&str]) -> Vec<String> {
+    k.iter().map(|s| (*s).to_owned()).collect()
+}
+
+/// `axis.1.limits.soft_max` → `axis "y" limits.soft_max`, which is what a person looks for.
+fn display_path(path: &[String], cfg: &MachineConfig) -> String {
+    if path.first().map(String::as_str) == Some("axis") {
+        if let Some(i) = path.get(1).and_then(|s| s.parse::<usize>().ok()) {
+            let name = cfg.axes.get(i).map_or("?", |a| a.name.as_str());
+            return format!("[[axis]] {:?}: {}", name, path[2..].join("."));
+        }
+    }
+    path.join(".")
+}
+
+/// 1-based line and column (in characters) of a byte offset.
+fn line_col(text: &str, offset: usize) -> (usize, usize) {
+    let offset = offset.min(text.len());
+    let before = &text[..offset];
+    let line = before.matches('\n').count() + 1;
+    let col = before.rsplit('\n').next().map_or(0, |l| l.chars().count()) + 1;
+    (line, col)
+}
+
+/// Line and column of the key at `path` (or of the nearest parent that exists); numeric
+/// parts index arrays of tables.
+fn locate(text: &str, path: &[String]) -> Option<(usize, usize)> {
+    let doc = toml_edit::Document::parse(text).ok()?;
+    let mut best = None;
+    let mut table: &dyn toml_edit::TableLike = doc.as_table();
+    let mut parts = path.iter().peekable();
+    while let Some(part) = parts.next() {
+        let Some((key, item)) = table.get_key_value(part) else { break };
+        if let Some(s) = key.span().or_else(|| item.span()) {
+            best = Some(line_col(text, s.start));
+        }
+        if let toml_edit::Item::ArrayOfTables(arr) = item {
+            let Some(t) = parts.next().and_then(|i| i.parse::<usize>().ok()).and_then(|i| arr.get(i))
+            else {
+                break;
+            };
+            if let Some(s) = t.span() {
+                best = Some(line_col(text, s.start));
+            }
+            table = t;
+            continue;
+        }
+        match item.as_table_like() {
+            Some(t) => table = t,
+            None => break,
+        }
+    }
+    best
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn demo_config_is_valid() {
+        let cfg = MachineConfig::demo().expect("embedded demo parses");
+        assert_eq!(cfg.axes.len(), 3);
+    }
+}

@@ -1,0 +1,1 @@
+//! The machine core and the per-axis tasks (in progress).

@@ -1,0 +1,21 @@
+//! servotty: a terminal cockpit and simulator for small DC-servo machines.
+//!
+//! # Layout
+//! Data flows one way: board frames → axis loop → telemetry snapshots → UI; operator
+//! commands → machine core → axis loop.
+//!
+//! - [`config`]: the TOML schema, units, loading and validation.
+//! - [`protocol`]: wire protocol v1 (COBS framing, CRC, messages) shared by host and boards.
+//! - [`transport`]: opening links to boards (serial devices, in-process simulator).
+//! - [`sim`]: the physics simulator (DC motor, gearbox, carriage) and board emulation.
+//! - [`control`]: controllers (on-off, proportional, PID) and motion profiles.
+//! - [`engine`]: one task per axis (loop, supervision, state machine) and the machine core.
+//! - [`cli`]: the headless subcommands and argument parsing; `main.rs` only dispatches.
+
+pub mod cli;
+pub mod config;
+pub mod control;
+pub mod engine;
+pub mod protocol;
+pub mod sim;
+pub mod transport;

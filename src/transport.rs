@@ -1,0 +1,1 @@
+//! Links to boards (in progress).
