@@ -345,7 +345,11 @@ pub struct LimitsConfig {
     /// counts.
     #[serde(default = "default_encoder_jump")]
     pub encoder_jump_counts: u32,
-    /// Runaway: motion against the sign of a duty above `stall_duty` for this long, s.
+    /// Runaway: with |duty| above this, %, …
+    #[serde(default = "default_runaway_duty")]
+    pub runaway_duty: f64,
+    /// … the axis speeding up against the duty's sign for this long, s, trips (the motor or
+    /// encoder is wired the wrong way round).
     #[serde(default = "default_runaway_timeout")]
     pub runaway_timeout_s: f64,
 }
@@ -362,8 +366,11 @@ fn default_link_timeout() -> f64 {
 fn default_encoder_jump() -> u32 {
     2000
 }
+fn default_runaway_duty() -> f64 {
+    20.0
+}
 fn default_runaway_timeout() -> f64 {
-    0.1
+    0.03
 }
 
 /// Where a configuration came from, for messages.
@@ -440,8 +447,7 @@ impl MachineConfig {
     /// [`ConfigError::Parse`] or [`ConfigError::Invalid`].
     pub fn from_toml_str(text: &str, source_name: &str) -> Result<Self, ConfigError> {
         let cfg: Self = toml::from_str(text).map_err(|e| {
-            let (line, column) =
-                e.span().map_or((1, 1), |s| line_col(text, s.start));
+            let (line, column) = e.span().map_or((1, 1), |s| line_col(text, s.start));
             ConfigError::Parse {
                 source_name: source_name.to_owned(),
                 line,
@@ -484,8 +490,7 @@ impl MachineConfig {
                 p.extend(rest.iter().map(|s| (*s).to_owned()));
                 p
             };
-            if a.name.is_empty() || !a.name.chars().all(|c| c.is_ascii_alphanumeric() || c == '_')
-            {
+            if a.name.is_empty() || !a.name.chars().all(|c| c.is_ascii_alphanumeric() || c == '_') {
                 out_push(
                     &mut out,
                     at(&["name"]),
@@ -531,7 +536,11 @@ impl MachineConfig {
                 ("ff_static", c.ff_static),
             ] {
                 if !(v.is_finite() && (0.0..=100.0).contains(&v)) {
-                    out_push(&mut out, at(&["controller", key]), format!("expected 0…100 %, found {v}"));
+                    out_push(
+                        &mut out,
+                        at(&["controller", key]),
+                        format!("expected 0…100 %, found {v}"),
+                    );
                 }
             }
             for (key, v) in [
@@ -542,7 +551,11 @@ impl MachineConfig {
                 ("ff_acceleration", c.ff_acceleration),
             ] {
                 if !(v.is_finite() && v >= 0.0) {
-                    out_push(&mut out, at(&["controller", key]), format!("expected a number ≥ 0, found {v}"));
+                    out_push(
+                        &mut out,
+                        at(&["controller", key]),
+                        format!("expected a number ≥ 0, found {v}"),
+                    );
                 }
             }
             if c.min_duty_forward >= c.max_duty || c.min_duty_reverse >= c.max_duty {
@@ -562,7 +575,8 @@ impl MachineConfig {
                     format!("expected soft_max > soft_min, found {} ≤ {}", l.soft_max, l.soft_min),
                 );
             }
-            if !(l.following_error_per_velocity.is_finite() && l.following_error_per_velocity >= 0.0)
+            if !(l.following_error_per_velocity.is_finite()
+                && l.following_error_per_velocity >= 0.0)
             {
                 out_push(
                     &mut out,
@@ -575,6 +589,13 @@ impl MachineConfig {
                     &mut out,
                     at(&["limits", "stall_duty"]),
                     format!("expected 0…100 %, found {}", l.stall_duty),
+                );
+            }
+            if !(l.runaway_duty.is_finite() && (0.0..=100.0).contains(&l.runaway_duty)) {
+                out_push(
+                    &mut out,
+                    at(&["limits", "runaway_duty"]),
+                    format!("expected 0…100 %, found {}", l.runaway_duty),
                 );
             }
             if m.in_position_band >= l.following_error {
@@ -666,17 +687,29 @@ fn validate_plant(p: &PlantParams, base: &[String], out: &mut Vec<Invalid>) {
         );
     }
     if !(0.0..1.0).contains(&p.driver_deadband) {
-        out_push(out, at("driver_deadband"), format!("expected 0 ≤ x < 1, found {}", p.driver_deadband));
+        out_push(
+            out,
+            at("driver_deadband"),
+            format!("expected 0 ≤ x < 1, found {}", p.driver_deadband),
+        );
     }
     if p.encoder_counts_per_rev == 0 {
         out_push(out, at("encoder_counts_per_rev"), "expected a whole number > 0".to_owned());
     }
     if !(0.0..=p.rail_length_mm).contains(&p.start_mm) {
-        out_push(out, at("start_mm"), format!("expected 0…rail_length_mm ({}), found {}", p.rail_length_mm, p.start_mm));
+        out_push(
+            out,
+            at("start_mm"),
+            format!("expected 0…rail_length_mm ({}), found {}", p.rail_length_mm, p.start_mm),
+        );
     }
     if let Some(h) = p.home_switch_mm {
         if !(0.0..=p.rail_length_mm).contains(&h) {
-            out_push(out, at("home_switch_mm"), format!("expected 0…rail_length_mm ({}), found {h}", p.rail_length_mm));
+            out_push(
+                out,
+                at("home_switch_mm"),
+                format!("expected 0…rail_length_mm ({}), found {h}", p.rail_length_mm),
+            );
         }
     }
 }
@@ -718,7 +751,8 @@ fn locate(text: &str, path: &[String]) -> Option<(usize, usize)> {
             best = Some(line_col(text, s.start));
         }
         if let toml_edit::Item::ArrayOfTables(arr) = item {
-            let Some(t) = parts.next().and_then(|i| i.parse::<usize>().ok()).and_then(|i| arr.get(i))
+            let Some(t) =
+                parts.next().and_then(|i| i.parse::<usize>().ok()).and_then(|i| arr.get(i))
             else {
                 break;
             };

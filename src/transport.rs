@@ -1,1 +1,161 @@
-//! Links to boards (in progress).
+//! Links to boards: opening serial devices and the in-process simulator, behind one byte
+//! stream type, with errors a person can act on.
+//!
+//! The axis task owns its stream; nothing else reads or writes it. A [`Connector`] knows how
+//! to (re)open the link so that a board that vanishes and comes back can be relinked.
+
+use std::sync::Mutex;
+
+use tokio::io::{AsyncRead, AsyncWrite};
+
+/// Any byte stream an axis can talk protocol v1 over.
+pub trait BoardStream: AsyncRead + AsyncWrite + Send + Unpin + 'static {}
+impl<T: AsyncRead + AsyncWrite + Send + Unpin + 'static> BoardStream for T {}
+
+/// A boxed board stream.
+pub type BoxStream = Box<dyn BoardStream>;
+
+/// Why a link could not be opened.
+#[derive(Debug, thiserror::Error)]
+pub enum TransportError {
+    /// The device path does not exist (unplugged, or a different name).
+    #[error("{device}: no such device (is the board plugged in? list ports with `ls /dev/ttyACM* /dev/ttyUSB*`)")]
+    NotFound {
+        /// Device path.
+        device: String,
+    },
+    /// The user may not open the device.
+    #[error("{device}: permission denied (add your user to the group that owns it, usually `dialout`: `sudo usermod -aG dialout $USER`, then log in again)")]
+    PermissionDenied {
+        /// Device path.
+        device: String,
+    },
+    /// Another program holds the device.
+    #[error("{device}: in use by another program (servotty opens ports exclusively so that two programs never drive one axis)")]
+    Busy {
+        /// Device path.
+        device: String,
+    },
+    /// Any other failure to open or configure the device.
+    #[error("{device}: {message}")]
+    Other {
+        /// Device path.
+        device: String,
+        /// The system's words.
+        message: String,
+    },
+    /// The in-process simulator link was already used and cannot be reopened.
+    #[error("the simulated board's link is closed")]
+    SimClosed,
+}
+
+/// Opens a serial device exclusively, in raw mode.
+///
+/// # Errors
+/// [`TransportError`] saying what to do about it.
+pub fn open_serial(device: &str, baud: u32) -> Result<BoxStream, TransportError> {
+    use tokio_serial::SerialPortBuilderExt;
+    let stream = tokio_serial::new(device, baud)
+        .timeout(std::time::Duration::from_millis(100))
+        .open_native_async()
+        .map_err(|e| classify(device, &e))?;
+    Ok(Box::new(stream))
+}
+
+fn classify(device: &str, e: &tokio_serial::Error) -> TransportError {
+    let device = device.to_owned();
+    let msg = e.to_string();
+    match e.kind {
+        tokio_serial::ErrorKind::NoDevice => TransportError::NotFound { device },
+        tokio_serial::ErrorKind::Io(std::io::ErrorKind::NotFound) => {
+            TransportError::NotFound { device }
+        }
+        tokio_serial::ErrorKind::Io(std::io::ErrorKind::PermissionDenied) => {
+            TransportError::PermissionDenied { device }
+        }
+        _ if msg.contains("exclusive") || msg.contains("busy") || msg.contains("EBUSY") => {
+            TransportError::Busy { device }
+        }
+        _ => TransportError::Other { device, message: msg },
+    }
+}
+
+/// How to reach one axis's board.
+pub enum Connector {
+    /// A serial device, reopened after it vanishes.
+    Serial {
+        /// Device path.
+        device: String,
+        /// Baud rate, bit/s.
+        baud: u32,
+    },
+    /// A stream handed over once (the in-process simulator, test fakes).
+    Once(Mutex<Option<BoxStream>>),
+}
+
+impl std::fmt::Debug for Connector {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            Self::Serial { device, baud } => write!(f, "serial {device} at {baud} bit/s"),
+            Self::Once(_) => f.write_str("in-process link"),
+        }
+    }
+}
+
+impl Connector {
+    /// Wraps an already open stream.
+    pub fn once(stream: BoxStream) -> Self {
+        Self::Once(Mutex::new(Some(stream)))
+    }
+
+    /// Opens (or reopens) the link.
+    ///
+    /// # Errors
+    /// [`TransportError`].
+    pub fn connect(&self) -> Result<BoxStream, TransportError> {
+        match self {
+            Self::Serial { device, baud } => open_serial(device, *baud),
+            Self::Once(slot) => {
+                let mut slot = slot.lock().unwrap_or_else(std::sync::PoisonError::into_inner);
+                slot.take().ok_or(TransportError::SimClosed)
+            }
+        }
+    }
+
+    /// Whether reconnecting after a failure can help.
+    pub fn can_reconnect(&self) -> bool {
+        matches!(self, Self::Serial { .. })
+    }
+
+    /// A short description for screens and logs.
+    pub fn describe(&self) -> String {
+        format!("{self:?}")
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn missing_device_is_named() {
+        let err = open_serial("/dev/servotty-no-such-port", 115_200).err().expect("fails");
+        assert!(matches!(err, TransportError::NotFound { .. }), "{err:?}");
+        assert!(err.to_string().contains("/dev/servotty-no-such-port"));
+    }
+
+    #[test]
+    fn second_open_of_a_pty_is_refused() {
+        let Ok((a, _b)) = tokio_serial::SerialStream::pair() else { return };
+        let rt = tokio::runtime::Builder::new_current_thread().enable_all().build();
+        let Ok(rt) = rt else { return };
+        rt.block_on(async {
+            use serialport::SerialPort;
+            let Some(path) = a.name() else { return };
+            let first = open_serial(&path, 115_200);
+            assert!(first.is_ok(), "{:?}", first.err());
+            let second = open_serial(&path, 115_200).err().expect("second open fails");
+            assert!(matches!(second, TransportError::Busy { .. }), "{second:?}");
+        });
+    }
+}

@@ -37,4 +37,13 @@ impl Plant {
     pub fn at_hard_stop(&self) -> bool {
         todo!()
     }
+    pub fn home_switch(&self) -> bool {
+        todo!()
+    }
+    pub fn index_pulse(&self) -> bool {
+        todo!()
+    }
+    pub fn counts_per_mm(&self) -> f64 {
+        todo!()
+    }
 }

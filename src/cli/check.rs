@@ -1,0 +1,84 @@
+//! `servotty check FILE`: validate a configuration and summarise its axes.
+
+use std::fmt::Write as _;
+use std::path::Path;
+
+use crate::cli::{EXIT_OK, EXIT_USAGE};
+use crate::config::{AxisConfig, ControlMode, MachineConfig, TransportConfig};
+
+/// Runs the check; prints the summary to stdout or the error to stderr.
+pub fn run(file: &Path) -> u8 {
+    match MachineConfig::load(file) {
+        Ok(cfg) => {
+            print!("{}", summary(&cfg));
+            EXIT_OK
+        }
+        Err(e) => {
+            eprintln!("servotty: {e}");
+            EXIT_USAGE
+        }
+    }
+}
+
+/// The text `check` prints for a valid configuration.
+pub fn summary(cfg: &MachineConfig) -> String {
+    let mut s = String::new();
+    let _ = writeln!(
+        s,
+        "machine {:?}: {} axis(es), stop-all category {}",
+        cfg.machine.name,
+        cfg.axes.len(),
+        cfg.machine.stop_category
+    );
+    for a in &cfg.axes {
+        axis_summary(&mut s, a);
+    }
+    s
+}
+
+fn axis_summary(s: &mut String, a: &AxisConfig) {
+    let u = &a.scale.unit;
+    let link = match &a.transport {
+        TransportConfig::Sim(_) => "simulated".to_owned(),
+        TransportConfig::Serial { device, baud } => format!("serial {device} @ {baud}"),
+    };
+    let c = &a.controller;
+    let ctl = match c.mode {
+        ControlMode::OnOff => format!("on-off {} % outside ±{} {u}", c.on_off_duty, c.tolerance),
+        ControlMode::Proportional => format!("proportional kp {} %/{u}", c.kp),
+        ControlMode::Pid => format!(
+            "PID kp {} %/{u}, ki {} %/({u}·s), kd {} %·s/{u}, ff_v {} %/({u}/s)",
+            c.kp, c.ki, c.kd, c.ff_velocity
+        ),
+    };
+    let _ = writeln!(
+        s,
+        "  axis {:<6} {link}, {} counts/{u}, tick {} Hz, watchdog {} ms",
+        a.name, a.scale.counts_per_unit, a.board.tick_hz, a.board.watchdog_ms
+    );
+    let _ = writeln!(
+        s,
+        "         control: {ctl}; duty min {}/{} %, max {} %",
+        c.min_duty_forward, c.min_duty_reverse, c.max_duty
+    );
+    let _ = writeln!(
+        s,
+        "         motion: {} {u}/s, {} {u}/s²; soft limits {} … {} {u}; following error ±{} {u} + {} s × v",
+        a.motion.max_velocity,
+        a.motion.max_acceleration,
+        a.limits.soft_min,
+        a.limits.soft_max,
+        a.limits.following_error,
+        a.limits.following_error_per_velocity
+    );
+    if let TransportConfig::Sim(sim) = &a.transport {
+        let true_scale = sim.plant.counts_per_mm();
+        if (true_scale - a.scale.counts_per_unit).abs() > 0.01 * true_scale {
+            let _ = writeln!(
+                s,
+                "         note: the simulated mechanics give {true_scale:.4} counts/mm, the scale says {}",
+                a.scale.counts_per_unit
+            );
+        }
+    }
+}

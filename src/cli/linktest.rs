@@ -1,0 +1,152 @@
+//! `servotty linktest`: measures each link while the axes stay disabled.
+//!
+//! The board streams and the host answers every frame exactly as in operation (with Stop,
+//! since the motors are off), so the turnaround measured here is the control loop's.
+
+use std::time::Duration;
+
+use serde::Serialize;
+
+use crate::cli::{LinktestArgs, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
+use crate::engine::link_meter::Turnaround;
+use crate::engine::{AxisCommand, Machine, MachineHandle, Reply};
+
+/// One axis's link figures, as printed in JSON.
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct AxisLink {
+    /// Axis name.
+    pub axis: String,
+    /// Valid telemetry frames per second of wall time.
+    pub frames_per_s: f64,
+    /// Host turnaround (frame read → command written), µs.
+    pub turnaround_us: Turnaround,
+    /// Frames rejected by the decoder (CRC, framing, version).
+    pub crc_errors: u64,
+    /// Telemetry sequence numbers skipped.
+    pub missed: u64,
+}
+
+/// The whole result.
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct LinkTestOutcome {
+    /// Per axis.
+    pub axes: Vec<AxisLink>,
+    /// This process's CPU use over the measurement, % of one core.
+    pub cpu_pct: f64,
+}
+
+/// Measures every linked axis for `seconds` of wall time.
+pub async fn measure(m: &MachineHandle, seconds: f64) -> Result<LinkTestOutcome, String> {
+    let offline = m.wait_linked(Duration::from_secs(3)).await;
+    if !offline.is_empty() {
+        return Err(format!("no link to: {}", offline.join(", ")));
+    }
+    for a in m.axes() {
+        a.send(AxisCommand::LinkReport { reset: true }).await.map_err(|e| e.to_string())?;
+    }
+    let cpu0 = process_cpu_seconds();
+    let t0 = std::time::Instant::now();
+    tokio::time::sleep(Duration::from_secs_f64(seconds)).await;
+    let wall = t0.elapsed().as_secs_f64();
+    let cpu1 = process_cpu_seconds();
+    let mut axes = Vec::new();
+    for a in m.axes() {
+        let Reply::Link(r) =
+            a.send(AxisCommand::LinkReport { reset: true }).await.map_err(|e| e.to_string())?
+        else {
+            return Err(format!("{}: unexpected reply", a.name()));
+        };
+        axes.push(AxisLink {
+            axis: a.name().to_owned(),
+            frames_per_s: r.frames as f64 / wall,
+            turnaround_us: r.turnaround_us,
+            crc_errors: r.bad_frames,
+            missed: r.missed,
+        });
+    }
+    let cpu_pct = match (cpu0, cpu1) {
+        (Some(a), Some(b)) if wall > 0.0 => 100.0 * (b - a) / wall,
+        _ => 0.0,
+    };
+    Ok(LinkTestOutcome { axes, cpu_pct })
+}
+
+/// User plus system CPU time of this process, s, from /proc (Linux only; None elsewhere).
+fn process_cpu_seconds() -> Option<f64> {
+    let stat = std::fs::read_to_string("/proc/self/stat").ok()?;
+    // The command name may hold spaces and parentheses; fields resume after the last ')'.
+    let rest = &stat[stat.rfind(')')? + 2..];
+    let f: Vec<&str> = rest.split_whitespace().collect();
+    // utime and stime are fields 14 and 15 of proc(5), i.e. 11 and 12 after the name.
+    let ticks: f64 = f.get(11)?.parse::<f64>().ok()? + f.get(12)?.parse::<f64>().ok()?;
+    // USER_HZ is 100 on every Linux ABI servotty targets (proc(5)).
+    Some(ticks / 100.0)
+}
+
+/// `servotty linktest`.
+pub fn run(args: &LinktestArgs) -> u8 {
+    if !(args.seconds.is_finite() && args.seconds > 0.0 && args.seconds <= 3600.0) {
+        eprintln!("servotty: --seconds must be between 0 and 3600, found {}", args.seconds);
+        return EXIT_USAGE;
+    }
+    let (cfg, _) = match args.machine.load() {
+        Ok(c) => c,
+        Err(e) => {
+            eprintln!("servotty: {e}");
+            return EXIT_USAGE;
+        }
+    };
+    let rt = match crate::cli::runtime() {
+        Ok(rt) => rt,
+        Err(e) => {
+            eprintln!("servotty: cannot start the runtime: {e}");
+            return EXIT_FAILED;
+        }
+    };
+    rt.block_on(async {
+        let machine = match Machine::start(&cfg, &args.machine.ports) {
+            Ok(m) => m,
+            Err(e) => {
+                eprintln!("servotty: {e}");
+                return EXIT_USAGE;
+            }
+        };
+        let h = machine.handle();
+        let result = tokio::select! {
+            r = measure(&h, args.seconds) => Some(r),
+            _ = tokio::signal::ctrl_c() => None,
+        };
+        machine.shutdown().await;
+        match result {
+            None => EXIT_FAILED,
+            Some(Err(e)) => {
+                eprintln!("servotty: {e}");
+                EXIT_FAILED
+            }
+            Some(Ok(out)) => {
+                if args.json {
+                    println!("{}", serde_json::to_string(&out).unwrap_or_default());
+                } else {
+                    println!(
+                        "{:<6} {:>9} {:>8} {:>8} {:>8} {:>6} {:>7}",
+                        "axis", "frames/s", "p50 µs", "p99 µs", "max µs", "bad", "missed"
+                    );
+                    for a in &out.axes {
+                        println!(
+                            "{:<6} {:>9.1} {:>8} {:>8} {:>8} {:>6} {:>7}",
+                            a.axis,
+                            a.frames_per_s,
+                            a.turnaround_us.p50,
+                            a.turnaround_us.p99,
+                            a.turnaround_us.max,
+                            a.crc_errors,
+                            a.missed
+                        );
+                    }
+                    println!("cpu {:.1} % of one core", out.cpu_pct);
+                }
+                EXIT_OK
+            }
+        }
+    })
+}

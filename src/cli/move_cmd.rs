@@ -1,0 +1,210 @@
+//! `servotty move`: link, enable, profiled moves, wait for in-position, disable.
+
+use std::time::Duration;
+
+use serde::Serialize;
+
+use crate::cli::{MoveArgs, Target, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
+use crate::engine::{AxisCommand, AxisState, Machine, MachineHandle};
+
+/// How long the boards have to link.
+const LINK_WAIT: Duration = Duration::from_secs(3);
+/// Slack on top of the profile time for settling, s.
+const SETTLE_SLACK_S: f64 = 10.0;
+
+/// One axis's result, as printed in JSON.
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct AxisOutcome {
+    /// Axis name.
+    pub axis: String,
+    /// Commanded position, units.
+    pub target: f64,
+    /// Position after settling (or at the end), units.
+    #[serde(rename = "final")]
+    pub final_position: f64,
+    /// Largest |following error| during the move, units.
+    pub max_following_error: f64,
+    /// Time from the start of the move to in-position, s; null if it never got there.
+    pub settle_s: Option<f64>,
+    /// State word at the end (before disabling).
+    pub state: String,
+    /// Trip cause and detail, if the axis tripped.
+    pub trip: Option<String>,
+}
+
+/// The whole result.
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct MoveOutcome {
+    /// True when every axis settled.
+    pub ok: bool,
+    /// Per axis, in the order given.
+    pub axes: Vec<AxisOutcome>,
+}
+
+/// Why the moves could not even start.
+#[derive(Debug, thiserror::Error)]
+pub enum MoveError {
+    /// `--to` names an axis the machine lacks.
+    #[error("--to {0}=…: no such axis")]
+    UnknownAxis(String),
+    /// An axis did not link.
+    #[error("{0}: no link to the board")]
+    Offline(String),
+    /// An axis refused.
+    #[error(transparent)]
+    Refused(#[from] crate::engine::CommandError),
+}
+
+impl MoveError {
+    /// Exit code for this error.
+    pub fn exit_code(&self) -> u8 {
+        match self {
+            Self::UnknownAxis(_) => EXIT_USAGE,
+            _ => EXIT_FAILED,
+        }
+    }
+}
+
+/// Runs the moves on a started machine and disables the axes afterwards.
+///
+/// # Errors
+/// [`MoveError`] when the moves cannot start; trips during the moves are in the outcome.
+pub async fn run_moves(m: &MachineHandle, targets: &[Target]) -> Result<MoveOutcome, MoveError> {
+    for t in targets {
+        if m.axis(&t.axis).is_none() {
+            return Err(MoveError::UnknownAxis(t.axis.clone()));
+        }
+    }
+    if let Some(a) =
+        m.wait_linked(LINK_WAIT).await.into_iter().find(|a| targets.iter().any(|t| &t.axis == a))
+    {
+        return Err(MoveError::Offline(a));
+    }
+    let result = start_and_wait(m, targets).await;
+    for t in targets {
+        if let Some(a) = m.axis(&t.axis) {
+            let _ = a.send(AxisCommand::Disable).await;
+        }
+    }
+    result
+}
+
+async fn start_and_wait(m: &MachineHandle, targets: &[Target]) -> Result<MoveOutcome, MoveError> {
+    let mut before = Vec::new();
+    let mut limit_s: f64 = 0.0;
+    for t in targets {
+        let a = m.axis(&t.axis).ok_or_else(|| MoveError::UnknownAxis(t.axis.clone()))?;
+        a.send(AxisCommand::Enable).await?;
+        let snap = a.snapshot();
+        let motion =
+            &m.config().axis(&t.axis).ok_or_else(|| MoveError::UnknownAxis(t.axis.clone()))?.motion;
+        let d = (t.position - snap.position).abs();
+        limit_s =
+            limit_s.max(d / motion.max_velocity + motion.max_velocity / motion.max_acceleration);
+        before.push(snap.moves_done);
+    }
+    for t in targets {
+        let a = m.axis(&t.axis).ok_or_else(|| MoveError::UnknownAxis(t.axis.clone()))?;
+        a.send(AxisCommand::MoveTo(t.position)).await?;
+    }
+    let deadline = tokio::time::Instant::now() + Duration::from_secs_f64(limit_s + SETTLE_SLACK_S);
+    let mut outcomes = Vec::new();
+    let mut ok = true;
+    for (t, done_before) in targets.iter().zip(before) {
+        let a = m.axis(&t.axis).ok_or_else(|| MoveError::UnknownAxis(t.axis.clone()))?;
+        let mut rx = a.watch();
+        let finished = tokio::time::timeout_at(
+            deadline,
+            rx.wait_for(|s| {
+                s.moves_done > done_before
+                    || !matches!(s.state, AxisState::Moving | AxisState::Holding)
+            }),
+        )
+        .await;
+        let s = a.snapshot();
+        let settled = finished.is_ok() && s.moves_done > done_before;
+        ok &= settled;
+        outcomes.push(AxisOutcome {
+            axis: t.axis.clone(),
+            target: t.position,
+            final_position: s.position,
+            max_following_error: s.move_peak_following_error,
+            settle_s: if settled { s.move_settle_s } else { None },
+            state: s.state.word().to_owned(),
+            trip: s.trip.as_ref().map(|tr| format!("{}: {}", tr.cause, tr.detail)),
+        });
+    }
+    Ok(MoveOutcome { ok, axes: outcomes })
+}
+
+/// `servotty move`.
+pub fn run(args: &MoveArgs) -> u8 {
+    let (cfg, _) = match args.machine.load() {
+        Ok(c) => c,
+        Err(e) => {
+            eprintln!("servotty: {e}");
+            return EXIT_USAGE;
+        }
+    };
+    let rt = match crate::cli::runtime() {
+        Ok(rt) => rt,
+        Err(e) => {
+            eprintln!("servotty: cannot start the runtime: {e}");
+            return EXIT_FAILED;
+        }
+    };
+    rt.block_on(async {
+        let machine = match Machine::start(&cfg, &args.machine.ports) {
+            Ok(m) => m,
+            Err(e) => {
+                eprintln!("servotty: {e}");
+                return EXIT_USAGE;
+            }
+        };
+        let h = machine.handle();
+        let result = tokio::select! {
+            r = run_moves(&h, &args.to) => Some(r),
+            _ = tokio::signal::ctrl_c() => None,
+        };
+        machine.shutdown().await;
+        match result {
+            None => {
+                eprintln!("servotty: interrupted; motors off");
+                EXIT_FAILED
+            }
+            Some(Err(e)) => {
+                eprintln!("servotty: {e}");
+                e.exit_code()
+            }
+            Some(Ok(out)) => {
+                if args.json {
+                    println!("{}", serde_json::to_string(&out).unwrap_or_default());
+                } else {
+                    print_table(&out);
+                }
+                if out.ok {
+                    EXIT_OK
+                } else {
+                    EXIT_FAILED
+                }
+            }
+        }
+    })
+}
+
+fn print_table(out: &MoveOutcome) {
+    println!(
+        "{:<6} {:>10} {:>10} {:>9} {:>8}  state",
+        "axis", "target", "final", "max fe", "settle"
+    );
+    for a in &out.axes {
+        let settle = a.settle_s.map_or_else(|| "-".to_owned(), |s| format!("{s:.2} s"));
+        println!(
+            "{:<6} {:>10.3} {:>10.3} {:>9.3} {:>8}  {}",
+            a.axis, a.target, a.final_position, a.max_following_error, settle, a.state
+        );
+        if let Some(t) = &a.trip {
+            println!("       tripped: {t}");
+        }
+    }
+}

@@ -1,0 +1,213 @@
+//! The machine core: starts one task per axis, hands out cloneable handles, owns the
+//! stop-all signal and shutdown.
+//!
+//! Stop-all is a `watch` every axis task selects on directly, so it never queues behind
+//! operator commands and costs one atomic read per frame to check.
+
+use std::sync::Arc;
+use std::time::Duration;
+
+use tokio::sync::{mpsc, watch};
+use tokio::task::JoinSet;
+
+use crate::config::{MachineConfig, TransportConfig};
+use crate::engine::axis::{AxisHandle, AxisTask, AxisWiring, StopAll};
+use crate::engine::snapshot::{AxisSnapshot, AxisState};
+use crate::sim::board::{spawn_in_process, SimBoardHandle};
+use crate::transport::Connector;
+
+/// Commands waiting per axis before senders wait; operator input is far slower than this.
+const COMMAND_QUEUE: usize = 32;
+
+/// `--port AXIS=PATH`: put that axis on a serial device instead of its configured transport.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct PortOverride {
+    /// Axis name.
+    pub axis: String,
+    /// Device path.
+    pub device: String,
+}
+
+impl std::str::FromStr for PortOverride {
+    type Err = String;
+
+    fn from_str(s: &str) -> Result<Self, Self::Err> {
+        match s.split_once('=') {
+            Some((a, p)) if !a.is_empty() && !p.is_empty() => {
+                Ok(Self { axis: a.to_owned(), device: p.to_owned() })
+            }
+            _ => Err(format!("expected AXIS=PATH (e.g. x=/dev/ttyACM0), found {s:?}")),
+        }
+    }
+}
+
+/// Why the machine could not start.
+#[derive(Debug, thiserror::Error)]
+pub enum StartError {
+    /// A `--port` names an axis the configuration does not have.
+    #[error("--port {axis}=…: no axis called {axis:?} (axes: {known})")]
+    UnknownAxis {
+        /// The name given.
+        axis: String,
+        /// The configured names.
+        known: String,
+    },
+}
+
+/// A running machine. Dropping it without [`Machine::shutdown`] aborts the tasks; the boards'
+/// watchdogs then turn the motors off.
+pub struct Machine {
+    handle: MachineHandle,
+    shutdown: watch::Sender<bool>,
+    tasks: JoinSet<()>,
+    sims: Vec<(String, SimBoardHandle)>,
+}
+
+/// A cloneable way to command the whole machine.
+#[derive(Debug, Clone)]
+pub struct MachineHandle {
+    axes: Arc<[AxisHandle]>,
+    stop: Arc<watch::Sender<StopAll>>,
+    config: Arc<MachineConfig>,
+}
+
+impl Machine {
+    /// Starts every axis task (and the in-process simulated boards). Links come up in the
+    /// background; use [`MachineHandle::wait_linked`] to wait for them.
+    ///
+    /// # Errors
+    /// [`StartError`] for a bad port override.
+    pub fn start(cfg: &MachineConfig, ports: &[PortOverride]) -> Result<Self, StartError> {
+        for p in ports {
+            if cfg.axis(&p.axis).is_none() {
+                return Err(StartError::UnknownAxis {
+                    axis: p.axis.clone(),
+                    known: cfg.axes.iter().map(|a| a.name.as_str()).collect::<Vec<_>>().join(", "),
+                });
+            }
+        }
+        let category = cfg.machine.stop_category;
+        let (stop_tx, _) = watch::channel(StopAll { latched: false, category });
+        let (shutdown_tx, _) = watch::channel(false);
+        let mut tasks = JoinSet::new();
+        let mut handles = Vec::new();
+        let mut sims = Vec::new();
+        for (i, axis) in cfg.axes.iter().enumerate() {
+            let connector = if let Some(p) = ports.iter().find(|p| p.axis == axis.name) {
+                let baud = match &axis.transport {
+                    TransportConfig::Serial { baud, .. } => *baud,
+                    TransportConfig::Sim(_) => 921_600,
+                };
+                Connector::Serial { device: p.device.clone(), baud }
+            } else {
+                match &axis.transport {
+                    TransportConfig::Serial { device, baud } => {
+                        Connector::Serial { device: device.clone(), baud: *baud }
+                    }
+                    TransportConfig::Sim(sim) => {
+                        let (stream, handle) =
+                            spawn_in_process(&sim.plant, &sim.faults, 0x5E12_0770 + i as u64);
+                        sims.push((axis.name.clone(), handle));
+                        Connector::once(Box::new(stream))
+                    }
+                }
+            };
+            let (cmd_tx, cmd_rx) = mpsc::channel(COMMAND_QUEUE);
+            let (snap_tx, snap_rx) =
+                watch::channel(AxisSnapshot::offline(&axis.name, &axis.scale.unit));
+            let wiring = AxisWiring {
+                commands: cmd_rx,
+                stop_all: stop_tx.subscribe(),
+                shutdown: shutdown_tx.subscribe(),
+                snapshots: snap_tx,
+            };
+            tasks.spawn(AxisTask::new(axis.clone(), connector, wiring).run());
+            handles.push(AxisHandle::new(&axis.name, cmd_tx, snap_rx));
+        }
+        Ok(Self {
+            handle: MachineHandle {
+                axes: handles.into(),
+                stop: Arc::new(stop_tx),
+                config: Arc::new(cfg.clone()),
+            },
+            shutdown: shutdown_tx,
+            tasks,
+            sims,
+        })
+    }
+
+    /// A handle for commands and snapshots.
+    pub fn handle(&self) -> MachineHandle {
+        self.handle.clone()
+    }
+
+    /// The simulated board behind an axis, if it is simulated in process.
+    pub fn sim(&self, axis: &str) -> Option<SimBoardHandle> {
+        self.sims.iter().find(|(a, _)| a == axis).map(|(_, h)| h.clone())
+    }
+
+    /// Turns every motor off, ends every axis task and waits for them.
+    pub async fn shutdown(mut self) {
+        let _ = self.shutdown.send(true);
+        while self.tasks.join_next().await.is_some() {}
+    }
+}
+
+impl MachineHandle {
+    /// Every axis, in configuration order.
+    pub fn axes(&self) -> &[AxisHandle] {
+        &self.axes
+    }
+
+    /// The axis called `name`.
+    pub fn axis(&self, name: &str) -> Option<&AxisHandle> {
+        self.axes.iter().find(|a| a.name() == name)
+    }
+
+    /// The configuration the machine was started with.
+    pub fn config(&self) -> &MachineConfig {
+        &self.config
+    }
+
+    /// Latches stop-all on every axis (category from the configuration). Never waits.
+    pub fn stop_all(&self) {
+        self.stop.send_modify(|s| s.latched = true);
+    }
+
+    /// Releases stop-all. No axis starts moving because of it.
+    pub fn release_stop_all(&self) {
+        self.stop.send_modify(|s| s.latched = false);
+    }
+
+    /// Whether stop-all is latched.
+    pub fn stop_all_latched(&self) -> bool {
+        self.stop.borrow().latched
+    }
+
+    /// The stop category stop-all uses.
+    pub fn stop_category(&self) -> u8 {
+        self.stop.borrow().category
+    }
+
+    /// Every axis's latest snapshot.
+    pub fn snapshots(&self) -> Vec<AxisSnapshot> {
+        self.axes.iter().map(AxisHandle::snapshot).collect()
+    }
+
+    /// Waits until every axis has linked (left `offline`), or the timeout passes.
+    /// Returns the axes still offline.
+    pub async fn wait_linked(&self, timeout: Duration) -> Vec<String> {
+        let deadline = tokio::time::Instant::now() + timeout;
+        for a in self.axes.iter() {
+            let mut rx = a.watch();
+            let _ =
+                tokio::time::timeout_at(deadline, rx.wait_for(|s| s.state != AxisState::Offline))
+                    .await;
+        }
+        self.axes
+            .iter()
+            .filter(|a| a.snapshot().state == AxisState::Offline)
+            .map(|a| a.name().to_owned())
+            .collect()
+    }
+}
