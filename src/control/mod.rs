@@ -1,52 +1,34 @@
-//! Controllers and motion profiles (stub: the control work replaces this file).
-#![allow(missing_docs)]
-use crate::config::ControllerConfig;
+//! Controllers, motion profiles and step-response analysis: everything between "where the
+//! axis should be" and "what duty to send".
+//!
+//! - [`controller`]: the position controller ([`Controller`]): on-off, proportional or PID,
+//!   chosen by [`ControlMode`](crate::config::ControlMode), with anti-windup, output limits,
+//!   minimum-duty compensation and feedforward.
+//! - [`profile`]: trapezoidal velocity profiles ([`Trapezoid`]) for moves, jogs and stops.
+//! - [`step_metrics`]: rise time, overshoot, settling time and steady-state error of a
+//!   recorded step response, for tuning.
+//!
+//! The engine calls [`Trapezoid::sample`] and then [`Controller::update`] once per board tick,
+//! with the board's own time step; nothing here reads a clock, so every computation is a pure
+//! function of its inputs and is tested deterministically.
 
+pub mod controller;
+pub mod profile;
+pub mod step_metrics;
+
+pub use controller::{filtered_derivative, Controller, Terms, MIN_DUTY_BLEND_FRACTION};
+pub use profile::{stopping_distance, Segment, Trapezoid};
+
+/// Where the axis should be at one instant, as produced by a motion profile.
+///
+/// `velocity` and `acceleration` feed the controller's feedforward; a plain position target
+/// (no profile) leaves them at zero.
 #[derive(Debug, Clone, Copy, Default, PartialEq)]
 pub struct Setpoint {
+    /// Target position, units.
     pub position: f64,
+    /// Target velocity, units/s.
     pub velocity: f64,
+    /// Target acceleration, units/s².
     pub acceleration: f64,
-}
-
-#[derive(Debug, Clone)]
-pub struct Controller {}
-
-impl Controller {
-    pub fn new(_cfg: &ControllerConfig) -> Self {
-        todo!()
-    }
-    pub fn update(&mut self, _sp: &Setpoint, _position: f64, _dt: f64) -> f64 {
-        todo!()
-    }
-    pub fn reset(&mut self, _position: f64) {
-        todo!()
-    }
-    pub fn set_config(&mut self, _cfg: &ControllerConfig) {
-        todo!()
-    }
-    pub fn config(&self) -> &ControllerConfig {
-        todo!()
-    }
-}
-
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub struct Trapezoid {}
-
-impl Trapezoid {
-    pub fn plan(_p0: f64, _v0: f64, _goal: f64, _v_max: f64, _a_max: f64) -> Self {
-        todo!()
-    }
-    pub fn stop(_p0: f64, _v0: f64, _a_max: f64) -> Self {
-        todo!()
-    }
-    pub fn sample(&self, _t: f64) -> Setpoint {
-        todo!()
-    }
-    pub fn duration(&self) -> f64 {
-        todo!()
-    }
-    pub fn goal(&self) -> f64 {
-        todo!()
-    }
 }

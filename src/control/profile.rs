@@ -1,0 +1,245 @@
+//! Trapezoidal velocity profiles: bounded velocity and acceleration, continuous position and
+//! velocity, from any moving or resting start to rest at a goal.
+//!
+//! Hand-written rather than taken from a crate: the planner must start from a non-zero
+//! velocity (a new target during a move, the end of a jog, a stop), must be `Copy` and
+//! allocation-free for the control loop, and is only a few constant-acceleration segments.
+//!
+//! # Planning ([`Trapezoid::plan`])
+//! Every profile is a short list of constant-acceleration [`Segment`]s, built in order:
+//! 1. If `|v0| > v_max` (the limit was lowered during a move), decelerate at `a_max` to
+//!    `v_max` in the same direction first; only this segment exceeds `v_max`.
+//! 2. If the axis moves away from the goal, or too fast to stop before it
+//!    (`|v0|·v0/(2·a_max)` beyond the goal), brake at `a_max` to rest; the move then
+//!    continues from there, with the acceleration keeping its sign, so braking and the return
+//!    form one continuous ramp through zero velocity.
+//! 3. From a velocity `u0 ≥ 0` towards the goal, distance `D`: the peak velocity is
+//!    `v_p = min(v_max, √(a·D + u0²/2))` (accelerate from `u0` to `v_p`, then brake to 0).
+//!    If `v_p < v_max` the profile is triangular, else it cruises at `v_max` for
+//!    `(D − (v_p² − u0²)/(2a) − v_p²/(2a))/v_p`. From rest this is Biagiotti & Melchiorri's
+//!    `T = D/v + v/a` (trapezoid, `D ≥ v²/a`) or `T = 2√(D/a)`, peak `√(a·D)` (triangle).
+//!
+//! Each step takes the largest allowed acceleration as early as possible, so the result is the
+//! minimum-time profile under the two limits. Position and velocity are continuous by
+//! construction (each segment starts where the previous one ended); acceleration jumps, which
+//! is what makes it a trapezoid (jerk-limited profiles come later).
+//!
+//! At and after [`Trapezoid::duration`] [`Trapezoid::sample`] returns exactly the goal at rest,
+//! so rounding in the segment sums never leaves the axis a hair off its target.
+//!
+//! Limits that are not finite and positive, or non-finite positions, give a profile that
+//! holds the start position (or the goal when the start is not finite) at rest: the engine
+//! validates limits, and a loop must never see NaN.
+//!
+//! # Source
+//! L. Biagiotti and C. Melchiorri, *Trajectory Planning for Automatic Machines and Robots*,
+//! Springer 2008, §3.2 (trapezoidal velocity profile with preassigned velocity and
+//! acceleration). The moving-start cases (steps 1–2) are our own composition of the same
+//! constant-acceleration pieces.
+
+use super::Setpoint;
+
+/// Most segments a plan needs: slow to v_max, brake, accelerate, cruise, brake.
+const MAX_SEGMENTS: usize = 5;
+
+/// One constant-acceleration piece of a profile.
+#[derive(Debug, Clone, Copy, Default, PartialEq)]
+pub struct Segment {
+    /// Start time from the start of the profile, s.
+    pub start_s: f64,
+    /// Length, s (> 0).
+    pub duration_s: f64,
+    /// Position at the start of the segment, units.
+    pub position: f64,
+    /// Velocity at the start of the segment, units/s.
+    pub velocity: f64,
+    /// Constant acceleration during the segment, units/s².
+    pub acceleration: f64,
+}
+
+impl Segment {
+    fn at(&self, tau: f64) -> Setpoint {
+        Setpoint {
+            position: self.position + self.velocity * tau + 0.5 * self.acceleration * tau * tau,
+            velocity: self.velocity + self.acceleration * tau,
+            acceleration: self.acceleration,
+        }
+    }
+}
+
+/// A planned trapezoidal (or triangular) move, sampled by time since its start.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Trapezoid {
+    segments: [Segment; MAX_SEGMENTS],
+    len: usize,
+    start: Setpoint,
+    goal: f64,
+    duration: f64,
+}
+
+/// Accumulates segments from the current state.
+struct Builder {
+    plan: Trapezoid,
+    t: f64,
+    p: f64,
+    v: f64,
+}
+
+impl Builder {
+    fn new(p0: f64, v0: f64, goal: f64) -> Self {
+        let mut plan = Trapezoid::rest_at(p0, goal);
+        plan.start.velocity = v0;
+        Self { plan, t: 0.0, p: p0, v: v0 }
+    }
+
+    /// Appends a segment of acceleration `a` lasting `dt` (skipped when not > 0).
+    fn push(&mut self, a: f64, dt: f64) {
+        if dt.is_nan() || dt <= 0.0 || self.plan.len == MAX_SEGMENTS {
+            return;
+        }
+        self.plan.segments[self.plan.len] = Segment {
+            start_s: self.t,
+            duration_s: dt,
+            position: self.p,
+            velocity: self.v,
+            acceleration: a,
+        };
+        self.plan.len += 1;
+        self.p += self.v * dt + 0.5 * a * dt * dt;
+        self.v += a * dt;
+        self.t += dt;
+    }
+
+    fn finish(mut self) -> Trapezoid {
+        self.plan.duration = self.t;
+        self.plan
+    }
+}
+
+impl Trapezoid {
+    /// Rest-or-moving start at (p0, v0) to rest at goal, |v| ≤ v_max, |a| ≤ a_max. Handles
+    /// v0 ≠ 0, including v0 pointing away from goal or too fast to stop before goal
+    /// (decelerate, reverse, come back), and short moves (triangular). If |v0| > v_max it first
+    /// decelerates to v_max (see the module docs).
+    pub fn plan(p0: f64, v0: f64, goal: f64, v_max: f64, a_max: f64) -> Self {
+        let limits_ok = v_max.is_finite() && v_max > 0.0 && a_max.is_finite() && a_max > 0.0;
+        if !(limits_ok && p0.is_finite() && v0.is_finite() && goal.is_finite()) {
+            return Self::invalid(p0, goal);
+        }
+        let a = a_max;
+        let mut b = Builder::new(p0, v0, goal);
+
+        if v0.abs() > v_max {
+            b.push(-a.copysign(v0), (v0.abs() - v_max) / a);
+            b.v = v_max.copysign(v0);
+        }
+
+        let d = goal - b.p;
+        let stopping = b.v * b.v.abs() / (2.0 * a);
+        if b.v != 0.0 && (b.v * d <= 0.0 || stopping.abs() > d.abs()) {
+            b.push(-a.copysign(b.v), b.v.abs() / a);
+            b.v = 0.0;
+        }
+
+        let d = goal - b.p;
+        let dist = d.abs();
+        if dist > 0.0 {
+            let s = if d > 0.0 { 1.0 } else { -1.0 };
+            let u0 = (s * b.v).max(0.0);
+            let peak = (a * dist + 0.5 * u0 * u0).sqrt().min(v_max).max(u0);
+            let accel_dist = (peak * peak - u0 * u0) / (2.0 * a);
+            let brake_dist = peak * peak / (2.0 * a);
+            b.push(s * a, (peak - u0) / a);
+            b.v = s * peak;
+            if peak > 0.0 {
+                b.push(0.0, (dist - accel_dist - brake_dist).max(0.0) / peak);
+            }
+            b.push(-s * a, peak / a);
+        }
+        b.finish()
+    }
+
+    /// Decelerate from (p0, v0) to rest at a_max (stop-all category 1, end of jog). goal() is
+    /// where it stops: p0 + v0|v0|/(2 a_max).
+    ///
+    /// A non-finite or non-positive `a_max` gives a profile at rest at `p0` (an immediate
+    /// stop: the velocity jumps to zero).
+    pub fn stop(p0: f64, v0: f64, a_max: f64) -> Self {
+        if !(a_max.is_finite() && a_max > 0.0 && p0.is_finite() && v0.is_finite()) {
+            return Self::invalid(p0, p0);
+        }
+        let goal = p0 + stopping_distance(v0, a_max);
+        let mut b = Builder::new(p0, v0, goal);
+        b.push(-a_max.copysign(v0), v0.abs() / a_max);
+        b.finish()
+    }
+
+    /// A profile that holds `position` at rest (duration 0).
+    pub fn hold(position: f64) -> Self {
+        Self::invalid(position, position)
+    }
+
+    /// Rest at `p0` with `goal` as the reported goal: the starting state for the builder.
+    fn rest_at(p0: f64, goal: f64) -> Self {
+        Self {
+            segments: [Segment::default(); MAX_SEGMENTS],
+            len: 0,
+            start: Setpoint { position: p0, velocity: 0.0, acceleration: 0.0 },
+            goal,
+            duration: 0.0,
+        }
+    }
+
+    fn invalid(p0: f64, goal: f64) -> Self {
+        let at = if p0.is_finite() {
+            p0
+        } else if goal.is_finite() {
+            goal
+        } else {
+            0.0
+        };
+        Self::rest_at(at, at)
+    }
+
+    /// t from the start of this profile; t<0 (or NaN) → start (p0, v0, no acceleration),
+    /// t ≥ duration → rest at goal.
+    pub fn sample(&self, t: f64) -> Setpoint {
+        if t >= self.duration {
+            return Setpoint { position: self.goal, velocity: 0.0, acceleration: 0.0 };
+        }
+        if t.is_nan() || t < 0.0 {
+            return self.start;
+        }
+        let segs = self.segments();
+        let i = segs.iter().rposition(|s| s.start_s <= t).unwrap_or(0);
+        segs.get(i).map_or(self.start, |s| s.at(t - s.start_s))
+    }
+
+    /// Total time to rest at the goal, s.
+    pub fn duration(&self) -> f64 {
+        self.duration
+    }
+
+    /// Where the profile ends, at rest.
+    pub fn goal(&self) -> f64 {
+        self.goal
+    }
+
+    /// The constant-acceleration pieces, in time order.
+    pub fn segments(&self) -> &[Segment] {
+        &self.segments[..self.len]
+    }
+
+    /// Largest |velocity| reached (including the start), units/s.
+    pub fn peak_velocity(&self) -> f64 {
+        self.segments()
+            .iter()
+            .flat_map(|s| [s.velocity, s.at(s.duration_s).velocity])
+            .fold(0.0, |m, v| m.max(v.abs()))
+    }
+}
+
+/// Signed distance to stop from velocity `v` at deceleration `a` (> 0): `v·|v|/(2a)`.
+pub fn stopping_distance(v: f64, a: f64) -> f64 {
+    v * v.abs() / (2.0 * a)
+}
