@@ -39,6 +39,26 @@ pub struct MachineSection {
     /// axis's maximum acceleration, then motor off (default); 0 = motor off at once.
     #[serde(default = "default_stop_category")]
     pub stop_category: u8,
+    /// Homing order: groups homed in turn, the axes of a group together, e.g.
+    /// `[["z"], ["x", "y"]]` (lift axis first). Axes not listed are homed last, together.
+    #[serde(default)]
+    pub homing_order: Vec<Vec<String>>,
+    /// Folder for trip captures (CSV); relative to the configuration file's folder. Default:
+    /// `captures` in servotty's state folder (`$XDG_STATE_HOME/servotty`, else
+    /// `~/.local/state/servotty`).
+    #[serde(default)]
+    pub captures_dir: Option<PathBuf>,
+    /// Event log (JSON lines); relative to the configuration file's folder. Default:
+    /// `events.jsonl` in servotty's state folder.
+    #[serde(default)]
+    pub event_log: Option<PathBuf>,
+    /// Seconds of full-rate telemetry each axis keeps for trip captures, s.
+    #[serde(default = "default_capture_seconds")]
+    pub capture_seconds: f64,
+}
+
+fn default_capture_seconds() -> f64 {
+    10.0
 }
 
 fn default_stop_category() -> u8 {
@@ -58,6 +78,171 @@ pub struct AxisConfig {
     pub controller: ControllerConfig,
     pub motion: MotionConfig,
     pub limits: LimitsConfig,
+    #[serde(default)]
+    pub homing: HomingConfig,
+    #[serde(default)]
+    pub jog: JogConfig,
+}
+
+/// How an axis finds its reference position.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
+#[serde(rename_all = "snake_case")]
+pub enum HomingMethod {
+    /// Approach the home switch, back off, approach slowly, latch on the switch edge.
+    Switch,
+    /// Drive gently into the mechanical end stop until it stalls, back off.
+    HardStop,
+    /// Creep until the encoder's index pulse appears; latch there.
+    Index,
+    /// Declare the present position home (with a warning): nothing is checked.
+    #[default]
+    None,
+}
+
+/// Which way homing searches.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
+#[serde(rename_all = "snake_case")]
+pub enum SearchDirection {
+    /// Toward lower positions.
+    #[default]
+    Negative,
+    /// Toward higher positions.
+    Positive,
+}
+
+impl SearchDirection {
+    /// −1 or +1.
+    pub fn sign(self) -> f64 {
+        match self {
+            Self::Negative => -1.0,
+            Self::Positive => 1.0,
+        }
+    }
+}
+
+/// `[axis.homing]`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct HomingConfig {
+    #[serde(default)]
+    pub method: HomingMethod,
+    /// Search direction.
+    #[serde(default)]
+    pub direction: SearchDirection,
+    /// Speed while searching for the switch or the end stop, unit/s.
+    #[serde(default = "default_search_velocity")]
+    pub search_velocity: f64,
+    /// Speed of the final slow approach (switch edge, index), unit/s.
+    #[serde(default = "default_latch_velocity")]
+    pub latch_velocity: f64,
+    /// Distance to back off after the switch closes or the end stop is hit, units.
+    #[serde(default = "default_backoff")]
+    pub backoff: f64,
+    /// Position value given to the latched point (switch edge, end stop, index), units.
+    #[serde(default)]
+    pub home_offset: f64,
+    /// Travel bound of every search, units: not found within this distance → trip.
+    #[serde(default = "default_max_travel")]
+    pub max_travel: f64,
+    /// Time bound of the whole homing sequence, s.
+    #[serde(default = "default_homing_timeout")]
+    pub timeout_s: f64,
+    /// Duty limit while pushing into an end stop, %.
+    #[serde(default = "default_hard_stop_duty")]
+    pub hard_stop_duty: f64,
+}
+
+impl Default for HomingConfig {
+    fn default() -> Self {
+        Self {
+            method: HomingMethod::None,
+            direction: SearchDirection::Negative,
+            search_velocity: default_search_velocity(),
+            latch_velocity: default_latch_velocity(),
+            backoff: default_backoff(),
+            home_offset: 0.0,
+            max_travel: default_max_travel(),
+            timeout_s: default_homing_timeout(),
+            hard_stop_duty: default_hard_stop_duty(),
+        }
+    }
+}
+
+fn default_search_velocity() -> f64 {
+    20.0
+}
+fn default_latch_velocity() -> f64 {
+    2.0
+}
+fn default_backoff() -> f64 {
+    3.0
+}
+fn default_max_travel() -> f64 {
+    1000.0
+}
+fn default_homing_timeout() -> f64 {
+    120.0
+}
+fn default_hard_stop_duty() -> f64 {
+    25.0
+}
+
+/// `[axis.jog]`: operator jogging.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct JogConfig {
+    /// Selectable step sizes, units.
+    #[serde(default = "default_jog_steps")]
+    pub steps: Vec<f64>,
+    /// Selectable continuous-jog speeds, unit/s.
+    #[serde(default = "default_jog_speeds")]
+    pub speeds: Vec<f64>,
+    /// Speed cap before the axis is homed, unit/s.
+    #[serde(default = "default_unhomed_speed")]
+    pub unhomed_speed: f64,
+    /// Distance of the short step a first key press makes, units.
+    #[serde(default = "default_first_step")]
+    pub first_step: f64,
+    /// A repeat within this long after the first press starts continuous motion, s (must
+    /// bridge the terminal's auto-repeat delay, typically 0.25–0.6 s).
+    #[serde(default = "default_repeat_window")]
+    pub repeat_window_s: f64,
+    /// During continuous jog, with no repeat for this long the axis decelerates to rest, s
+    /// (a few auto-repeat intervals).
+    #[serde(default = "default_deadman")]
+    pub deadman_s: f64,
+}
+
+impl Default for JogConfig {
+    fn default() -> Self {
+        Self {
+            steps: default_jog_steps(),
+            speeds: default_jog_speeds(),
+            unhomed_speed: default_unhomed_speed(),
+            first_step: default_first_step(),
+            repeat_window_s: default_repeat_window(),
+            deadman_s: default_deadman(),
+        }
+    }
+}
+
+fn default_jog_steps() -> Vec<f64> {
+    vec![0.1, 1.0, 10.0]
+}
+fn default_jog_speeds() -> Vec<f64> {
+    vec![5.0, 20.0, 60.0]
+}
+fn default_unhomed_speed() -> f64 {
+    10.0
+}
+fn default_first_step() -> f64 {
+    0.2
+}
+fn default_repeat_window() -> f64 {
+    0.7
+}
+fn default_deadman() -> f64 {
+    0.15
 }
 
 /// `[axis.transport]`: where the axis's board is.
@@ -481,6 +666,33 @@ impl MachineConfig {
                 ),
             );
         }
+        if !(self.machine.capture_seconds.is_finite()
+            && (0.5..=120.0).contains(&self.machine.capture_seconds))
+        {
+            out_push(
+                &mut out,
+                keys(&["machine", "capture_seconds"]),
+                format!("expected 0.5…120 s, found {}", self.machine.capture_seconds),
+            );
+        }
+        for (g, group) in self.machine.homing_order.iter().enumerate() {
+            for name in group {
+                let seen_before =
+                    self.machine.homing_order[..g].iter().flatten().any(|n| n == name)
+                        || group.iter().filter(|n| *n == name).count() > 1;
+                if self.axis(name).is_none() || seen_before {
+                    out_push(
+                        &mut out,
+                        keys(&["machine", "homing_order"]),
+                        if seen_before {
+                            format!("axis {name:?} is listed twice")
+                        } else {
+                            format!("no axis called {name:?}")
+                        },
+                    );
+                }
+            }
+        }
         if self.axes.is_empty() {
             out_push(&mut out, keys(&["machine"]), "expected at least one [[axis]] table".into());
         }
@@ -629,11 +841,109 @@ impl MachineConfig {
                     format!("expected 5…1000 ms, found {}", a.board.watchdog_ms),
                 );
             }
+            let h = &a.homing;
+            for (key, v) in [
+                ("search_velocity", h.search_velocity),
+                ("latch_velocity", h.latch_velocity),
+                ("max_travel", h.max_travel),
+                ("timeout_s", h.timeout_s),
+                ("hard_stop_duty", h.hard_stop_duty),
+            ] {
+                if !(v.is_finite() && v > 0.0) {
+                    out_push(
+                        &mut out,
+                        at(&["homing", key]),
+                        format!("expected a number > 0, found {v}"),
+                    );
+                }
+            }
+            if !(h.backoff.is_finite() && h.backoff >= 0.0) {
+                out_push(
+                    &mut out,
+                    at(&["homing", "backoff"]),
+                    format!("expected a number ≥ 0, found {}", h.backoff),
+                );
+            }
+            if !h.home_offset.is_finite() {
+                out_push(
+                    &mut out,
+                    at(&["homing", "home_offset"]),
+                    "expected a finite number".to_owned(),
+                );
+            }
+            if h.search_velocity > m.max_velocity || h.latch_velocity > h.search_velocity {
+                out_push(
+                    &mut out,
+                    at(&["homing", "search_velocity"]),
+                    format!(
+                        "expected latch_velocity ({}) ≤ search_velocity ({}) ≤ motion.max_velocity ({})",
+                        h.latch_velocity, h.search_velocity, m.max_velocity
+                    ),
+                );
+            }
+            if h.hard_stop_duty > c.max_duty {
+                out_push(
+                    &mut out,
+                    at(&["homing", "hard_stop_duty"]),
+                    format!("expected ≤ controller.max_duty ({})", c.max_duty),
+                );
+            }
+            let j = &a.jog;
+            if j.steps.is_empty() || j.steps.iter().any(|v| !(v.is_finite() && *v > 0.0)) {
+                out_push(
+                    &mut out,
+                    at(&["jog", "steps"]),
+                    "expected a non-empty list of numbers > 0".to_owned(),
+                );
+            }
+            if j.speeds.is_empty()
+                || j.speeds.iter().any(|v| !(v.is_finite() && *v > 0.0 && *v <= m.max_velocity))
+            {
+                out_push(
+                    &mut out,
+                    at(&["jog", "speeds"]),
+                    format!(
+                        "expected a non-empty list of speeds in 0 < v ≤ motion.max_velocity ({})",
+                        m.max_velocity
+                    ),
+                );
+            }
+            for (key, v) in [
+                ("unhomed_speed", j.unhomed_speed),
+                ("first_step", j.first_step),
+                ("repeat_window_s", j.repeat_window_s),
+                ("deadman_s", j.deadman_s),
+            ] {
+                if !(v.is_finite() && v > 0.0) {
+                    out_push(
+                        &mut out,
+                        at(&["jog", key]),
+                        format!("expected a number > 0, found {v}"),
+                    );
+                }
+            }
             if let TransportConfig::Sim(sim) = &a.transport {
                 validate_plant(&sim.plant, &at(&["transport", "plant"]), &mut out);
             }
         }
         out
+    }
+
+    /// Homing groups in order: the configured ones, then every unlisted axis in one last
+    /// group.
+    pub fn homing_groups(&self) -> Vec<Vec<String>> {
+        let mut groups: Vec<Vec<String>> =
+            self.machine.homing_order.iter().filter(|g| !g.is_empty()).cloned().collect();
+        let rest: Vec<String> = self
+            .axes
+            .iter()
+            .map(|a| a.name.clone())
+            .filter(|n| !groups.iter().flatten().any(|g| g == n))
+            .collect();
+        if !rest.is_empty() {
+            groups.push(rest);
+        }
+        groups
     }
 
     /// The axis called `name`.

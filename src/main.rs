@@ -11,6 +11,7 @@ fn main() -> ExitCode {
         Some(Command::Check { file }) => cli::check::run(file),
         Some(Command::Sim(a)) => cli::sim_pty::run(a),
         Some(Command::Move(a)) => cli::move_cmd::run(a),
+        Some(Command::Home(a)) => cli::home_cmd::run(a),
         Some(Command::Linktest(a)) => cli::linktest::run(a),
         Some(Command::Cockpit(m)) => cli_cockpit(m),
         None => cli_cockpit(&cli.machine),

@@ -59,12 +59,19 @@ pub fn open_serial(device: &str, baud: u32) -> Result<BoxStream, TransportError>
         .timeout(std::time::Duration::from_millis(100))
         .open_native_async()
         .map_err(|e| classify(device, &e))?;
+    // Frames queued while nobody listened are stale (a PTY holds about a second of them);
+    // the axis starts from the newest.
+    let _ = serialport::SerialPort::clear(&stream, serialport::ClearBuffer::Input);
     Ok(Box::new(stream))
 }
 
 fn classify(device: &str, e: &tokio_serial::Error) -> TransportError {
     let device = device.to_owned();
     let msg = e.to_string();
+    // serialport reports a held lock as NoDevice; its words are the only way to tell.
+    if msg.contains("exclusive") || msg.contains("busy") || msg.contains("EBUSY") {
+        return TransportError::Busy { device };
+    }
     match e.kind {
         tokio_serial::ErrorKind::NoDevice => TransportError::NotFound { device },
         tokio_serial::ErrorKind::Io(std::io::ErrorKind::NotFound) => {
@@ -72,9 +79,6 @@ fn classify(device: &str, e: &tokio_serial::Error) -> TransportError {
         }
         tokio_serial::ErrorKind::Io(std::io::ErrorKind::PermissionDenied) => {
             TransportError::PermissionDenied { device }
-        }
-        _ if msg.contains("exclusive") || msg.contains("busy") || msg.contains("EBUSY") => {
-            TransportError::Busy { device }
         }
         _ => TransportError::Other { device, message: msg },
     }
@@ -144,18 +148,17 @@ mod tests {
         assert!(err.to_string().contains("/dev/servotty-no-such-port"));
     }
 
-    #[test]
-    fn second_open_of_a_pty_is_refused() {
-        let Ok((a, _b)) = tokio_serial::SerialStream::pair() else { return };
-        let rt = tokio::runtime::Builder::new_current_thread().enable_all().build();
-        let Ok(rt) = rt else { return };
-        rt.block_on(async {
-            use serialport::SerialPort;
-            let Some(path) = a.name() else { return };
-            let first = open_serial(&path, 115_200);
-            assert!(first.is_ok(), "{:?}", first.err());
-            let second = open_serial(&path, 115_200).err().expect("second open fails");
-            assert!(matches!(second, TransportError::Busy { .. }), "{second:?}");
-        });
+    #[tokio::test]
+    async fn second_open_of_a_pty_is_refused() {
+        use serialport::SerialPort;
+        let (_master, slave) = tokio_serial::SerialStream::pair().expect("pty pair");
+        let path = slave.name().expect("slave path");
+        // Release our own handle so that the test's first open is the only one.
+        drop(slave);
+        let first = open_serial(&path, 115_200);
+        assert!(first.is_ok(), "{:?}", first.err());
+        let second = open_serial(&path, 115_200).err().expect("second open fails");
+        assert!(matches!(second, TransportError::Busy { .. }), "{second:?}");
+        assert!(second.to_string().contains("in use by another program"));
     }
 }

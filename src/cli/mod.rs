@@ -13,6 +13,7 @@ use crate::config::{ConfigSource, MachineConfig};
 use crate::engine::PortOverride;
 
 pub mod check;
+pub mod home_cmd;
 pub mod linktest;
 pub mod move_cmd;
 pub mod sim_pty;
@@ -53,6 +54,8 @@ pub enum Command {
     Sim(SimArgs),
     /// Link, enable, move axes with profiles, wait until settled, disable.
     Move(MoveArgs),
+    /// Link and home every axis in the configured order.
+    Home(HomeArgs),
     /// Measure each link: frame rate, host turnaround, bad and missed frames, CPU share.
     Linktest(LinktestArgs),
 }
@@ -98,6 +101,20 @@ pub struct MoveArgs {
     /// Targets in axis units: AXIS=POS, comma-separated or repeated (e.g. --to x=300,y=150).
     #[arg(long, value_name = "AXIS=POS[,AXIS=POS...]", required = true, value_delimiter = ',')]
     pub to: Vec<Target>,
+    /// Home the axes (in the configured order) before moving.
+    #[arg(long)]
+    pub home: bool,
+    /// Print one JSON object instead of a table.
+    #[arg(long)]
+    pub json: bool,
+}
+
+/// `servotty home`.
+#[derive(Debug, Args)]
+pub struct HomeArgs {
+    /// Which machine.
+    #[command(flatten)]
+    pub machine: MachineArgs,
     /// Print one JSON object instead of a table.
     #[arg(long)]
     pub json: bool,
@@ -140,6 +157,50 @@ impl std::str::FromStr for Target {
         }
         Ok(Self { axis: a.trim().to_owned(), position })
     }
+}
+
+/// Loads the configuration, starts the machine with its recorder on a current-thread
+/// runtime, runs `body`, and always shuts the machine down (motors off). Errors before the
+/// machine exists are printed and give [`EXIT_USAGE`].
+pub fn with_machine<F, Fut>(args: &MachineArgs, body: F) -> u8
+where
+    F: FnOnce(crate::engine::MachineHandle) -> Fut,
+    Fut: std::future::Future<Output = u8>,
+{
+    let (cfg, source) = match args.load() {
+        Ok(c) => c,
+        Err(e) => {
+            eprintln!("servotty: {e}");
+            return EXIT_USAGE;
+        }
+    };
+    let rt = match runtime() {
+        Ok(rt) => rt,
+        Err(e) => {
+            eprintln!("servotty: cannot start the runtime: {e}");
+            return EXIT_FAILED;
+        }
+    };
+    rt.block_on(async {
+        let paths = crate::engine::recorder::RecorderPaths::resolve(&cfg, &source);
+        let machine = match crate::engine::Machine::start_with(&cfg, &args.ports, Some(paths)) {
+            Ok(m) => m,
+            Err(e) => {
+                eprintln!("servotty: {e}");
+                return EXIT_USAGE;
+            }
+        };
+        let h = machine.handle();
+        let code = tokio::select! {
+            c = body(h) => c,
+            _ = tokio::signal::ctrl_c() => {
+                eprintln!("servotty: interrupted; motors off");
+                EXIT_FAILED
+            }
+        };
+        machine.shutdown().await;
+        code
+    })
 }
 
 /// A current-thread runtime: one core is plenty for the host loop of several axes (measured,

@@ -5,7 +5,7 @@ use std::time::Duration;
 use serde::Serialize;
 
 use crate::cli::{MoveArgs, Target, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
-use crate::engine::{AxisCommand, AxisState, Machine, MachineHandle};
+use crate::engine::{AxisCommand, AxisState, MachineHandle};
 
 /// How long the boards have to link.
 const LINK_WAIT: Duration = Duration::from_secs(3);
@@ -139,45 +139,28 @@ async fn start_and_wait(m: &MachineHandle, targets: &[Target]) -> Result<MoveOut
 
 /// `servotty move`.
 pub fn run(args: &MoveArgs) -> u8 {
-    let (cfg, _) = match args.machine.load() {
-        Ok(c) => c,
-        Err(e) => {
-            eprintln!("servotty: {e}");
+    if let Ok((cfg, _)) = args.machine.load() {
+        if let Some(t) = args.to.iter().find(|t| cfg.axis(&t.axis).is_none()) {
+            let known: Vec<&str> = cfg.axes.iter().map(|a| a.name.as_str()).collect();
+            eprintln!("servotty: --to {}=…: no such axis (axes: {})", t.axis, known.join(", "));
             return EXIT_USAGE;
         }
-    };
-    let rt = match crate::cli::runtime() {
-        Ok(rt) => rt,
-        Err(e) => {
-            eprintln!("servotty: cannot start the runtime: {e}");
-            return EXIT_FAILED;
+    }
+    let (json, home) = (args.json, args.home);
+    crate::cli::with_machine(&args.machine, |h| async move {
+        if home {
+            if let Err(e) = h.home(None).await {
+                eprintln!("servotty: homing failed: {e}");
+                return EXIT_FAILED;
+            }
         }
-    };
-    rt.block_on(async {
-        let machine = match Machine::start(&cfg, &args.machine.ports) {
-            Ok(m) => m,
+        match run_moves(&h, &args.to).await {
             Err(e) => {
-                eprintln!("servotty: {e}");
-                return EXIT_USAGE;
-            }
-        };
-        let h = machine.handle();
-        let result = tokio::select! {
-            r = run_moves(&h, &args.to) => Some(r),
-            _ = tokio::signal::ctrl_c() => None,
-        };
-        machine.shutdown().await;
-        match result {
-            None => {
-                eprintln!("servotty: interrupted; motors off");
-                EXIT_FAILED
-            }
-            Some(Err(e)) => {
                 eprintln!("servotty: {e}");
                 e.exit_code()
             }
-            Some(Ok(out)) => {
-                if args.json {
+            Ok(out) => {
+                if json {
                     println!("{}", serde_json::to_string(&out).unwrap_or_default());
                 } else {
                     print_table(&out);

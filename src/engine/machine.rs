@@ -7,11 +7,13 @@
 use std::sync::Arc;
 use std::time::Duration;
 
-use tokio::sync::{mpsc, watch};
+use tokio::sync::{broadcast, mpsc, watch};
 use tokio::task::JoinSet;
 
 use crate::config::{MachineConfig, TransportConfig};
-use crate::engine::axis::{AxisHandle, AxisTask, AxisWiring, StopAll};
+use crate::engine::axis::{AxisCommand, AxisHandle, AxisTask, AxisWiring, StopAll};
+use crate::engine::events::{Event, EventKind, EVENT_BUFFER};
+use crate::engine::recorder::RecorderPaths;
 use crate::engine::snapshot::{AxisSnapshot, AxisState};
 use crate::sim::board::{spawn_in_process, SimBoardHandle};
 use crate::transport::Connector;
@@ -69,6 +71,18 @@ pub struct MachineHandle {
     axes: Arc<[AxisHandle]>,
     stop: Arc<watch::Sender<StopAll>>,
     config: Arc<MachineConfig>,
+    events: broadcast::Sender<Event>,
+    recorder: Option<Arc<RecorderPaths>>,
+}
+
+/// Why homing did not finish.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+#[error("{axis}: {reason}")]
+pub struct HomeError {
+    /// The axis that failed.
+    pub axis: String,
+    /// Why.
+    pub reason: String,
 }
 
 impl Machine {
@@ -78,6 +92,18 @@ impl Machine {
     /// # Errors
     /// [`StartError`] for a bad port override.
     pub fn start(cfg: &MachineConfig, ports: &[PortOverride]) -> Result<Self, StartError> {
+        Self::start_with(cfg, ports, None)
+    }
+
+    /// As [`Machine::start`], with a recorder writing the event log and trip captures.
+    ///
+    /// # Errors
+    /// [`StartError`] for a bad port override.
+    pub fn start_with(
+        cfg: &MachineConfig,
+        ports: &[PortOverride],
+        recorder: Option<RecorderPaths>,
+    ) -> Result<Self, StartError> {
         for p in ports {
             if cfg.axis(&p.axis).is_none() {
                 return Err(StartError::UnknownAxis {
@@ -89,6 +115,7 @@ impl Machine {
         let category = cfg.machine.stop_category;
         let (stop_tx, _) = watch::channel(StopAll { latched: false, category });
         let (shutdown_tx, _) = watch::channel(false);
+        let (events_tx, events_rx) = broadcast::channel(EVENT_BUFFER);
         let mut tasks = JoinSet::new();
         let mut handles = Vec::new();
         let mut sims = Vec::new();
@@ -120,15 +147,33 @@ impl Machine {
                 stop_all: stop_tx.subscribe(),
                 shutdown: shutdown_tx.subscribe(),
                 snapshots: snap_tx,
+                events: events_tx.clone(),
+                history_seconds: cfg.machine.capture_seconds,
             };
             tasks.spawn(AxisTask::new(axis.clone(), connector, wiring).run());
             handles.push(AxisHandle::new(&axis.name, cmd_tx, snap_rx));
         }
+        let axes: Arc<[AxisHandle]> = handles.into();
+        let config = Arc::new(cfg.clone());
+        if let Some(paths) = &recorder {
+            tasks.spawn(crate::engine::recorder::run(
+                paths.clone(),
+                events_rx,
+                events_tx.clone(),
+                axes.clone(),
+                config.clone(),
+                shutdown_tx.subscribe(),
+            ));
+        } else {
+            drop(events_rx);
+        }
         Ok(Self {
             handle: MachineHandle {
-                axes: handles.into(),
+                axes,
                 stop: Arc::new(stop_tx),
-                config: Arc::new(cfg.clone()),
+                config,
+                events: events_tx,
+                recorder: recorder.map(Arc::new),
             },
             shutdown: shutdown_tx,
             tasks,
@@ -177,6 +222,67 @@ impl MachineHandle {
     /// Releases stop-all. No axis starts moving because of it.
     pub fn release_stop_all(&self) {
         self.stop.send_modify(|s| s.latched = false);
+    }
+
+    /// Subscribes to machine events (state changes, trips, operator actions, links).
+    pub fn events(&self) -> broadcast::Receiver<Event> {
+        self.events.subscribe()
+    }
+
+    /// Where the event log and captures go, if recording.
+    pub fn recorder_paths(&self) -> Option<&RecorderPaths> {
+        self.recorder.as_deref()
+    }
+
+    /// Adds a machine-wide line to the event stream (e.g. from the cockpit).
+    pub fn note(&self, text: impl Into<String>) {
+        let _ = self.events.send(Event::now(None, None, EventKind::Notice { text: text.into() }));
+    }
+
+    /// Homes `only` these axes (all when None) in the configured order: groups in turn, the
+    /// axes of a group together. Disabled axes are enabled first. Stops at the first failure.
+    ///
+    /// # Errors
+    /// [`HomeError`] naming the axis that failed and why.
+    pub async fn home(&self, only: Option<&[String]>) -> Result<(), HomeError> {
+        for group in self.config.homing_groups() {
+            let group: Vec<&String> =
+                group.iter().filter(|a| only.is_none_or(|o| o.contains(a))).collect();
+            for name in &group {
+                let a = self.axis(name).ok_or_else(|| HomeError {
+                    axis: (*name).clone(),
+                    reason: "no such axis".to_owned(),
+                })?;
+                let err = |e: crate::engine::CommandError| HomeError {
+                    axis: (*name).clone(),
+                    reason: e.to_string(),
+                };
+                if a.snapshot().state == AxisState::Disabled {
+                    a.send(AxisCommand::Enable).await.map_err(err)?;
+                }
+                a.send(AxisCommand::Home).await.map_err(err)?;
+            }
+            for name in &group {
+                let Some(a) = self.axis(name) else { continue };
+                let bound = self.config.axis(name).map_or(120.0, |c| c.homing.timeout_s) + 5.0;
+                let mut rx = a.watch();
+                let done = tokio::time::timeout(
+                    Duration::from_secs_f64(bound),
+                    rx.wait_for(|s| s.state != AxisState::Homing),
+                )
+                .await;
+                let s = a.snapshot();
+                if done.is_err() || !s.homed || s.state != AxisState::Holding {
+                    let reason = match (&s.trip, done.is_err()) {
+                        (Some(t), _) => format!("{}: {}", t.cause, t.detail),
+                        (None, true) => "homing did not finish in time".to_owned(),
+                        (None, false) => format!("homing interrupted ({})", s.state),
+                    };
+                    return Err(HomeError { axis: (*name).clone(), reason });
+                }
+            }
+        }
+        Ok(())
     }
 
     /// Whether stop-all is latched.

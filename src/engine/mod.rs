@@ -6,13 +6,22 @@
 //! - [`supervisor`]: the trip rules, as pure per-frame logic.
 //! - [`snapshot`]: what an axis publishes for the UI and recorders.
 //! - [`link_meter`]: link health and host turnaround measurements.
+//! - [`homing`]: homing sequences as a pure state machine.
+//! - [`history`]: the full-rate history ring kept for trip captures.
+//! - [`events`]: state changes, trips, operator actions, link changes.
+//! - [`recorder`]: writes the event log and trip captures.
 
 pub mod axis;
+pub mod events;
+pub mod history;
+pub mod homing;
 pub mod link_meter;
 pub mod machine;
+pub mod recorder;
 pub mod snapshot;
 pub mod supervisor;
 
 pub use axis::{AxisCommand, AxisHandle, CommandError, Reply, StopAll};
+pub use events::{Event, EventKind};
 pub use machine::{Machine, MachineHandle, PortOverride, StartError};
 pub use snapshot::{AxisSnapshot, AxisState, LinkStats, Trip, TripCause};

@@ -79,6 +79,8 @@ pub enum TripCause {
     SoftLimit,
     /// The board reported a driver fault.
     BoardFault,
+    /// A homing step exceeded its travel or time bound.
+    Homing,
 }
 
 impl TripCause {
@@ -92,6 +94,7 @@ impl TripCause {
             Self::Runaway => "runaway",
             Self::SoftLimit => "soft limit",
             Self::BoardFault => "board fault",
+            Self::Homing => "homing failed",
         }
     }
 }

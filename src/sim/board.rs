@@ -72,6 +72,8 @@ pub struct BoardView {
     pub frames_sent: u64,
     /// Valid host frames received.
     pub commands_received: u64,
+    /// Tick count when the bridge last went from on to off (Stop, or watchdog).
+    pub motor_off_at_tick: Option<u64>,
 }
 
 impl SimBoardHandle {
@@ -172,6 +174,7 @@ impl SimBoard {
         let mut ack_seq: u16 = 0;
         let mut commands_received: u64 = 0;
         let mut frames_sent: u64 = 0;
+        let mut motor_off_at_tick: Option<u64> = None;
         let features = if self.plant_params.home_switch_mm.is_some() {
             features::INDEX_PULSE | features::HOME_INPUT
         } else {
@@ -191,6 +194,7 @@ impl SimBoard {
                     if motor_on && ticks.saturating_sub(last_command_tick) > watchdog_ticks {
                         motor_on = false;
                         watchdog_tripped = true;
+                        motor_off_at_tick = Some(ticks);
                     }
                     self.plant.step(if motor_on { duty } else { 0.0 }, period);
                     let count = self.plant.encoder_count();
@@ -206,6 +210,7 @@ impl SimBoard {
                             ticks,
                             frames_sent,
                             commands_received,
+                            motor_off_at_tick,
                         };
                     }
                     if !streaming || lf.cut {
@@ -308,6 +313,11 @@ impl SimBoard {
                                 ack_seq = s;
                             }
                             HostMessage::Stop { seq: s } => {
+                                if motor_on {
+                                    // Received after tick `ticks`: the next tick already
+                                    // runs with the bridge off.
+                                    motor_off_at_tick = Some(ticks);
+                                }
                                 motor_on = false;
                                 duty = 0.0;
                                 last_command_tick = ticks;

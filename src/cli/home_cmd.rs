@@ -1,0 +1,86 @@
+//! `servotty home`: link and home every axis in the configured order.
+
+use serde::Serialize;
+
+use crate::cli::{HomeArgs, EXIT_FAILED, EXIT_OK};
+use crate::engine::{AxisCommand, MachineHandle};
+
+/// One axis's result, as printed in JSON.
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct AxisHomed {
+    /// Axis name.
+    pub axis: String,
+    /// Whether it is homed.
+    pub homed: bool,
+    /// Position at the end, units.
+    pub position: f64,
+    /// Trip cause and detail, if it tripped.
+    pub trip: Option<String>,
+}
+
+/// The whole result.
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct HomeOutcome {
+    /// True when every axis homed.
+    pub ok: bool,
+    /// Per axis, in configuration order.
+    pub axes: Vec<AxisHomed>,
+    /// Why homing stopped, if it did.
+    pub error: Option<String>,
+}
+
+/// Homes the machine and reports every axis; disables the axes afterwards.
+pub async fn home_all(h: &MachineHandle) -> HomeOutcome {
+    let offline = h.wait_linked(std::time::Duration::from_secs(3)).await;
+    let result = if offline.is_empty() {
+        h.home(None).await.map_err(|e| e.to_string())
+    } else {
+        Err(format!("no link to: {}", offline.join(", ")))
+    };
+    let axes: Vec<AxisHomed> = h
+        .axes()
+        .iter()
+        .map(|a| {
+            let s = a.snapshot();
+            AxisHomed {
+                axis: a.name().to_owned(),
+                homed: s.homed,
+                position: s.position,
+                trip: s.trip.map(|t| format!("{}: {}", t.cause, t.detail)),
+            }
+        })
+        .collect();
+    for a in h.axes() {
+        let _ = a.send(AxisCommand::Disable).await;
+    }
+    HomeOutcome { ok: result.is_ok(), axes, error: result.err() }
+}
+
+/// `servotty home`.
+pub fn run(args: &HomeArgs) -> u8 {
+    let json = args.json;
+    crate::cli::with_machine(&args.machine, |h| async move {
+        let out = home_all(&h).await;
+        if json {
+            println!("{}", serde_json::to_string(&out).unwrap_or_default());
+        } else {
+            for a in &out.axes {
+                println!(
+                    "{:<6} {:<8} {:>10.3}{}",
+                    a.axis,
+                    if a.homed { "homed" } else { "not homed" },
+                    a.position,
+                    a.trip.as_ref().map(|t| format!("  tripped: {t}")).unwrap_or_default()
+                );
+            }
+            if let Some(e) = &out.error {
+                eprintln!("servotty: {e}");
+            }
+        }
+        if out.ok {
+            EXIT_OK
+        } else {
+            EXIT_FAILED
+        }
+    })
+}

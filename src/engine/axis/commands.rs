@@ -1,0 +1,348 @@
+//! Operator commands and stop-all: what each does in each state, and why it is refused.
+
+use std::time::Duration;
+
+use tokio::time::Instant;
+
+use super::{ActiveProfile, AxisCommand, AxisTask, CommandError, JogKeys, Purpose, Reply};
+use crate::control::Trapezoid;
+use crate::engine::events::EventKind;
+use crate::engine::homing::HomingRun;
+use crate::engine::snapshot::{AxisState, TripCause};
+
+/// Continuous jog without homing has no soft limit to run to; it aims this far away and
+/// relies on the operator's key (and the deadman) to stop it.
+const UNHOMED_JOG_REACH: f64 = 1.0e6;
+
+impl AxisTask {
+    /// Handles an operator command. Returns the answer and whether the motor must go off now.
+    pub(super) fn command(&mut self, cmd: AxisCommand) -> (Result<Reply, CommandError>, bool) {
+        let log = cmd.is_operator_action().then(|| cmd.words());
+        let (answer, off) = self.dispatch(cmd);
+        if let Some(action) = log {
+            let (accepted, reason) = match &answer {
+                Ok(_) => (true, None),
+                Err(CommandError::Refused { reason, .. }) => (false, Some(reason.clone())),
+                Err(e) => (false, Some(e.to_string())),
+            };
+            self.event(EventKind::Operator { action, accepted, reason });
+        }
+        (answer, off)
+    }
+
+    fn dispatch(&mut self, cmd: AxisCommand) -> (Result<Reply, CommandError>, bool) {
+        let latched = self.wiring.stop_all.borrow().latched;
+        match cmd {
+            AxisCommand::Enable => match self.state {
+                AxisState::Disabled if latched => {
+                    (Err(self.refuse("stop-all is latched: release it first")), false)
+                }
+                AxisState::Disabled => {
+                    self.profile = None;
+                    self.hold_here();
+                    self.state = AxisState::Holding;
+                    (Ok(Reply::Done), false)
+                }
+                s if s.motor_on() => (Ok(Reply::Done), false),
+                s => (Err(self.refuse(&format!("cannot enable while {s}"))), false),
+            },
+            AxisCommand::Disable => {
+                let was_on = self.state.motor_on();
+                if was_on {
+                    self.state = AxisState::Disabled;
+                    self.profile = None;
+                    self.homing = None;
+                    self.duty_limit = None;
+                    self.jog = None;
+                }
+                (Ok(Reply::Done), was_on)
+            }
+            AxisCommand::MoveTo(goal) => (self.start_move(goal), false),
+            AxisCommand::Stop => {
+                if matches!(self.state, AxisState::Moving | AxisState::Jogging | AxisState::Homing)
+                {
+                    self.homing = None;
+                    self.duty_limit = None;
+                    self.jog = None;
+                    self.begin_stop(Purpose::StopThenHold);
+                }
+                (Ok(Reply::Done), false)
+            }
+            AxisCommand::ClearTrip => (self.clear_trip(), false),
+            AxisCommand::Home => (self.start_homing(), false),
+            AxisCommand::JogStep { distance, speed } => (self.jog_step(distance, speed), false),
+            AxisCommand::JogPulse { direction, speed } => (self.jog_pulse(direction, speed), false),
+            AxisCommand::JogRelease => {
+                if self.state == AxisState::Jogging {
+                    self.jog = None;
+                    self.begin_stop(Purpose::StopThenHold);
+                }
+                (Ok(Reply::Done), false)
+            }
+            AxisCommand::SetController(c) => {
+                self.controller.set_config(&c);
+                self.cfg.controller = c;
+                (Ok(Reply::Done), false)
+            }
+            AxisCommand::LinkReport { reset } => (Ok(Reply::Link(self.meter.report(reset))), false),
+            AxisCommand::History => (Ok(Reply::History(self.history.to_vec())), false),
+        }
+    }
+
+    /// Applies the stop-all signal. Returns true when the motor must go off at once.
+    pub(super) fn apply_stop_all(&mut self) -> bool {
+        let s = *self.wiring.stop_all.borrow_and_update();
+        self.event(EventKind::Operator {
+            action: if s.latched {
+                format!("stop-all (category {})", s.category)
+            } else {
+                "release stop-all".to_owned()
+            },
+            accepted: true,
+            reason: None,
+        });
+        if !s.latched {
+            if self.state == AxisState::Stopped {
+                // Releasing never restarts motion.
+                self.state = if self.link_up { AxisState::Disabled } else { AxisState::Offline };
+            }
+            return false;
+        }
+        self.homing = None;
+        self.duty_limit = None;
+        self.jog = None;
+        match self.state {
+            AxisState::Offline | AxisState::Tripped | AxisState::Stopped => false,
+            AxisState::Disabled => {
+                self.state = AxisState::Stopped;
+                false
+            }
+            _ if s.category == 0 => {
+                self.state = AxisState::Stopped;
+                self.profile = None;
+                true
+            }
+            _ => {
+                self.begin_stop(Purpose::StopThenOff);
+                false
+            }
+        }
+    }
+
+    /// Starts a controlled deceleration at the axis's maximum acceleration.
+    ///
+    /// The ramp starts from the measured position (not the lagging setpoint) at the setpoint's
+    /// velocity: a stop must cover the least ground, and the small step in the P term is the
+    /// price of that.
+    pub(super) fn begin_stop(&mut self, purpose: Purpose) {
+        let v0 = self.setpoint.velocity;
+        let profile = Trapezoid::stop(self.position, v0, self.cfg.motion.max_acceleration);
+        self.profile = Some(ActiveProfile { profile, t0: self.t, purpose });
+        self.goal = profile.goal();
+        self.state = AxisState::Stopping;
+        self.in_position = false;
+    }
+
+    fn require_motion_ready(&self, what: &str) -> Result<(), CommandError> {
+        match self.state {
+            AxisState::Holding | AxisState::Moving => Ok(()),
+            s => Err(self.refuse(&format!("cannot {what} while {s} (enable the axis first)"))),
+        }
+    }
+
+    fn start_move(&mut self, goal: f64) -> Result<Reply, CommandError> {
+        if !self.homed {
+            return Err(self.refuse(
+                "not homed: positions are not trusted yet, so absolute moves are refused \
+                 (home the axis first; jogging works at reduced speed)",
+            ));
+        }
+        let l = &self.cfg.limits;
+        if !goal.is_finite() || goal < l.soft_min || goal > l.soft_max {
+            let (lo, hi, u) = (l.soft_min, l.soft_max, self.cfg.scale.unit.clone());
+            return Err(self
+                .refuse(&format!("target {goal} {u} is outside the soft limits {lo} … {hi} {u}")));
+        }
+        self.require_motion_ready("move")?;
+        let m = &self.cfg.motion;
+        self.plan_move(goal, m.max_velocity);
+        Ok(Reply::Done)
+    }
+
+    /// A profiled move whose completion waits for the in-position dwell.
+    fn plan_move(&mut self, goal: f64, velocity: f64) {
+        let profile = Trapezoid::plan(
+            self.setpoint.position,
+            self.setpoint.velocity,
+            goal,
+            velocity,
+            self.cfg.motion.max_acceleration,
+        );
+        self.profile = Some(ActiveProfile { profile, t0: self.t, purpose: Purpose::Move });
+        self.goal = goal;
+        self.state = AxisState::Moving;
+        self.in_position = false;
+        self.settle_since = None;
+        self.move_t0 = self.t;
+        self.move_peak_fe = 0.0;
+    }
+
+    /// The jog speed allowed now: capped before homing.
+    fn jog_speed(&self, asked: f64) -> f64 {
+        let cap =
+            if self.homed { self.cfg.motion.max_velocity } else { self.cfg.jog.unhomed_speed };
+        asked.abs().min(cap).max(f64::MIN_POSITIVE)
+    }
+
+    /// Where a jog toward `direction` may go: the soft limit once homed (the profile then
+    /// decelerates to stop inside it), anywhere before.
+    fn jog_reach(&self, direction: f64) -> f64 {
+        let l = &self.cfg.limits;
+        match (self.homed, direction > 0.0) {
+            (true, true) => l.soft_max,
+            (true, false) => l.soft_min,
+            (false, true) => self.position + UNHOMED_JOG_REACH,
+            (false, false) => self.position - UNHOMED_JOG_REACH,
+        }
+    }
+
+    fn jog_step(&mut self, distance: f64, speed: f64) -> Result<Reply, CommandError> {
+        if !distance.is_finite() || distance == 0.0 {
+            return Err(self.refuse("a jog step needs a finite, non-zero distance"));
+        }
+        self.require_motion_ready("jog")?;
+        let reach = self.jog_reach(distance.signum());
+        let from = self.goal;
+        let goal = if distance > 0.0 {
+            (from + distance).min(reach)
+        } else {
+            (from + distance).max(reach)
+        };
+        if (goal - from).abs() < f64::EPSILON {
+            return Err(self.refuse("at the soft limit in that direction"));
+        }
+        self.plan_move(goal, self.jog_speed(speed));
+        Ok(Reply::Done)
+    }
+
+    fn jog_pulse(&mut self, direction: i8, speed: f64) -> Result<Reply, CommandError> {
+        if direction == 0 || !speed.is_finite() || speed <= 0.0 {
+            return Err(self.refuse("a jog needs a direction and a speed > 0"));
+        }
+        let now = Instant::now();
+        let window = Duration::from_secs_f64(self.cfg.jog.repeat_window_s);
+        let deadman = Duration::from_secs_f64(self.cfg.jog.deadman_s);
+        let dir = f64::from(direction.signum());
+        match self.jog {
+            // A repeat of the same key: start or keep up continuous motion.
+            Some(j)
+                if j.direction == direction
+                    && (j.deadman.is_some() || now.duration_since(j.first_at) <= window) =>
+            {
+                if j.deadman.is_none() || self.state != AxisState::Jogging {
+                    self.require_jog_ready()?;
+                    let reach = self.jog_reach(dir);
+                    if (reach - self.position) * dir <= 0.0 {
+                        self.jog = None;
+                        return Err(self.refuse("at the soft limit in that direction"));
+                    }
+                    let m = &self.cfg.motion;
+                    let profile = Trapezoid::plan(
+                        self.setpoint.position,
+                        self.setpoint.velocity,
+                        reach,
+                        self.jog_speed(speed),
+                        m.max_acceleration,
+                    );
+                    self.profile =
+                        Some(ActiveProfile { profile, t0: self.t, purpose: Purpose::Jog });
+                    self.goal = reach;
+                    self.state = AxisState::Jogging;
+                    self.in_position = false;
+                }
+                self.jog =
+                    Some(JogKeys { direction, first_at: j.first_at, deadman: Some(now + deadman) });
+                Ok(Reply::Done)
+            }
+            // A first press (or a new direction): a short step, so a tap moves a little and a
+            // held key does not run on through the terminal's auto-repeat delay.
+            _ => {
+                self.require_jog_ready()?;
+                if self.state == AxisState::Jogging {
+                    self.begin_stop(Purpose::StopThenHold);
+                    self.jog = None;
+                    return Ok(Reply::Done);
+                }
+                let step = self.cfg.jog.first_step * dir;
+                let reach = self.jog_reach(dir);
+                let goal = if dir > 0.0 {
+                    (self.goal + step).min(reach)
+                } else {
+                    (self.goal + step).max(reach)
+                };
+                self.jog = Some(JogKeys { direction, first_at: now, deadman: None });
+                if (goal - self.goal).abs() > f64::EPSILON {
+                    self.plan_move(goal, self.jog_speed(speed));
+                }
+                Ok(Reply::Done)
+            }
+        }
+    }
+
+    fn require_jog_ready(&self) -> Result<(), CommandError> {
+        match self.state {
+            AxisState::Holding | AxisState::Moving | AxisState::Jogging | AxisState::Stopping => {
+                Ok(())
+            }
+            s => Err(self.refuse(&format!("cannot jog while {s} (enable the axis first)"))),
+        }
+    }
+
+    fn start_homing(&mut self) -> Result<Reply, CommandError> {
+        match self.state {
+            AxisState::Holding => {}
+            AxisState::Homing => return Ok(Reply::Done),
+            s => return Err(self.refuse(&format!("cannot home while {s} (enable the axis first)"))),
+        }
+        let min_speed =
+            (200.0 / self.cfg.scale.counts_per_unit).max(0.02 * self.cfg.motion.max_velocity);
+        self.homing = Some(HomingRun::new(
+            &self.cfg.homing,
+            &self.cfg.scale.unit,
+            min_speed.min(0.5 * self.cfg.homing.latch_velocity),
+            self.cfg.limits.following_error,
+        ));
+        self.homed = false;
+        self.profile = None;
+        self.state = AxisState::Homing;
+        self.move_t0 = self.t;
+        self.move_peak_fe = 0.0;
+        Ok(Reply::Done)
+    }
+
+    fn clear_trip(&mut self) -> Result<Reply, CommandError> {
+        let Some(trip) = &self.trip else { return Ok(Reply::Done) };
+        if trip.cause == TripCause::LinkLoss && !self.link_up {
+            return Err(self.refuse("the link is still down"));
+        }
+        self.trip = None;
+        self.profile = None;
+        self.goal = self.position;
+        self.setpoint.position = self.position;
+        self.setpoint.velocity = 0.0;
+        self.setpoint.acceleration = 0.0;
+        self.supervisor.reset();
+        self.state = if !self.link_up {
+            AxisState::Offline
+        } else if self.wiring.stop_all.borrow().latched {
+            AxisState::Stopped
+        } else {
+            AxisState::Disabled
+        };
+        Ok(Reply::Done)
+    }
+
+    pub(super) fn refuse(&self, reason: &str) -> CommandError {
+        CommandError::Refused { axis: self.cfg.name.clone(), reason: reason.to_owned() }
+    }
+}

@@ -1,0 +1,285 @@
+//! One telemetry frame: unwrap, advance the setpoint (profile, jog, homing), control,
+//! supervise, record.
+
+use tokio::time::Instant;
+
+use super::{ActiveProfile, AxisTask, Purpose};
+use crate::control::{Setpoint, Trapezoid};
+use crate::engine::events::EventKind;
+use crate::engine::history::Sample;
+use crate::engine::homing::{HomingView, Order};
+use crate::engine::snapshot::{AxisState, Trip, TripCause};
+use crate::engine::supervisor::Observation;
+use crate::protocol::{inputs, status, Telemetry};
+
+/// Time constant of the velocity estimate's low-pass filter, s.
+const VELOCITY_FILTER_S: f64 = 0.01;
+
+impl AxisTask {
+    pub(super) fn on_telemetry(&mut self, tm: &Telemetry, now: Instant) {
+        let tick_s = 1.0 / f64::from(self.cfg.board.tick_hz);
+        let (dt, ticks, delta) = match &self.last {
+            None => (tick_s, 1u32, 0i64),
+            Some(prev) => {
+                let dt = f64::from(tm.board_time_us.wrapping_sub(prev.board_time_us)) * 1e-6;
+                let ticks = u32::from(tm.seq.wrapping_sub(prev.seq));
+                // The wire count is 32 bits and wraps; differences stay right across a wrap.
+                let delta = i64::from(tm.count.wrapping_sub(prev.count));
+                (dt, ticks, delta)
+            }
+        };
+        self.meter.frame(ticks, self.t);
+        self.last = Some(*tm);
+        self.inputs = tm.inputs;
+        let delta = if self.cfg.scale.invert_encoder { -delta } else { delta };
+        self.count += delta;
+        self.t += dt;
+        self.position = self.count as f64 / self.cfg.scale.counts_per_unit + self.offset;
+        if dt > 0.0 {
+            let v_raw = delta as f64 / self.cfg.scale.counts_per_unit / dt;
+            let a = dt / (VELOCITY_FILTER_S + dt);
+            self.velocity += a * (v_raw - self.velocity);
+        }
+
+        self.check_jog_deadman(now);
+        self.step_motion();
+        self.step_homing();
+
+        let applied = self.duty;
+        if self.state.motor_on() {
+            let mut u = self.controller.update(&self.setpoint, self.position, dt);
+            if let Some(lim) = self.duty_limit {
+                u = u.clamp(-lim, lim);
+            }
+            self.duty = u;
+        } else {
+            self.duty = 0.0;
+            self.setpoint = Setpoint { position: self.position, velocity: 0.0, acceleration: 0.0 };
+            self.goal = self.position;
+        }
+        let fe = self.setpoint.position - self.position;
+        if matches!(self.state, AxisState::Moving | AxisState::Homing) {
+            self.move_peak_fe = self.move_peak_fe.max(fe.abs());
+        }
+        let pushing = self.homing.as_ref().is_some_and(|h| h.pushing());
+        let obs = Observation {
+            t: self.t,
+            target: self.setpoint.position,
+            target_velocity: self.setpoint.velocity,
+            position: self.position,
+            velocity: self.velocity,
+            duty: applied,
+            count: self.count,
+            count_delta: delta,
+            ticks,
+            // Pushing into an end stop is the point of hard-stop homing: the following-error
+            // and stall rules would fire on purpose, so only the encoder rule stays on.
+            motor_on: self.state.motor_on() && !pushing,
+            limits_active: self.homed && self.state != AxisState::Homing,
+        };
+        if let Some(f) = self.supervisor.observe(&obs) {
+            self.duty = applied;
+            self.latch_trip(f.cause, f.detail);
+            self.duty = 0.0;
+        } else if self.state.motor_on() && tm.status & status::DRIVER_FAULT != 0 {
+            self.latch_trip(TripCause::BoardFault, "the board reports a driver fault".to_owned());
+        }
+        self.history.push(Sample {
+            t: self.t,
+            target: self.setpoint.position,
+            position: self.position,
+            following_error: self.setpoint.position - self.position,
+            duty: self.duty,
+            velocity: self.velocity,
+            state: self.state,
+        });
+    }
+
+    /// Ends continuous jog when the operator's key repeats stop arriving.
+    fn check_jog_deadman(&mut self, now: Instant) {
+        let Some(j) = self.jog else { return };
+        if self.state != AxisState::Jogging {
+            // A first-press step finishing, or anything else, ends the key session once the
+            // repeat window has passed.
+            if j.deadman.is_none()
+                && now.saturating_duration_since(j.first_at).as_secs_f64()
+                    > self.cfg.jog.repeat_window_s
+            {
+                self.jog = None;
+            }
+            return;
+        }
+        if j.deadman.is_some_and(|d| now >= d) {
+            self.jog = None;
+            self.begin_stop(Purpose::StopThenHold);
+        }
+    }
+
+    /// Advances the setpoint along the active profile and runs the move's state changes.
+    fn step_motion(&mut self) {
+        if !self.state.motor_on() {
+            return;
+        }
+        if let Some(p) = self.profile {
+            let tp = self.t - p.t0;
+            self.setpoint = p.profile.sample(tp);
+            if tp >= p.profile.duration() {
+                self.profile = None;
+                match p.purpose {
+                    Purpose::Move => self.settle_since = None,
+                    Purpose::Jog | Purpose::StopThenHold => {
+                        self.goal = p.profile.goal();
+                        self.state = AxisState::Holding;
+                        self.jog = None;
+                    }
+                    Purpose::Homing => {}
+                    Purpose::StopThenOff => {
+                        self.state = AxisState::Stopped;
+                        self.supervisor.reset();
+                    }
+                }
+            }
+        } else {
+            self.setpoint = Setpoint { position: self.goal, velocity: 0.0, acceleration: 0.0 };
+        }
+        if self.state == AxisState::Moving && self.profile.is_none() {
+            let inside = (self.goal - self.position).abs() <= self.cfg.motion.in_position_band;
+            match (inside, self.settle_since) {
+                (false, _) => self.settle_since = None,
+                (true, None) => self.settle_since = Some(self.t),
+                (true, Some(since)) => {
+                    if self.t - since >= self.cfg.motion.in_position_dwell_s {
+                        self.state = AxisState::Holding;
+                        self.in_position = true;
+                        self.moves_done += 1;
+                        self.move_settle_s = Some(self.t - self.move_t0);
+                    }
+                }
+            }
+        }
+    }
+
+    /// Feeds the homing run and carries out its orders.
+    fn step_homing(&mut self) {
+        if self.state != AxisState::Homing {
+            return;
+        }
+        let Some(run) = self.homing.as_mut() else { return };
+        let view = HomingView {
+            t: self.t,
+            position: self.position,
+            count: self.count,
+            velocity: self.velocity,
+            following_error: self.setpoint.position - self.position,
+            switch: self.inputs & inputs::HOME != 0,
+            index: self.inputs & inputs::INDEX != 0,
+            profile_done: self.profile.is_none(),
+        };
+        let orders = run.step(&view);
+        for order in orders {
+            match order {
+                Order::MoveTo { goal, velocity } => {
+                    let m = &self.cfg.motion;
+                    let profile = Trapezoid::plan(
+                        self.setpoint.position,
+                        self.setpoint.velocity,
+                        goal,
+                        velocity.min(m.max_velocity),
+                        m.max_acceleration,
+                    );
+                    self.profile =
+                        Some(ActiveProfile { profile, t0: self.t, purpose: Purpose::Homing });
+                    self.goal = goal;
+                }
+                Order::Stop => {
+                    let profile = Trapezoid::stop(
+                        self.setpoint.position,
+                        self.setpoint.velocity,
+                        self.cfg.motion.max_acceleration,
+                    );
+                    self.profile =
+                        Some(ActiveProfile { profile, t0: self.t, purpose: Purpose::Homing });
+                    self.goal = profile.goal();
+                }
+                Order::HoldHere => {
+                    self.profile = None;
+                    self.hold_here();
+                }
+                Order::SetHome { count, value } => {
+                    let new_offset = value - count as f64 / self.cfg.scale.counts_per_unit;
+                    let shift = new_offset - self.offset;
+                    self.offset = new_offset;
+                    self.position += shift;
+                    self.setpoint.position += shift;
+                    self.goal += shift;
+                    self.profile = None;
+                    // The measurement jumped with the frame of reference; restart the
+                    // controller's memory there so the derivative does not see a step.
+                    self.controller.reset(self.position);
+                }
+                Order::LimitDuty(lim) => self.duty_limit = lim,
+                Order::Done => {
+                    self.homing = None;
+                    self.duty_limit = None;
+                    self.homed = true;
+                    self.state = AxisState::Holding;
+                    self.profile = None;
+                    self.hold_here_at_goal();
+                    let method = format!("{:?}", self.cfg.homing.method).to_lowercase();
+                    if self.cfg.homing.method == crate::config::HomingMethod::None {
+                        self.event(EventKind::Notice {
+                            text: "homing method is none: the present position was declared \
+                                   home and nothing was checked"
+                                .to_owned(),
+                        });
+                    }
+                    self.event(EventKind::Homed { position: self.position, method });
+                }
+                Order::Fail(why) => {
+                    self.homing = None;
+                    self.duty_limit = None;
+                    self.latch_trip(TripCause::Homing, why);
+                    return;
+                }
+            }
+        }
+    }
+
+    /// Target = where the axis is now, at rest; controller memory restarted.
+    pub(super) fn hold_here(&mut self) {
+        self.goal = self.position;
+        self.setpoint = Setpoint { position: self.position, velocity: 0.0, acceleration: 0.0 };
+        self.controller.reset(self.position);
+        self.supervisor.reset();
+    }
+
+    /// Hold at the present setpoint (end of a profile).
+    fn hold_here_at_goal(&mut self) {
+        self.goal = self.setpoint.position;
+        self.setpoint.velocity = 0.0;
+        self.setpoint.acceleration = 0.0;
+    }
+
+    pub(super) fn latch_trip(&mut self, cause: TripCause, detail: String) {
+        tracing::warn!(axis = %self.cfg.name, %cause, %detail, "trip");
+        let trip = Trip {
+            cause,
+            at_s: self.t,
+            target: self.setpoint.position,
+            position: self.position,
+            following_error: self.setpoint.position - self.position,
+            duty: self.duty,
+            velocity: self.velocity,
+            detail,
+        };
+        self.trip = Some(trip.clone());
+        self.state = AxisState::Tripped;
+        self.profile = None;
+        self.homing = None;
+        self.duty_limit = None;
+        self.jog = None;
+        self.duty = 0.0;
+        self.supervisor.reset();
+        self.event(EventKind::Trip { trip });
+    }
+}

@@ -1,0 +1,180 @@
+//! The axis task's vocabulary: commands, replies, errors, and the cloneable handle that sends
+//! them.
+
+use std::sync::Arc;
+
+use tokio::sync::{mpsc, oneshot, watch};
+
+use crate::config::ControllerConfig;
+use crate::engine::history::Sample;
+use crate::engine::link_meter::LinkReport;
+use crate::engine::snapshot::AxisSnapshot;
+
+/// What the operator (or a headless command) asks of one axis.
+#[derive(Debug, Clone, PartialEq)]
+pub enum AxisCommand {
+    /// Motor on, holding the present position.
+    Enable,
+    /// Motor off.
+    Disable,
+    /// Profiled move to an absolute position, units (refused before homing).
+    MoveTo(f64),
+    /// Decelerate to rest and hold (the motor stays on).
+    Stop,
+    /// Clear a latched trip, if its cause has gone; the axis comes back disabled.
+    ClearTrip,
+    /// Run the axis's homing sequence (the axis must be enabled).
+    Home,
+    /// Move one step (sign of `distance` = direction).
+    JogStep {
+        /// Units.
+        distance: f64,
+        /// Unit/s (capped before homing).
+        speed: f64,
+    },
+    /// A jog key event (first press or auto-repeat) in `direction` (±1) at `speed` unit/s.
+    /// The first press moves a short step; repeats that follow within the repeat window
+    /// start continuous motion, which stops when repeats stop for the deadman time.
+    JogPulse {
+        /// −1 or +1.
+        direction: i8,
+        /// Unit/s (capped before homing).
+        speed: f64,
+    },
+    /// The jog key was released (terminals that report releases).
+    JogRelease,
+    /// Replace the controller parameters without a bump.
+    SetController(ControllerConfig),
+    /// Link measurements since the last report (optionally starting afresh).
+    LinkReport {
+        /// Start a new measurement window after reporting.
+        reset: bool,
+    },
+    /// A copy of the full-rate history ring.
+    History,
+}
+
+impl AxisCommand {
+    /// Whether this is an operator action worth an event-log line.
+    pub fn is_operator_action(&self) -> bool {
+        !matches!(self, Self::LinkReport { .. } | Self::History | Self::JogPulse { .. })
+    }
+
+    /// The command in words, for the event log.
+    pub fn words(&self) -> String {
+        match self {
+            Self::Enable => "enable".into(),
+            Self::Disable => "disable".into(),
+            Self::MoveTo(p) => format!("move to {p}"),
+            Self::Stop => "stop".into(),
+            Self::ClearTrip => "clear trip".into(),
+            Self::Home => "home".into(),
+            Self::JogStep { distance, .. } => format!("jog step {distance:+}"),
+            Self::JogPulse { direction, speed } => format!("jog {direction:+} at {speed}"),
+            Self::JogRelease => "jog release".into(),
+            Self::SetController(_) => "set controller".into(),
+            Self::LinkReport { .. } => "link report".into(),
+            Self::History => "history".into(),
+        }
+    }
+}
+
+/// A successful answer.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Reply {
+    /// Done (or started, for motion).
+    Done,
+    /// Link measurements.
+    Link(LinkReport),
+    /// History rows, oldest first.
+    History(Vec<Sample>),
+}
+
+/// Why a command was refused.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum CommandError {
+    /// The axis cannot do it now; the text says why.
+    #[error("{axis}: {reason}")]
+    Refused {
+        /// Axis name.
+        axis: String,
+        /// Why, in words.
+        reason: String,
+    },
+    /// The axis task has ended.
+    #[error("{0}: axis task has stopped")]
+    Gone(String),
+}
+
+/// A command with its reply slot.
+#[derive(Debug)]
+pub struct Request {
+    /// The command.
+    pub command: AxisCommand,
+    /// Where the answer goes.
+    pub reply: oneshot::Sender<Result<Reply, CommandError>>,
+}
+
+/// The stop-all signal shared by every axis.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub struct StopAll {
+    /// Latched until released.
+    pub latched: bool,
+    /// IEC 60204-1 stop category (0 or 1).
+    pub category: u8,
+}
+
+/// A cloneable way to talk to one axis task.
+#[derive(Debug, Clone)]
+pub struct AxisHandle {
+    name: Arc<str>,
+    commands: mpsc::Sender<Request>,
+    snapshots: watch::Receiver<AxisSnapshot>,
+}
+
+impl AxisHandle {
+    /// Wires a handle to a task's channels.
+    pub fn new(
+        name: &str,
+        commands: mpsc::Sender<Request>,
+        snapshots: watch::Receiver<AxisSnapshot>,
+    ) -> Self {
+        Self { name: Arc::from(name), commands, snapshots }
+    }
+
+    /// The axis name.
+    pub fn name(&self) -> &str {
+        &self.name
+    }
+
+    /// Sends a command and waits for the axis's answer (not for the motion to finish).
+    ///
+    /// # Errors
+    /// [`CommandError`] when refused or when the task has ended.
+    pub async fn send(&self, command: AxisCommand) -> Result<Reply, CommandError> {
+        let (tx, rx) = oneshot::channel();
+        self.commands
+            .send(Request { command, reply: tx })
+            .await
+            .map_err(|_| CommandError::Gone(self.name.to_string()))?;
+        rx.await.map_err(|_| CommandError::Gone(self.name.to_string()))?
+    }
+
+    /// Queues a command without waiting for the answer; for key handlers that must never
+    /// wait. Returns false (and drops the command) only if the queue is full or the task has
+    /// ended — the caller should say so.
+    pub fn try_send(&self, command: AxisCommand) -> bool {
+        let (tx, _rx) = oneshot::channel();
+        self.commands.try_send(Request { command, reply: tx }).is_ok()
+    }
+
+    /// The latest snapshot.
+    pub fn snapshot(&self) -> AxisSnapshot {
+        self.snapshots.borrow().clone()
+    }
+
+    /// A receiver for waiting on changes.
+    pub fn watch(&self) -> watch::Receiver<AxisSnapshot> {
+        self.snapshots.clone()
+    }
+}

@@ -1,0 +1,93 @@
+//! Full-rate telemetry history of one axis: the last N seconds of every frame, kept so that a
+//! trip capture can show what led up to the trip.
+//!
+//! A fixed-capacity ring filled in the frame handler (one copy of a small `Copy` struct, no
+//! allocation after start-up); copied out only when a capture is asked for.
+
+use std::collections::VecDeque;
+
+use serde::Serialize;
+
+use crate::engine::snapshot::AxisState;
+
+/// One frame's values.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Sample {
+    /// Board time, s.
+    pub t: f64,
+    /// Profile setpoint, units.
+    pub target: f64,
+    /// Measured position, units.
+    pub position: f64,
+    /// target − position, units.
+    pub following_error: f64,
+    /// Duty commanded for the next interval, %.
+    pub duty: f64,
+    /// Estimated velocity, unit/s.
+    pub velocity: f64,
+    /// State after the frame.
+    pub state: AxisState,
+}
+
+/// The ring.
+#[derive(Debug, Clone)]
+pub struct History {
+    rows: VecDeque<Sample>,
+    capacity: usize,
+}
+
+impl History {
+    /// A ring holding `seconds` at `tick_hz`.
+    pub fn new(seconds: f64, tick_hz: u16) -> Self {
+        let capacity = ((seconds * f64::from(tick_hz)).ceil() as usize).max(1);
+        Self { rows: VecDeque::with_capacity(capacity), capacity }
+    }
+
+    /// Adds a frame, dropping the oldest when full.
+    pub fn push(&mut self, s: Sample) {
+        if self.rows.len() == self.capacity {
+            self.rows.pop_front();
+        }
+        self.rows.push_back(s);
+    }
+
+    /// A copy of the rows, oldest first.
+    pub fn to_vec(&self) -> Vec<Sample> {
+        self.rows.iter().copied().collect()
+    }
+
+    /// Rows held.
+    pub fn len(&self) -> usize {
+        self.rows.len()
+    }
+
+    /// True when empty.
+    pub fn is_empty(&self) -> bool {
+        self.rows.is_empty()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn keeps_the_newest_rows() {
+        let mut h = History::new(0.005, 1000);
+        for k in 0..8 {
+            h.push(Sample {
+                t: f64::from(k),
+                target: 0.0,
+                position: 0.0,
+                following_error: 0.0,
+                duty: 0.0,
+                velocity: 0.0,
+                state: AxisState::Holding,
+            });
+        }
+        let v = h.to_vec();
+        assert_eq!(v.len(), 5);
+        assert_eq!(v[0].t, 3.0);
+        assert_eq!(v[4].t, 7.0);
+    }
+}

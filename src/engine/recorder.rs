@@ -1,0 +1,251 @@
+//! The recorder: writes every event to the event log (JSON lines) and, on every trip, a
+//! capture of all axes' recent full-rate history (CSV with a commented header).
+//!
+//! It runs as its own task, fed by the event broadcast, so file I/O never touches an axis
+//! task. Captures are written atomically (temporary file in the same folder, then rename):
+//! a reader never sees half a file.
+
+use std::fmt::Write as _;
+use std::io::Write as _;
+use std::path::{Path, PathBuf};
+use std::sync::Arc;
+use std::time::Duration;
+
+use tokio::io::AsyncWriteExt;
+use tokio::sync::{broadcast, watch};
+
+use crate::config::{ConfigSource, MachineConfig};
+use crate::engine::axis::{AxisCommand, AxisHandle, Reply};
+use crate::engine::events::{rfc3339_utc, Event, EventKind};
+use crate::engine::history::Sample;
+use crate::engine::snapshot::Trip;
+
+/// History recorded after a trip before the capture is taken, so the capture shows the
+/// trip and what the axis did right after it.
+const AFTER_TRIP: Duration = Duration::from_millis(200);
+
+/// Where the recorder writes.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct RecorderPaths {
+    /// Folder for captures.
+    pub captures_dir: PathBuf,
+    /// Event log file.
+    pub event_log: PathBuf,
+}
+
+impl RecorderPaths {
+    /// Paths from the configuration: relative ones are relative to the configuration file's
+    /// folder; missing ones (and all of the built-in demo's) go to the state folder.
+    pub fn resolve(cfg: &MachineConfig, source: &ConfigSource) -> Self {
+        let base = match source {
+            ConfigSource::File(p) => p.parent().map(Path::to_path_buf),
+            ConfigSource::BuiltInDemo => None,
+        };
+        let state = state_dir();
+        let pick = |p: &Option<PathBuf>, default: &str| match (p, &base) {
+            (Some(p), _) if p.is_absolute() => p.clone(),
+            (Some(p), Some(b)) => b.join(p),
+            (Some(p), None) => state.join(p),
+            (None, _) => state.join(default),
+        };
+        Self {
+            captures_dir: pick(&cfg.machine.captures_dir, "captures"),
+            event_log: pick(&cfg.machine.event_log, "events.jsonl"),
+        }
+    }
+}
+
+/// `$XDG_STATE_HOME/servotty`, else `~/.local/state/servotty`, else `./servotty-state`.
+pub fn state_dir() -> PathBuf {
+    if let Some(x) = std::env::var_os("XDG_STATE_HOME").filter(|v| !v.is_empty()) {
+        return PathBuf::from(x).join("servotty");
+    }
+    if let Some(h) = std::env::var_os("HOME").filter(|v| !v.is_empty()) {
+        return PathBuf::from(h).join(".local/state/servotty");
+    }
+    PathBuf::from("servotty-state")
+}
+
+/// Runs until shutdown (or until the event channel closes).
+pub async fn run(
+    paths: RecorderPaths,
+    mut events: broadcast::Receiver<Event>,
+    emit: broadcast::Sender<Event>,
+    axes: Arc<[AxisHandle]>,
+    cfg: Arc<MachineConfig>,
+    mut shutdown: watch::Receiver<bool>,
+) {
+    let mut log = open_log(&paths.event_log).await;
+    loop {
+        let ev = tokio::select! {
+            biased;
+            r = events.recv() => match r {
+                Ok(ev) => ev,
+                Err(broadcast::error::RecvError::Lagged(n)) => {
+                    tracing::warn!(missed = n, "event log fell behind");
+                    Event::now(None, None, EventKind::Notice {
+                        text: format!("event log fell behind: {n} events not recorded"),
+                    })
+                }
+                Err(broadcast::error::RecvError::Closed) => return,
+            },
+            _ = shutdown.changed() => {
+                // Drain what is already queued so the log ends complete.
+                while let Ok(ev) = events.try_recv() {
+                    write_event(&mut log, &ev).await;
+                }
+                return;
+            }
+        };
+        write_event(&mut log, &ev).await;
+        if let EventKind::Trip { trip } = &ev.kind {
+            let axis = ev.axis.as_deref().unwrap_or("?").to_owned();
+            tokio::time::sleep(AFTER_TRIP).await;
+            match capture(&paths.captures_dir, &axis, trip, &axes, &cfg).await {
+                Ok(path) => {
+                    let _ = emit.send(Event::now(
+                        ev.axis.clone(),
+                        None,
+                        EventKind::Capture { path: path.display().to_string() },
+                    ));
+                }
+                Err(e) => {
+                    tracing::error!(error = %e, "capture not written");
+                    let _ = emit.send(Event::now(
+                        ev.axis.clone(),
+                        None,
+                        EventKind::Notice { text: format!("trip capture not written: {e}") },
+                    ));
+                }
+            }
+        }
+    }
+}
+
+async fn open_log(path: &Path) -> Option<tokio::fs::File> {
+    if let Some(dir) = path.parent() {
+        let _ = tokio::fs::create_dir_all(dir).await;
+    }
+    match tokio::fs::OpenOptions::new().create(true).append(true).open(path).await {
+        Ok(f) => Some(f),
+        Err(e) => {
+            tracing::error!(path = %path.display(), error = %e, "cannot open the event log");
+            None
+        }
+    }
+}
+
+async fn write_event(log: &mut Option<tokio::fs::File>, ev: &Event) {
+    let Some(f) = log.as_mut() else { return };
+    let Ok(mut line) = serde_json::to_string(ev) else { return };
+    line.push('\n');
+    if f.write_all(line.as_bytes()).await.is_err() || f.flush().await.is_err() {
+        tracing::error!("event log write failed; event logging stops");
+        *log = None;
+    }
+}
+
+/// Collects every axis's history and writes one capture file. Returns its path.
+///
+/// # Errors
+/// I/O errors creating the folder or writing the file.
+pub async fn capture(
+    dir: &Path,
+    tripped_axis: &str,
+    trip: &Trip,
+    axes: &[AxisHandle],
+    cfg: &MachineConfig,
+) -> std::io::Result<PathBuf> {
+    let mut rows: Vec<(String, Vec<Sample>)> = Vec::new();
+    for a in axes {
+        if let Ok(Reply::History(h)) = a.send(AxisCommand::History).await {
+            rows.push((a.name().to_owned(), h));
+        }
+    }
+    let text = capture_text(tripped_axis, trip, &rows, cfg);
+    let stamp = rfc3339_utc(std::time::SystemTime::now()).replace([':', '.'], "-");
+    let name = format!("capture-{stamp}-{tripped_axis}-{:?}.csv", trip.cause).to_lowercase();
+    let dir = dir.to_path_buf();
+    tokio::task::spawn_blocking(move || write_atomically(&dir, &name, text.as_bytes()))
+        .await
+        .map_err(std::io::Error::other)?
+}
+
+/// Writes `bytes` to `dir/name` via a temporary file and a rename.
+///
+/// # Errors
+/// I/O errors.
+pub fn write_atomically(dir: &Path, name: &str, bytes: &[u8]) -> std::io::Result<PathBuf> {
+    std::fs::create_dir_all(dir)?;
+    let mut tmp = tempfile::Builder::new().prefix(".servotty-").suffix(".tmp").tempfile_in(dir)?;
+    tmp.write_all(bytes)?;
+    tmp.as_file().sync_all()?;
+    let path = dir.join(name);
+    tmp.persist(&path).map_err(|e| e.error)?;
+    Ok(path)
+}
+
+/// The capture file's text: `#` metadata lines, a header row, then rows of every axis.
+pub fn capture_text(
+    tripped_axis: &str,
+    trip: &Trip,
+    rows: &[(String, Vec<Sample>)],
+    cfg: &MachineConfig,
+) -> String {
+    let mut s = String::new();
+    let _ = writeln!(s, "# servotty trip capture");
+    let _ = writeln!(s, "# software: servotty {}", env!("CARGO_PKG_VERSION"));
+    let _ = writeln!(s, "# written: {}", rfc3339_utc(std::time::SystemTime::now()));
+    let _ = writeln!(s, "# machine: {}", cfg.machine.name.replace('\n', " "));
+    let _ = writeln!(s, "# trip axis: {tripped_axis}");
+    let _ = writeln!(s, "# trip cause: {}", trip.cause);
+    let _ = writeln!(s, "# trip board time s: {:.6}", trip.at_s);
+    let _ = writeln!(
+        s,
+        "# trip values: target={:.6} position={:.6} following_error={:.6} duty={:.3} velocity={:.6}",
+        trip.target, trip.position, trip.following_error, trip.duty, trip.velocity
+    );
+    let _ = writeln!(s, "# trip detail: {}", trip.detail.replace('\n', " "));
+    for a in &cfg.axes {
+        let c = &a.controller;
+        let l = &a.limits;
+        let _ = writeln!(
+            s,
+            "# axis {}: unit={} counts_per_unit={} mode={:?} kp={} ki={} kd={} ff_velocity={} \
+             max_duty={} max_velocity={} max_acceleration={} following_error={} \
+             following_error_per_velocity={} soft_min={} soft_max={}",
+            a.name,
+            a.scale.unit,
+            a.scale.counts_per_unit,
+            c.mode,
+            c.kp,
+            c.ki,
+            c.kd,
+            c.ff_velocity,
+            c.max_duty,
+            a.motion.max_velocity,
+            a.motion.max_acceleration,
+            l.following_error,
+            l.following_error_per_velocity,
+            l.soft_min,
+            l.soft_max
+        );
+    }
+    let _ = writeln!(s, "axis,t,target,position,following_error,duty,velocity,state");
+    for (axis, samples) in rows {
+        for r in samples {
+            let _ = writeln!(
+                s,
+                "{axis},{:.6},{:.6},{:.6},{:.6},{:.3},{:.6},{}",
+                r.t,
+                r.target,
+                r.position,
+                r.following_error,
+                r.duty,
+                r.velocity,
+                r.state.word()
+            );
+        }
+    }
+    s
+}

@@ -1,0 +1,123 @@
+//! The real binary on good and bad input: exit codes and messages a person can act on.
+
+use std::path::PathBuf;
+use std::process::{Command, Output};
+
+fn servotty(args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_servotty")).args(args).output().expect("runs")
+}
+
+fn repo(p: &str) -> String {
+    PathBuf::from(env!("CARGO_MANIFEST_DIR")).join(p).display().to_string()
+}
+
+fn text(b: &[u8]) -> String {
+    String::from_utf8_lossy(b).into_owned()
+}
+
+#[test]
+fn every_shipped_config_checks() {
+    for f in
+        ["configs/demo-greenhouse.toml", "configs/bench-8-axes.toml", "configs/one-real-axis.toml"]
+    {
+        let out = servotty(&["check", &repo(f)]);
+        assert_eq!(out.status.code(), Some(0), "{f}: {}", text(&out.stderr));
+        assert!(text(&out.stdout).contains("axis"), "{f}");
+    }
+}
+
+#[test]
+fn demo_check_lists_each_axis() {
+    let out = servotty(&["check", &repo("configs/demo-greenhouse.toml")]);
+    let s = text(&out.stdout);
+    for name in ["x ", "y ", "z "] {
+        assert!(s.contains(&format!("axis {name}")), "{s}");
+    }
+}
+
+fn write_tmp(name: &str, body: &str) -> (tempfile::TempDir, String) {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let p = dir.path().join(name);
+    std::fs::write(&p, body).expect("write");
+    let s = p.display().to_string();
+    (dir, s)
+}
+
+fn demo_text() -> String {
+    std::fs::read_to_string(repo("configs/demo-greenhouse.toml")).expect("demo")
+}
+
+#[test]
+fn unknown_key_names_file_line_column_and_key() {
+    let body = demo_text().replacen("stall_timeout_s = 0.5", "stall_timout_s = 0.5", 1);
+    let line = body.lines().position(|l| l.starts_with("stall_timout_s")).expect("line") + 1;
+    let (_d, path) = write_tmp("typo.toml", &body);
+    let out = servotty(&["check", &path]);
+    assert_eq!(out.status.code(), Some(2));
+    let err = text(&out.stderr);
+    assert!(err.contains(&format!("{path}:{line}:1")), "{err}");
+    assert!(err.contains("stall_timout_s"), "{err}");
+    assert!(err.contains("expected"), "{err}");
+}
+
+#[test]
+fn wrong_type_is_located() {
+    let body = demo_text().replacen("max_velocity = 180.0", "max_velocity = \"fast\"", 1);
+    let line = body.lines().position(|l| l.contains("\"fast\"")).expect("line") + 1;
+    let (_d, path) = write_tmp("type.toml", &body);
+    let out = servotty(&["check", &path]);
+    assert_eq!(out.status.code(), Some(2));
+    let err = text(&out.stderr);
+    assert!(err.contains(&format!("{path}:{line}:")), "{err}");
+}
+
+#[test]
+fn inverted_soft_limits_are_located_at_the_key() {
+    let body = demo_text().replacen("soft_max = 600.0", "soft_max = -10.0", 1);
+    let line = body.lines().position(|l| l.starts_with("soft_max = -10.0")).expect("line") + 1;
+    let (_d, path) = write_tmp("limits.toml", &body);
+    let out = servotty(&["check", &path]);
+    assert_eq!(out.status.code(), Some(2));
+    let err = text(&out.stderr);
+    assert!(err.contains(&format!("{path}:{line}:1")), "{err}");
+    assert!(err.contains("\"y\"") && err.contains("limits.soft_max"), "{err}");
+}
+
+#[test]
+fn missing_file_and_garbage_are_errors_not_panics() {
+    let out = servotty(&["check", "/nonexistent/servotty.toml"]);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(text(&out.stderr).contains("/nonexistent/servotty.toml"));
+    let (_d, path) = write_tmp("garbage.toml", "\u{0}\u{1}[[[not toml");
+    let out = servotty(&["check", &path]);
+    assert_eq!(out.status.code(), Some(2), "{}", text(&out.stderr));
+}
+
+#[test]
+fn move_to_unknown_axis_is_a_usage_error() {
+    let out = servotty(&["move", "--to", "w=10"]);
+    assert_eq!(out.status.code(), Some(2), "{}", text(&out.stderr));
+    assert!(text(&out.stderr).contains("w"), "{}", text(&out.stderr));
+    let out = servotty(&["move", "--to", "x=ten"]);
+    assert_eq!(out.status.code(), Some(2));
+}
+
+#[test]
+fn port_override_for_unknown_axis_is_a_usage_error() {
+    let out = servotty(&["linktest", "--port", "q=/dev/null", "--seconds", "1"]);
+    assert_eq!(out.status.code(), Some(2), "{}", text(&out.stderr));
+    assert!(text(&out.stderr).contains("no axis called"), "{}", text(&out.stderr));
+}
+
+#[test]
+fn move_on_the_simulated_demo_prints_json() {
+    let out = servotty(&["move", "--to", "x=50,z=-20", "--json"]);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).expect("json");
+    assert_eq!(v["ok"], true);
+    let axes = v["axes"].as_array().expect("axes");
+    assert_eq!(axes.len(), 2);
+    assert_eq!(axes[0]["axis"], "x");
+    assert!((axes[0]["final"].as_f64().expect("final") - 50.0).abs() <= 0.1);
+    assert!(axes[0]["trip"].is_null());
+}
