@@ -216,6 +216,7 @@ impl SimBoard {
                     if !streaming || lf.cut {
                         continue;
                     }
+                    let this_seq = seq;
                     seq = seq.wrapping_add(1);
                     if rng.chance(lf.drop_probability) {
                         continue;
@@ -236,7 +237,7 @@ impl SimBoard {
                     }
                     let board_time_us = (ticks * 1_000_000 / u64::from(tick_hz)) as u32;
                     let frame = BoardMessage::Telemetry(Telemetry {
-                        seq,
+                        seq: this_seq,
                         board_time_us,
                         // The wire count is 32 bits and wraps; the host unwraps it.
                         count: count as i32,
@@ -282,6 +283,12 @@ impl SimBoard {
                         commands_received += 1;
                         match msg {
                             HostMessage::Hello => {
+                                // Contract: Hello switches the motor off first.
+                                if motor_on {
+                                    motor_off_at_tick = Some(ticks);
+                                }
+                                motor_on = false;
+                                duty = 0.0;
                                 let caps = BoardMessage::Hello(Capabilities {
                                     protocol_version: protocol::PROTOCOL_VERSION,
                                     max_tick_hz: MAX_TICK_HZ,
@@ -302,8 +309,21 @@ impl SimBoard {
                                 }
                                 watchdog_ticks =
                                     (u64::from(watchdog_ms) * u64::from(tick_hz)).div_ceil(1000).max(1);
+                                // Contract: Configure starts from motor off with fresh
+                                // sequence numbers.
+                                if motor_on {
+                                    motor_off_at_tick = Some(ticks);
+                                }
+                                motor_on = false;
+                                duty = 0.0;
+                                seq = 0;
+                                ack_seq = 0;
+                                watchdog_tripped = false;
                                 streaming = true;
                             }
+                            // Contract: a Duty before Configure is ignored (no watchdog
+                            // is armed yet).
+                            HostMessage::Duty { .. } if !streaming => {}
                             HostMessage::Duty { seq: s, duty: d } => {
                                 duty = f64::from(d.clamp(-protocol::DUTY_FULL_SCALE, protocol::DUTY_FULL_SCALE))
                                     / f64::from(protocol::DUTY_FULL_SCALE);

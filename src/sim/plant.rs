@@ -648,13 +648,4 @@ mod tests {
         assert!((a.current_a() - b.current_a()).abs() < 1e-5);
         assert!((a.angle_rad() - b.angle_rad()).abs() < 1e-6 * b.angle_rad().abs());
     }
-    pub fn home_switch(&self) -> bool {
-        todo!()
-    }
-    pub fn index_pulse(&self) -> bool {
-        todo!()
-    }
-    pub fn counts_per_mm(&self) -> f64 {
-        todo!()
-    }
 }

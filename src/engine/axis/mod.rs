@@ -430,7 +430,7 @@ impl AxisTask {
     /// Writes Stop at once (category 0, disable, shutdown) without waiting for a frame.
     async fn motor_off_now(&mut self, stream: &mut BoxStream) {
         self.duty = 0.0;
-        self.host_seq = self.host_seq.wrapping_add(1);
+        self.host_seq = self.last.map_or(0, |t| t.seq);
         self.tx.clear();
         protocol::write_frame(&HostMessage::Stop { seq: self.host_seq }, &mut self.tx);
         let _ = stream.write_all(&self.tx).await;
@@ -438,7 +438,9 @@ impl AxisTask {
     }
 
     async fn write_output(&mut self, stream: &mut BoxStream) -> std::io::Result<()> {
-        self.host_seq = self.host_seq.wrapping_add(1);
+        // Echo the telemetry seq being answered: the board's ack_seq then shows the reply
+        // latency in ticks (docs/protocol.md).
+        self.host_seq = self.last.map_or(0, |t| t.seq);
         let msg = if self.state.motor_on() {
             let sign = if self.cfg.scale.invert_motor { -1.0 } else { 1.0 };
             let full = f64::from(protocol::DUTY_FULL_SCALE);
