@@ -4,7 +4,13 @@ use std::path::PathBuf;
 use std::process::{Command, Output};
 
 fn servotty(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_servotty")).args(args).output().expect("runs")
+    // Event logs and captures go to a throwaway state folder, not the user's.
+    let state = std::env::temp_dir().join(format!("servotty-cli-test-{}", std::process::id()));
+    Command::new(env!("CARGO_BIN_EXE_servotty"))
+        .args(args)
+        .env("XDG_STATE_HOME", state)
+        .output()
+        .expect("runs")
 }
 
 fn repo(p: &str) -> String {
@@ -110,8 +116,26 @@ fn port_override_for_unknown_axis_is_a_usage_error() {
 }
 
 #[test]
+fn move_before_homing_is_refused_with_a_reason() {
+    let out = servotty(&["move", "--to", "x=50"]);
+    assert_eq!(out.status.code(), Some(1));
+    assert!(text(&out.stderr).contains("not homed"), "{}", text(&out.stderr));
+}
+
+#[test]
+fn home_prints_json_for_every_axis() {
+    let out = servotty(&["home", "--json"]);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).expect("json");
+    assert_eq!(v["ok"], true);
+    let axes = v["axes"].as_array().expect("axes");
+    assert_eq!(axes.len(), 3);
+    assert!(axes.iter().all(|a| a["homed"] == true && a["trip"].is_null()), "{v}");
+}
+
+#[test]
 fn move_on_the_simulated_demo_prints_json() {
-    let out = servotty(&["move", "--to", "x=50,z=-20", "--json"]);
+    let out = servotty(&["move", "--home", "--to", "x=50,z=-20", "--json"]);
     assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).expect("json");
     assert_eq!(v["ok"], true);

@@ -214,7 +214,9 @@ async fn shutdown_leaves_every_motor_off() {
     }
     let sims: Vec<_> = cfg.axes.iter().map(|a| m.sim(&a.name).expect("sim")).collect();
     tokio::time::sleep(Duration::from_millis(50)).await;
-    assert!(sims.iter().all(|s| s.view().motor_on));
+    for (s, a) in sims.iter().zip(h.axes()) {
+        assert!(s.view().motor_on, "{}: {:#?} {:#?}", a.name(), s.view(), a.snapshot());
+    }
     m.shutdown().await;
     tokio::time::sleep(Duration::from_millis(5)).await;
     for s in &sims {

@@ -456,6 +456,7 @@ fn index_pulse_once_per_motor_revolution() {
 fn home_switch_closes_below_its_position() {
     let mut pp = demo_plant("x");
     pp.home_switch_mm = Some(10.0);
+    pp.start_mm = 5.0;
     let mut plant = Plant::new(&pp);
     assert!(plant.home_switch());
     while plant.position_mm() <= 10.0 {

@@ -245,6 +245,9 @@ impl MachineHandle {
     /// # Errors
     /// [`HomeError`] naming the axis that failed and why.
     pub async fn home(&self, only: Option<&[String]>) -> Result<(), HomeError> {
+        if let Some(axis) = self.wait_linked(Duration::from_secs(3)).await.into_iter().next() {
+            return Err(HomeError { axis, reason: "no link to the board".to_owned() });
+        }
         for group in self.config.homing_groups() {
             let group: Vec<&String> =
                 group.iter().filter(|a| only.is_none_or(|o| o.contains(a))).collect();

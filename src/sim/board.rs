@@ -276,7 +276,9 @@ impl SimBoard {
                         continue;
                     }
                     decoder.extend(&rx[..n]);
+                    let mut got_any = false;
                     while let Some(msg) = decoder.next_message::<HostMessage>() {
+                        got_any = true;
                         // Bad frames are dropped and, per the contract, never feed the
                         // watchdog.
                         let Ok(msg) = msg else { continue };
@@ -344,6 +346,15 @@ impl SimBoard {
                                 ack_seq = s;
                             }
                         }
+                    }
+                    if got_any {
+                        // Show the bridge state at once, not only at the next tick: a host
+                        // that stops the motor and then closes the link must see it off.
+                        let mut sh = self.handle.lock();
+                        sh.view.motor_on = motor_on;
+                        sh.view.duty = if motor_on { duty } else { 0.0 };
+                        sh.view.motor_off_at_tick = motor_off_at_tick;
+                        sh.view.commands_received = commands_received;
                     }
                 }
             }

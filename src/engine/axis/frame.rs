@@ -14,6 +14,10 @@ use crate::protocol::{inputs, status, Telemetry};
 
 /// Time constant of the velocity estimate's low-pass filter, s.
 const VELOCITY_FILTER_S: f64 = 0.01;
+/// Below this fraction of the axis's top speed it counts as standing still (category 1).
+const STANDSTILL_FRACTION: f64 = 0.005;
+/// Longest wait for standstill after a category 1 ramp before power is removed anyway, s.
+const STANDSTILL_WAIT_S: f64 = 0.25;
 
 impl AxisTask {
     pub(super) fn on_telemetry(&mut self, tm: &Telemetry, now: Instant) {
@@ -133,11 +137,21 @@ impl AxisTask {
                         self.jog = None;
                     }
                     Purpose::Homing => {}
+                    // IEC 60204-1 category 1 removes power once the stop is achieved:
+                    // hold the end of the ramp until the axis stands still.
                     Purpose::StopThenOff => {
-                        self.state = AxisState::Stopped;
-                        self.supervisor.reset();
+                        self.goal = p.profile.goal();
+                        self.settle_since = Some(self.t);
                     }
                 }
+            }
+        } else if self.state == AxisState::Stopping {
+            self.setpoint = Setpoint { position: self.goal, velocity: 0.0, acceleration: 0.0 };
+            let since = *self.settle_since.get_or_insert(self.t);
+            let still = self.velocity.abs() < STANDSTILL_FRACTION * self.cfg.motion.max_velocity;
+            if still || self.t - since >= STANDSTILL_WAIT_S {
+                self.state = AxisState::Stopped;
+                self.supervisor.reset();
             }
         } else {
             self.setpoint = Setpoint { position: self.goal, velocity: 0.0, acceleration: 0.0 };
