@@ -1088,5 +1088,25 @@ mod tests {
     fn demo_config_is_valid() {
         let cfg = MachineConfig::demo().expect("embedded demo parses");
         assert_eq!(cfg.axes.len(), 3);
+        assert_eq!(cfg.homing_groups(), vec![vec!["z".to_owned()], vec!["x".into(), "y".into()]]);
+    }
+
+    #[test]
+    fn a_configuration_survives_a_toml_round_trip() {
+        let cfg = MachineConfig::demo().expect("demo");
+        let text = toml::to_string(&cfg).expect("serialises");
+        let back = MachineConfig::from_toml_str(&text, "round trip").expect("parses back");
+        assert_eq!(cfg, back);
+    }
+
+    #[test]
+    fn unlisted_axes_home_last_together() {
+        let mut cfg = MachineConfig::demo().expect("demo");
+        cfg.machine.homing_order = vec![vec!["y".into()]];
+        assert_eq!(cfg.homing_groups(), vec![vec!["y".to_owned()], vec!["x".into(), "z".into()]]);
+        cfg.machine.homing_order = vec![vec!["y".into()], vec!["y".into(), "q".into()]];
+        let bad = cfg.validate();
+        assert!(bad.iter().any(|b| b.message.contains("listed twice")), "{bad:?}");
+        assert!(bad.iter().any(|b| b.message.contains("no axis called \"q\"")), "{bad:?}");
     }
 }

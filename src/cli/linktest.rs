@@ -24,6 +24,11 @@ pub struct AxisLink {
     pub crc_errors: u64,
     /// Telemetry sequence numbers skipped.
     pub missed: u64,
+    /// Board time covered by the frames, s (compare with the wall time to judge the board's
+    /// clock).
+    pub board_s: f64,
+    /// Valid telemetry frames.
+    pub frames: u64,
 }
 
 /// The whole result.
@@ -33,6 +38,8 @@ pub struct LinkTestOutcome {
     pub axes: Vec<AxisLink>,
     /// This process's CPU use over the measurement, % of one core.
     pub cpu_pct: f64,
+    /// Wall time measured, s.
+    pub wall_s: f64,
 }
 
 /// Measures every linked axis for `seconds` of wall time.
@@ -62,13 +69,15 @@ pub async fn measure(m: &MachineHandle, seconds: f64) -> Result<LinkTestOutcome,
             turnaround_us: r.turnaround_us,
             crc_errors: r.bad_frames,
             missed: r.missed,
+            board_s: r.board_seconds,
+            frames: r.frames,
         });
     }
     let cpu_pct = match (cpu0, cpu1) {
         (Some(a), Some(b)) if wall > 0.0 => 100.0 * (b - a) / wall,
         _ => 0.0,
     };
-    Ok(LinkTestOutcome { axes, cpu_pct })
+    Ok(LinkTestOutcome { axes, cpu_pct, wall_s: wall })
 }
 
 /// User plus system CPU time of this process, s, from /proc (Linux only; None elsewhere).

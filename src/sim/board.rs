@@ -175,6 +175,8 @@ impl SimBoard {
         let mut commands_received: u64 = 0;
         let mut frames_sent: u64 = 0;
         let mut motor_off_at_tick: Option<u64> = None;
+        let mut host_absent = false;
+        let mut retry_read_at = tokio::time::Instant::now();
         let features = if self.plant_params.home_switch_mm.is_some() {
             features::INDEX_PULSE | features::HOME_INPUT
         } else {
@@ -261,13 +263,18 @@ impl SimBoard {
                         frames_sent += 1;
                     }
                 }
-                n = stream.read(&mut rx) => {
+                () = tokio::time::sleep_until(retry_read_at), if host_absent => {
+                    host_absent = false;
+                }
+                n = stream.read(&mut rx), if !host_absent => {
                     let n = match n {
                         Ok(n) if n > 0 => n,
                         _ if self.persistent => {
-                            // A PTY with no host on the other side reads as an error; wait
-                            // for the next host to open it.
-                            tokio::time::sleep(Duration::from_millis(50)).await;
+                            // A PTY with no host on the other side reads as an error; look
+                            // again shortly, ticking on meanwhile (sleeping here would stall
+                            // the ticks and make them burst later).
+                            host_absent = true;
+                            retry_read_at = tokio::time::Instant::now() + Duration::from_millis(50);
                             continue;
                         }
                         _ => return,

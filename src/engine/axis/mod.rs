@@ -21,6 +21,7 @@ pub mod handle;
 use std::sync::Arc;
 use std::time::Duration;
 
+use futures::FutureExt;
 use tokio::io::{AsyncReadExt, AsyncWriteExt};
 use tokio::sync::{broadcast, mpsc, watch};
 use tokio::time::Instant;
@@ -42,6 +43,10 @@ use crate::transport::{BoxStream, Connector};
 const HELLO_TIMEOUT: Duration = Duration::from_millis(500);
 /// Pause between attempts to (re)open a link.
 const RECONNECT_PAUSE: Duration = Duration::from_millis(1000);
+/// After Configure the board's seq restarts at 0. Frames still queued from before it (a PTY
+/// or USB buffer holds about a second of them) are skipped until one with a seq this small
+/// arrives; a few may be lost on the way, and if more are, the relink sends Configure again.
+const FRESH_SEQ_WINDOW: u16 = 5;
 /// While the link is lost, ask the board to start again this often.
 const RELINK_PERIOD: Duration = Duration::from_millis(500);
 
@@ -128,6 +133,9 @@ pub struct AxisTask {
     last: Option<Telemetry>,
     last_frame_at: Option<Instant>,
     link_up: bool,
+    /// A Configure went out: frames still queued from before it (their seq did not restart)
+    /// are stale and skipped until the first fresh one.
+    awaiting_fresh: bool,
     /// Duty commanded for the interval now running, %.
     duty: f64,
     host_seq: u16,
@@ -180,6 +188,7 @@ impl AxisTask {
             last: None,
             last_frame_at: None,
             link_up: false,
+            awaiting_fresh: false,
             duty: 0.0,
             host_seq: 0,
             settle_since: None,
@@ -308,6 +317,22 @@ impl AxisTask {
                     self.publish();
                 }
                 () = tokio::time::sleep_until(deadline) => {
+                    // A starved process wakes with the timer and the data both due: let the
+                    // other tasks (an in-process board) run and look for bytes once more
+                    // before calling the link lost.
+                    tokio::task::yield_now().await;
+                    if let Some(n) = stream.read(&mut rx).now_or_never() {
+                        match n {
+                            Ok(0) => return SessionEnd::Closed("device closed".to_owned()),
+                            Ok(n) => {
+                                if let Err(end) = self.on_bytes(&mut stream, &rx[..n]).await {
+                                    return end;
+                                }
+                                continue;
+                            }
+                            Err(e) => return SessionEnd::Closed(e.to_string()),
+                        }
+                    }
                     if self.link_up {
                         self.link_up = false;
                         let why = format!(
@@ -328,47 +353,59 @@ impl AxisTask {
                         Ok(n) => n,
                         Err(e) => return SessionEnd::Closed(e.to_string()),
                     };
-                    let read_at = Instant::now();
-                    self.decoder.extend(&rx[..n]);
-                    let mut any = false;
-                    while let Some(msg) = self.decoder.next_message::<BoardMessage>() {
-                        match msg {
-                            Ok(BoardMessage::Telemetry(tm)) => {
-                                if !self.link_up {
-                                    self.link_up = true;
-                                    self.meter.link_up();
-                                    self.event(EventKind::Link {
-                                        up: true,
-                                        detail: "telemetry resumed".to_owned(),
-                                    });
-                                }
-                                self.last_frame_at = Some(read_at);
-                                self.on_telemetry(&tm, read_at);
-                                any = true;
-                            }
-                            Ok(BoardMessage::Hello(_)) => {}
-                            Err(e) => {
-                                tracing::debug!(axis = %self.cfg.name, error = %e, "bad frame");
-                                self.meter.bad_frame();
-                            }
-                        }
-                    }
-                    if any {
-                        let was_on = self.state.motor_on();
-                        // One answer per read: after a backlog only the newest state matters.
-                        if self.write_output(&mut stream).await.is_err() {
-                            return SessionEnd::Closed("write failed".to_owned());
-                        }
-                        let took = Instant::now().saturating_duration_since(read_at);
-                        self.meter.turnaround(took);
-                        if was_on && !self.state.motor_on() {
-                            tracing::debug!(axis = %self.cfg.name, "motor off after frame");
-                        }
-                        self.publish();
+                    if let Err(end) = self.on_bytes(&mut stream, &rx[..n]).await {
+                        return end;
                     }
                 }
             }
         }
+    }
+
+    /// Decodes what one read brought, runs the loop for every telemetry frame in it and
+    /// answers once.
+    async fn on_bytes(&mut self, stream: &mut BoxStream, bytes: &[u8]) -> Result<(), SessionEnd> {
+        let read_at = Instant::now();
+        self.decoder.extend(bytes);
+        let mut any = false;
+        while let Some(msg) = self.decoder.next_message::<BoardMessage>() {
+            match msg {
+                Ok(BoardMessage::Telemetry(tm)) => {
+                    if self.awaiting_fresh {
+                        if tm.seq > FRESH_SEQ_WINDOW {
+                            continue;
+                        }
+                        self.awaiting_fresh = false;
+                        self.last = None;
+                    }
+                    if !self.link_up {
+                        self.link_up = true;
+                        self.meter.link_up();
+                        self.event(EventKind::Link {
+                            up: true,
+                            detail: "telemetry resumed".to_owned(),
+                        });
+                    }
+                    self.last_frame_at = Some(read_at);
+                    self.on_telemetry(&tm, read_at);
+                    any = true;
+                }
+                Ok(BoardMessage::Hello(_)) => {}
+                Err(e) => {
+                    tracing::debug!(axis = %self.cfg.name, error = %e, "bad frame");
+                    self.meter.bad_frame();
+                }
+            }
+        }
+        if any {
+            // One answer per read: after a backlog only the newest state matters.
+            if self.write_output(stream).await.is_err() {
+                return Err(SessionEnd::Closed("write failed".to_owned()));
+            }
+            let took = Instant::now().saturating_duration_since(read_at);
+            self.meter.turnaround(took);
+            self.publish();
+        }
+        Ok(())
     }
 
     async fn handshake(&mut self, stream: &mut BoxStream) -> Result<(), SessionEnd> {
@@ -415,6 +452,7 @@ impl AxisTask {
     }
 
     async fn send_configure(&mut self, stream: &mut BoxStream) -> std::io::Result<()> {
+        self.awaiting_fresh = true;
         self.tx.clear();
         protocol::write_frame(&HostMessage::Hello, &mut self.tx);
         protocol::write_frame(
