@@ -7,12 +7,14 @@
 //! - [`snapshot`]: what an axis publishes for the UI and recorders.
 //! - [`link_meter`]: link health and host turnaround measurements.
 //! - [`homing`]: homing sequences as a pure state machine.
+//! - [`experiment`]: bounded commissioning experiments (duty pulses, ramps, relay, steps).
 //! - [`history`]: the full-rate history ring kept for trip captures.
 //! - [`events`]: state changes, trips, operator actions, link changes.
 //! - [`recorder`]: writes the event log and trip captures.
 
 pub mod axis;
 pub mod events;
+pub mod experiment;
 pub mod history;
 pub mod homing;
 pub mod link_meter;

@@ -25,6 +25,8 @@ pub enum AxisState {
     Jogging,
     /// Running a homing sequence.
     Homing,
+    /// Running a commissioning experiment (open-loop duty, relay or step).
+    Testing,
     /// Decelerating to rest after a stop request (category 1).
     Stopping,
     /// Stop-all latched: motor off until the operator releases stop-all.
@@ -43,6 +45,7 @@ impl AxisState {
             Self::Moving => "moving",
             Self::Jogging => "jogging",
             Self::Homing => "homing",
+            Self::Testing => "testing",
             Self::Stopping => "stopping",
             Self::Stopped => "stopped",
             Self::Tripped => "tripped",
@@ -51,7 +54,15 @@ impl AxisState {
 
     /// True in the states where the host drives the motor.
     pub fn motor_on(self) -> bool {
-        matches!(self, Self::Holding | Self::Moving | Self::Jogging | Self::Homing | Self::Stopping)
+        matches!(
+            self,
+            Self::Holding
+                | Self::Moving
+                | Self::Jogging
+                | Self::Homing
+                | Self::Testing
+                | Self::Stopping
+        )
     }
 }
 

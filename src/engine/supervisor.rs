@@ -34,6 +34,8 @@ pub struct Observation {
     pub motor_on: bool,
     /// Whether soft limits apply (the position has a trusted reference).
     pub limits_active: bool,
+    /// Whether the following-error rule applies (off while a step test jumps the target).
+    pub following_active: bool,
 }
 
 /// A check that fired: cause and a sentence for the operator.
@@ -118,7 +120,7 @@ impl Supervisor {
         }
         let band = self.following_error_band(o.target_velocity);
         let fe = o.target - o.position;
-        if fe.abs() > band {
+        if o.following_active && fe.abs() > band {
             return Some(Finding {
                 cause: TripCause::FollowingError,
                 detail: format!(
@@ -220,7 +222,14 @@ mod tests {
     }
 
     fn obs(t: f64) -> Observation {
-        Observation { t, ticks: 1, motor_on: true, limits_active: true, ..Default::default() }
+        Observation {
+            t,
+            ticks: 1,
+            motor_on: true,
+            limits_active: true,
+            following_active: true,
+            ..Default::default()
+        }
     }
 
     // The band rules below are the configuration's documented semantics (common practice,

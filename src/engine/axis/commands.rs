@@ -7,6 +7,7 @@ use tokio::time::Instant;
 use super::{ActiveProfile, AxisCommand, AxisTask, CommandError, JogKeys, Purpose, Reply};
 use crate::control::Trapezoid;
 use crate::engine::events::EventKind;
+use crate::engine::experiment::{ExperimentBounds, ExperimentRun, ExperimentSpec};
 use crate::engine::homing::HomingRun;
 use crate::engine::snapshot::{AxisState, TripCause};
 
@@ -48,6 +49,7 @@ impl AxisTask {
             },
             AxisCommand::Disable => {
                 let was_on = self.state.motor_on();
+                self.end_experiment(Some("disabled by the operator".to_owned()));
                 if was_on {
                     self.state = AxisState::Disabled;
                     self.profile = None;
@@ -59,6 +61,11 @@ impl AxisTask {
             }
             AxisCommand::MoveTo(goal) => (self.start_move(goal), false),
             AxisCommand::Stop => {
+                if self.state == AxisState::Testing {
+                    self.end_experiment(Some("stopped by the operator".to_owned()));
+                    self.setpoint.velocity = self.velocity;
+                    self.state = AxisState::Moving;
+                }
                 if matches!(self.state, AxisState::Moving | AxisState::Jogging | AxisState::Homing)
                 {
                     self.homing = None;
@@ -86,6 +93,12 @@ impl AxisTask {
             }
             AxisCommand::LinkReport { reset } => (Ok(Reply::Link(self.meter.report(reset))), false),
             AxisCommand::History => (Ok(Reply::History(self.history.to_vec())), false),
+            AxisCommand::Experiment { spec, bounds } => {
+                (self.start_experiment(spec, bounds), false)
+            }
+            AxisCommand::TakeExperiment => {
+                (Ok(Reply::Experiment(self.experiment_result.take())), false)
+            }
         }
     }
 
@@ -111,6 +124,10 @@ impl AxisTask {
         self.homing = None;
         self.duty_limit = None;
         self.jog = None;
+        if self.state == AxisState::Testing {
+            self.end_experiment(Some("stop-all".to_owned()));
+            self.setpoint.velocity = self.velocity;
+        }
         match self.state {
             AxisState::Offline | AxisState::Tripped | AxisState::Stopped => false,
             AxisState::Disabled => {
@@ -317,6 +334,31 @@ impl AxisTask {
         self.state = AxisState::Homing;
         self.move_t0 = self.t;
         self.move_peak_fe = 0.0;
+        Ok(Reply::Done)
+    }
+
+    fn start_experiment(
+        &mut self,
+        spec: ExperimentSpec,
+        bounds: ExperimentBounds,
+    ) -> Result<Reply, CommandError> {
+        if self.state != AxisState::Holding {
+            return Err(self.refuse(&format!(
+                "a test starts from holding (enable the axis and let it settle), not {}",
+                self.state
+            )));
+        }
+        if !(bounds.travel.is_finite() && bounds.travel > 0.0)
+            || !(bounds.seconds.is_finite() && bounds.seconds > 0.0)
+        {
+            return Err(self.refuse("a test needs a travel bound and a time bound > 0"));
+        }
+        self.experiment_result = None;
+        self.experiment =
+            Some(ExperimentRun::new(spec, bounds, self.position, self.count, &self.cfg.scale.unit));
+        self.profile = None;
+        self.state = AxisState::Testing;
+        self.in_position = false;
         Ok(Reply::Done)
     }
 

@@ -6,6 +6,7 @@ use tokio::time::Instant;
 use super::{ActiveProfile, AxisTask, Purpose};
 use crate::control::{Setpoint, Trapezoid};
 use crate::engine::events::EventKind;
+use crate::engine::experiment::Drive;
 use crate::engine::history::Sample;
 use crate::engine::homing::{HomingView, Order};
 use crate::engine::snapshot::{AxisState, Trip, TripCause};
@@ -48,9 +49,12 @@ impl AxisTask {
         self.check_jog_deadman(now);
         self.step_motion();
         self.step_homing();
+        let open_loop = self.step_experiment();
 
         let applied = self.duty;
-        if self.state.motor_on() {
+        if let Some(duty) = open_loop {
+            self.duty = duty;
+        } else if self.state.motor_on() {
             let mut u = self.controller.update(&self.setpoint, self.position, dt);
             if let Some(lim) = self.duty_limit {
                 u = u.clamp(-lim, lim);
@@ -65,7 +69,11 @@ impl AxisTask {
         if matches!(self.state, AxisState::Moving | AxisState::Homing) {
             self.move_peak_fe = self.move_peak_fe.max(fe.abs());
         }
-        let pushing = self.homing.as_ref().is_some_and(|h| h.pushing());
+        // Pushing into an end stop is the point of hard-stop homing, and open-loop tests
+        // drive duty with no target: the following-error, stall and runaway rules would
+        // fire on purpose, so only the encoder rule stays on (their own bounds apply).
+        let pushing = self.homing.as_ref().is_some_and(|h| h.pushing()) || open_loop.is_some();
+        let testing = self.state == AxisState::Testing;
         let obs = Observation {
             t: self.t,
             target: self.setpoint.position,
@@ -76,10 +84,10 @@ impl AxisTask {
             count: self.count,
             count_delta: delta,
             ticks,
-            // Pushing into an end stop is the point of hard-stop homing: the following-error
-            // and stall rules would fire on purpose, so only the encoder rule stays on.
             motor_on: self.state.motor_on() && !pushing,
-            limits_active: self.homed && self.state != AxisState::Homing,
+            limits_active: self.homed
+                && !matches!(self.state, AxisState::Homing | AxisState::Testing),
+            following_active: !testing,
         };
         if let Some(f) = self.supervisor.observe(&obs) {
             self.duty = applied;
@@ -88,7 +96,7 @@ impl AxisTask {
         } else if self.state.motor_on() && tm.status & status::DRIVER_FAULT != 0 {
             self.latch_trip(TripCause::BoardFault, "the board reports a driver fault".to_owned());
         }
-        self.history.push(Sample {
+        let sample = Sample {
             t: self.t,
             target: self.setpoint.position,
             position: self.position,
@@ -96,7 +104,64 @@ impl AxisTask {
             duty: self.duty,
             velocity: self.velocity,
             state: self.state,
-        });
+        };
+        self.history.push(sample);
+        if let Some(run) = self.experiment.as_mut() {
+            run.record(sample);
+        }
+    }
+
+    /// Feeds a running experiment. Returns the open-loop duty to apply, if it gives one.
+    fn step_experiment(&mut self) -> Option<f64> {
+        if self.state != AxisState::Testing {
+            return None;
+        }
+        let run = self.experiment.as_mut()?;
+        match run.drive(self.t, self.position, self.count) {
+            Drive::Duty(d) => {
+                let lim = self.cfg.controller.max_duty;
+                self.setpoint =
+                    Setpoint { position: self.position, velocity: 0.0, acceleration: 0.0 };
+                self.goal = self.position;
+                Some(d.clamp(-lim, lim))
+            }
+            Drive::Target(p) => {
+                self.setpoint = Setpoint { position: p, velocity: 0.0, acceleration: 0.0 };
+                self.goal = p;
+                None
+            }
+            Drive::Done | Drive::Abort => {
+                let closed = run.spec_closed_loop();
+                self.end_experiment(None);
+                if closed {
+                    // The step's end: hold where the step put the target.
+                    self.state = AxisState::Holding;
+                } else {
+                    // Open loop may end at speed: brake to rest under control.
+                    self.setpoint = Setpoint {
+                        position: self.position,
+                        velocity: self.velocity,
+                        acceleration: 0.0,
+                    };
+                    self.controller.reset(self.position);
+                    self.begin_stop(super::Purpose::StopThenHold);
+                }
+                None
+            }
+        }
+    }
+
+    /// Files the running experiment's result (with `why` if it was cut short from outside).
+    pub(super) fn end_experiment(&mut self, why: Option<String>) {
+        if let Some(run) = self.experiment.take() {
+            let result = run.finish(why);
+            let text = match &result.aborted {
+                Some(r) => format!("test ended early: {r}"),
+                None => "test finished".to_owned(),
+            };
+            self.experiment_result = Some(Box::new(result));
+            self.event(EventKind::Notice { text });
+        }
     }
 
     /// Ends continuous jog when the operator's key repeats stop arriving.
@@ -287,6 +352,7 @@ impl AxisTask {
             detail,
         };
         self.trip = Some(trip.clone());
+        self.end_experiment(Some(format!("trip: {}", trip.cause)));
         self.state = AxisState::Tripped;
         self.profile = None;
         self.homing = None;

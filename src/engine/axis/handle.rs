@@ -6,6 +6,7 @@ use std::sync::Arc;
 use tokio::sync::{mpsc, oneshot, watch};
 
 use crate::config::ControllerConfig;
+use crate::engine::experiment::{ExperimentBounds, ExperimentResult, ExperimentSpec};
 use crate::engine::history::Sample;
 use crate::engine::link_meter::LinkReport;
 use crate::engine::snapshot::AxisSnapshot;
@@ -52,12 +53,24 @@ pub enum AxisCommand {
     },
     /// A copy of the full-rate history ring.
     History,
+    /// Run a bounded commissioning experiment (the axis must be holding).
+    Experiment {
+        /// What to do.
+        spec: ExperimentSpec,
+        /// Travel and time bounds.
+        bounds: ExperimentBounds,
+    },
+    /// The last finished experiment's result (taken: a second call gives None).
+    TakeExperiment,
 }
 
 impl AxisCommand {
     /// Whether this is an operator action worth an event-log line.
     pub fn is_operator_action(&self) -> bool {
-        !matches!(self, Self::LinkReport { .. } | Self::History | Self::JogPulse { .. })
+        !matches!(
+            self,
+            Self::LinkReport { .. } | Self::History | Self::JogPulse { .. } | Self::TakeExperiment
+        )
     }
 
     /// The command in words, for the event log.
@@ -75,7 +88,18 @@ impl AxisCommand {
             Self::SetController(_) => "set controller".into(),
             Self::LinkReport { .. } => "link report".into(),
             Self::History => "history".into(),
+            Self::Experiment { spec, .. } => format!("test {}", spec_words(spec)),
+            Self::TakeExperiment => "take test result".into(),
         }
+    }
+}
+
+fn spec_words(spec: &ExperimentSpec) -> &'static str {
+    match spec {
+        ExperimentSpec::DutySteps { .. } => "duty steps",
+        ExperimentSpec::BreakawayRamp { .. } => "breakaway ramp",
+        ExperimentSpec::Relay { .. } => "relay",
+        ExperimentSpec::Step { .. } => "step",
     }
 }
 
@@ -88,6 +112,8 @@ pub enum Reply {
     Link(LinkReport),
     /// History rows, oldest first.
     History(Vec<Sample>),
+    /// A finished experiment, if there is one.
+    Experiment(Option<Box<ExperimentResult>>),
 }
 
 /// Why a command was refused.

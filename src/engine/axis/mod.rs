@@ -31,6 +31,7 @@ pub use handle::{AxisCommand, AxisHandle, CommandError, Reply, Request, StopAll}
 use crate::config::AxisConfig;
 use crate::control::{Controller, Setpoint, Trapezoid};
 use crate::engine::events::{Event, EventKind};
+use crate::engine::experiment::{ExperimentResult, ExperimentRun};
 use crate::engine::history::History;
 use crate::engine::homing::HomingRun;
 use crate::engine::link_meter::LinkMeter;
@@ -126,6 +127,8 @@ pub struct AxisTask {
     /// Extra |duty| limit while homing pushes into an end stop, %.
     duty_limit: Option<f64>,
     jog: Option<JogKeys>,
+    experiment: Option<ExperimentRun>,
+    experiment_result: Option<Box<ExperimentResult>>,
     position: f64,
     velocity: f64,
     t: f64,
@@ -181,6 +184,8 @@ impl AxisTask {
             homing: None,
             duty_limit: None,
             jog: None,
+            experiment: None,
+            experiment_result: None,
             position: 0.0,
             velocity: 0.0,
             t: 0.0,

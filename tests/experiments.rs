@@ -1,0 +1,144 @@
+//! Commissioning experiments in the axis loop, against the in-process simulator under
+//! simulated time: they run within their bounds, record every frame, and end at rest.
+
+use std::time::Duration;
+
+use servotty::config::MachineConfig;
+use servotty::engine::experiment::{ExperimentBounds, ExperimentResult, ExperimentSpec};
+use servotty::engine::{AxisCommand, AxisState, Machine, MachineHandle, Reply};
+
+async fn homed_mid_rail() -> (Machine, MachineHandle) {
+    let cfg = MachineConfig::demo().expect("demo");
+    let m = Machine::start(&cfg, &[]).expect("starts");
+    let h = m.handle();
+    h.home(Some(&["x".to_owned()])).await.expect("homes");
+    let x = h.axis("x").expect("x");
+    x.send(AxisCommand::MoveTo(500.0)).await.expect("move");
+    let mut rx = x.watch();
+    tokio::time::timeout(Duration::from_secs(10), rx.wait_for(|s| s.moves_done > 0))
+        .await
+        .expect("settles")
+        .expect("snapshot");
+    (m, h)
+}
+
+async fn run(
+    h: &MachineHandle,
+    spec: ExperimentSpec,
+    bounds: ExperimentBounds,
+) -> ExperimentResult {
+    let x = h.axis("x").expect("x");
+    x.send(AxisCommand::Experiment { spec, bounds }).await.expect("starts");
+    let mut rx = x.watch();
+    tokio::time::timeout(
+        Duration::from_secs(30),
+        rx.wait_for(|s| s.state != AxisState::Testing && s.state != AxisState::Stopping),
+    )
+    .await
+    .expect("ends")
+    .expect("snapshot");
+    let Reply::Experiment(Some(r)) = x.send(AxisCommand::TakeExperiment).await.expect("result")
+    else {
+        panic!("no result")
+    };
+    *r
+}
+
+#[tokio::test(start_paused = true)]
+async fn duty_steps_record_every_frame_and_end_holding() {
+    let (m, h) = homed_mid_rail().await;
+    let spec = ExperimentSpec::DutySteps { steps: vec![(40.0, 0.2), (-40.0, 0.2)], settle_s: 0.2 };
+    let r = run(&h, spec, ExperimentBounds { travel: 100.0, seconds: 2.0 }).await;
+    assert!(r.aborted.is_none(), "{:?}", r.aborted);
+    // One sample per 1 ms tick over 0.6 s (±1 for the frame that ends it).
+    assert!((599..=602).contains(&r.samples.len()), "{}", r.samples.len());
+    assert!(r.samples.iter().take(200).all(|s| (s.duty - 40.0).abs() < 1e-9));
+    let peak = r.samples.iter().map(|s| s.position).fold(f64::MIN, f64::max);
+    assert!(peak > r.start_position + 5.0, "moved forward: {peak}");
+    let x = h.axis("x").expect("x").snapshot();
+    assert_eq!(x.state, AxisState::Holding);
+    m.shutdown().await;
+}
+
+#[tokio::test(start_paused = true)]
+async fn travel_bound_cuts_an_open_loop_test_short() {
+    let (m, h) = homed_mid_rail().await;
+    let spec = ExperimentSpec::DutySteps { steps: vec![(80.0, 3.0)], settle_s: 0.0 };
+    let r = run(&h, spec, ExperimentBounds { travel: 20.0, seconds: 5.0 }).await;
+    assert!(r.aborted.as_deref().is_some_and(|a| a.contains("travel bound")), "{:?}", r.aborted);
+    let s = h.axis("x").expect("x").snapshot();
+    assert_eq!(s.state, AxisState::Holding);
+    // It braked under control after the bound: the overrun is a braking distance, not more.
+    assert!((s.position - r.start_position).abs() < 20.0 + 15.0, "{s:#?}");
+    m.shutdown().await;
+}
+
+// The simulated X driver has an 8 % deadband (configs/demo-greenhouse.toml) and little
+// friction behind it, so breakaway must come out just above 8 %.
+#[tokio::test(start_paused = true)]
+async fn breakaway_ramp_finds_the_driver_deadband() {
+    let (m, h) = homed_mid_rail().await;
+    for direction in [1i8, -1] {
+        let spec = ExperimentSpec::BreakawayRamp {
+            direction,
+            rate: 5.0,
+            max_duty: 40.0,
+            motion_counts: 3,
+        };
+        let r = run(&h, spec, ExperimentBounds { travel: 10.0, seconds: 10.0 }).await;
+        let d = r.moved_at_duty.expect("moved");
+        assert!(d * f64::from(direction) > 8.0 && d.abs() < 9.5, "breakaway {d} %");
+    }
+    m.shutdown().await;
+}
+
+#[tokio::test(start_paused = true)]
+async fn relay_makes_a_bounded_oscillation() {
+    let (m, h) = homed_mid_rail().await;
+    let spec = ExperimentSpec::Relay { amplitude: 25.0, hysteresis: 0.2, seconds: 2.0 };
+    let r = run(&h, spec, ExperimentBounds { travel: 30.0, seconds: 3.0 }).await;
+    assert!(r.aborted.is_none(), "{:?}", r.aborted);
+    let switches =
+        r.samples.windows(2).filter(|w| w[0].duty.signum() != w[1].duty.signum()).count();
+    assert!(switches >= 8, "relay switched {switches} times");
+    m.shutdown().await;
+}
+
+#[tokio::test(start_paused = true)]
+async fn closed_loop_step_records_the_jump() {
+    let (m, h) = homed_mid_rail().await;
+    let spec = ExperimentSpec::Step { size: 10.0, lead_s: 0.1, seconds: 1.0 };
+    let r = run(&h, spec, ExperimentBounds { travel: 30.0, seconds: 2.0 }).await;
+    assert!(r.aborted.is_none(), "{:?}", r.aborted);
+    let jump = r.samples.iter().position(|s| s.target > r.start_position + 5.0).expect("jump");
+    assert!((99..=101).contains(&jump), "jump at sample {jump}");
+    let last = r.samples.last().expect("rows");
+    assert!((last.position - (r.start_position + 10.0)).abs() < 0.2, "{last:?}");
+    m.shutdown().await;
+}
+
+#[tokio::test(start_paused = true)]
+async fn stop_all_aborts_a_test() {
+    let (m, h) = homed_mid_rail().await;
+    let x = h.axis("x").expect("x");
+    let spec = ExperimentSpec::DutySteps { steps: vec![(40.0, 2.0)], settle_s: 0.0 };
+    x.send(AxisCommand::Experiment {
+        spec,
+        bounds: ExperimentBounds { travel: 200.0, seconds: 5.0 },
+    })
+    .await
+    .expect("starts");
+    tokio::time::sleep(Duration::from_millis(100)).await;
+    h.stop_all();
+    let mut rx = x.watch();
+    tokio::time::timeout(Duration::from_secs(2), rx.wait_for(|s| s.state == AxisState::Stopped))
+        .await
+        .expect("stops")
+        .expect("snapshot");
+    let Reply::Experiment(Some(r)) = x.send(AxisCommand::TakeExperiment).await.expect("result")
+    else {
+        panic!("no result")
+    };
+    assert_eq!(r.aborted.as_deref(), Some("stop-all"));
+    m.shutdown().await;
+}
