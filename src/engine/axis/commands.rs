@@ -348,9 +348,8 @@ impl AxisTask {
                 self.state
             )));
         }
-        if !(bounds.travel.is_finite() && bounds.travel > 0.0)
-            || !(bounds.seconds.is_finite() && bounds.seconds > 0.0)
-        {
+        let positive = |v: f64| v.is_finite() && v > 0.0;
+        if !positive(bounds.travel) || !positive(bounds.seconds) {
             return Err(self.refuse("a test needs a travel bound and a time bound > 0"));
         }
         self.experiment_result = None;
