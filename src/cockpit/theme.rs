@@ -39,8 +39,17 @@ impl Default for Theme {
 impl Theme {
     /// From `NO_COLOR` and `TERM`.
     pub fn from_env() -> Self {
-        let no_color = std::env::var_os("NO_COLOR").is_some_and(|v| !v.is_empty());
-        let console = std::env::var("TERM").is_ok_and(|t| t == "linux");
+        Self::from_vars(
+            std::env::var_os("NO_COLOR").as_deref(),
+            std::env::var("TERM").ok().as_deref(),
+        )
+    }
+
+    /// From the values of `NO_COLOR` and `TERM` (absent: `None`). An empty `NO_COLOR` counts
+    /// as unset, as no-color.org says.
+    pub fn from_vars(no_color: Option<&std::ffi::OsStr>, term: Option<&str>) -> Self {
+        let no_color = no_color.is_some_and(|v| !v.is_empty());
+        let console = term == Some("linux");
         Self { color: !no_color, glyphs: if console { Glyphs::Console } else { Glyphs::Unicode } }
     }
 
@@ -167,5 +176,21 @@ impl Theme {
             Glyphs::Unicode => "▶",
             Glyphs::Console => ">",
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use std::ffi::OsStr;
+
+    use super::*;
+
+    #[test]
+    fn environment_choices() {
+        assert!(Theme::from_vars(None, Some("xterm-256color")).color);
+        assert!(Theme::from_vars(Some(OsStr::new("")), None).color, "empty NO_COLOR is unset");
+        assert!(!Theme::from_vars(Some(OsStr::new("1")), None).color);
+        assert_eq!(Theme::from_vars(None, Some("linux")).glyphs, Glyphs::Console);
+        assert_eq!(Theme::from_vars(None, Some("screen")).glyphs, Glyphs::Unicode);
     }
 }

@@ -19,6 +19,8 @@ const PANEL_ROWS: u16 = 5;
 const MAX_LOG_ROWS: u16 = 10;
 /// Log rows below the axes worth a bordered panel.
 const MIN_LOG_ROWS: u16 = 4;
+/// Log rows (five entries) the log gets before panels grow past their smallest full size.
+const COMFORT_LOG_ROWS: u16 = 7;
 
 /// Rows for each panel in `height` rows, leaving `reserve` for the log if possible.
 fn panel_heights(app: &App, height: u16, reserve: u16) -> Vec<u16> {
@@ -48,7 +50,14 @@ pub fn render(app: &App, area: Rect, buf: &mut Buffer) {
             Layout::horizontal([Constraint::Fill(1), Constraint::Length(log_w)]).areas(area);
         (a, l, panel_heights(app, a.height, 0))
     } else {
-        let heights = panel_heights(app, area.height, MIN_LOG_ROWS);
+        // The log first gets enough for a few entries, then the panels what they can fill,
+        // then the log whatever is still left.
+        let n = u16::try_from(app.axes.len()).unwrap_or(u16::MAX);
+        let mut log_h = area.height.saturating_sub(n * PANEL_ROWS).min(COMFORT_LOG_ROWS);
+        if log_h < MIN_LOG_ROWS {
+            log_h = MIN_LOG_ROWS;
+        }
+        let heights = panel_heights(app, area.height, log_h);
         let used: u16 = heights.iter().sum();
         let log_h = area.height.saturating_sub(used).min(MAX_LOG_ROWS);
         let [a, l] = Layout::vertical([Constraint::Fill(1), Constraint::Length(log_h)]).areas(area);
