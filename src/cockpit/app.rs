@@ -114,6 +114,32 @@ pub enum Notice {
     },
 }
 
+/// Column widths that depend only on the configuration, worked out once.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Columns {
+    /// Widest axis name.
+    pub name_width: usize,
+    /// Widest position (soft limits at each axis's decimals), so columns line up across
+    /// panels.
+    pub pos_width: usize,
+}
+
+impl Columns {
+    fn of(config: &MachineConfig) -> Self {
+        let name_width = config.axes.iter().map(|a| a.name.chars().count()).max().unwrap_or(1);
+        let pos_width = config
+            .axes
+            .iter()
+            .map(|a| {
+                let d = decimals_for(a.scale.counts_per_unit);
+                num(a.limits.soft_min, d, 0).len().max(num(a.limits.soft_max, d, 0).len())
+            })
+            .max()
+            .unwrap_or(4);
+        Self { name_width, pos_width }
+    }
+}
+
 /// One axis as the cockpit sees it.
 #[derive(Debug, Clone)]
 pub struct AxisView {
@@ -162,6 +188,8 @@ pub struct App {
     pub now: Duration,
     /// Colours and glyphs.
     pub theme: Theme,
+    /// Column widths for drawing.
+    pub layout: Columns,
     /// Where the log file is (shown in help), or why there is none.
     pub log_file: Result<PathBuf, String>,
     /// Set when the cockpit should end.
@@ -188,6 +216,7 @@ impl App {
         Self {
             saved: config.axes.iter().map(|a| a.controller.clone()).collect(),
             stop_category: config.machine.stop_category,
+            layout: Columns::of(&config),
             config,
             source,
             axes,

@@ -16,7 +16,6 @@ use crate::cockpit::format::{num, signed};
 use crate::cockpit::history::Sample;
 use crate::cockpit::theme::Theme;
 use crate::cockpit::ui::row::Row;
-use crate::config::AxisConfig;
 use crate::engine::AxisState;
 
 /// Tallest sparkline, rows: taller adds little and costs bytes.
@@ -24,34 +23,19 @@ const MAX_SPARK_ROWS: u16 = 3;
 /// Sparklines need at least this much width each to show a trend.
 const MIN_SPARK_WIDTH: u16 = 12;
 
-/// Columns for a position: the widest soft limit of any axis, so columns line up across
-/// panels.
-fn pos_width(app: &App) -> usize {
-    app.config
-        .axes
-        .iter()
-        .zip(&app.axes)
-        .map(|(cfg, v): (&AxisConfig, _)| {
-            let l = &cfg.limits;
-            num(l.soft_min, v.decimals, 0).len().max(num(l.soft_max, v.decimals, 0).len())
-        })
-        .max()
-        .unwrap_or(4)
-}
-
 /// The state line. `with_name` in bare (borderless) panels, where no title shows the name.
 pub fn status_line(app: &App, i: usize, with_name: bool, width: usize) -> Line<'static> {
     let t = app.theme;
     let v = &app.axes[i];
     let s = &v.snap;
     let cfg = &app.config.axes[i];
-    let (d, w) = (v.decimals, pos_width(app));
+    let (d, w) = (v.decimals, app.layout.pos_width);
     let u = cfg.scale.unit.clone();
     let linked = s.state != AxisState::Offline;
     let mut row = Row::new();
     if with_name {
         let pointer = if i == app.selected { t.pointer() } else { " " };
-        let name_w = app.config.axes.iter().map(|a| a.name.chars().count()).max().unwrap_or(1);
+        let name_w = app.layout.name_width;
         row.push(
             0,
             vec![
@@ -138,7 +122,7 @@ pub fn fe_bar(theme: Theme, fe: f64, band: f64, width: usize) -> Vec<Span<'stati
 /// Columns the bare status line spends on the pointer and name (so the line below can
 /// start under the state word).
 fn name_indent(app: &App) -> usize {
-    1 + app.config.axes.iter().map(|a| a.name.chars().count()).max().unwrap_or(1) + 2
+    1 + app.layout.name_width + 2
 }
 
 /// Following error and link health. `indent` columns are left blank first.
