@@ -185,3 +185,12 @@ fn tiny_terminal_still_names_the_stop_key() {
     let text = s::screen(&s::normal(), 30, 4);
     assert!(text.contains("Space"), "{text}");
 }
+
+#[test]
+fn log_screen_wraps_long_entries() {
+    let mut app = s::tripped();
+    app.apply(s::at(200), Action::ToggleLog);
+    let t = s::draw(&app, 80, 24);
+    insta::assert_snapshot!("log_screen_80x24", t.backend());
+    assert!(t.backend().to_string().contains("too little gain"));
+}

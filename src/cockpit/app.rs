@@ -363,12 +363,7 @@ impl App {
             Action::GoTo => {}
             Action::JogStep(_) | Action::JogHold(_) | Action::Home | Action::HomeAll => {
                 let vmax = self.config.axes.get(sel).map_or(0.0, |a| a.motion.max_velocity);
-                let cmd = if action == Action::HomeAll {
-                    None
-                } else {
-                    jog::motion_command(action, self.jog, vmax)
-                };
-                match cmd {
+                match jog::motion_command(action, self.jog, vmax) {
                     Some(c) => return vec![self.command(sel, c, &format!("{action:?}"))],
                     None => self.note(Kind::Info, JOG_HOME_MISSING),
                 }

@@ -1,11 +1,12 @@
 //! Per-axis ring buffers of sampled values for sparklines and charts.
 //!
 //! The cockpit samples each axis's latest snapshot once per frame, so these hold what the
-//! operator saw, not every control tick (the engine would need to keep its own history for
-//! that; see the cockpit report). Sparklines read an aligned, decimated view: the view only
-//! changes when a sample whose sequence number is a multiple of the stride arrives, so a
-//! sparkline scrolls a few times a second instead of every frame and costs few bytes on a
-//! slow link.
+//! operator saw, not every control tick: a history kept by the engine at the board's tick
+//! would show the milliseconds before a trip, which frame sampling cannot.
+//!
+//! Sparklines read an aligned, decimated view: it only changes when a sample whose sequence
+//! number is a multiple of the stride arrives, so a sparkline scrolls a few times a second
+//! instead of every frame and costs few bytes on a slow link.
 
 use std::collections::VecDeque;
 

@@ -70,9 +70,6 @@ pub fn jog_velocity(dir: Dir, jog: JogSettings, max_velocity: f64) -> f64 {
 
 /// The engine command for a jog or home action on one axis, or `None` while the engine does
 /// not offer it. `max_velocity` is the axis's profile limit, unit/s.
-///
-/// `HomeAll` is not here: it belongs to the machine (a wished-for `MachineHandle::home_all()`
-/// that follows the configured order), not to one axis.
 pub fn motion_command(action: Action, jog: JogSettings, max_velocity: f64) -> Option<AxisCommand> {
     // Both are used by the arms below once the engine has the commands.
     let _ = (jog, max_velocity);
@@ -84,6 +81,9 @@ pub fn motion_command(action: Action, jog: JogSettings, max_velocity: f64) -> Op
         Action::JogHold(_) => None,
         // Wire: Action::Home => Some(AxisCommand::Home),
         Action::Home => None,
+        // Machine-wide, in the configured order: wire through a new `Effect::HomeAll` that
+        // calls a wished-for `MachineHandle::home_all()`, not through one axis.
+        Action::HomeAll => None,
         _ => None,
     }
 }
