@@ -84,12 +84,7 @@ fn render_entries(app: &App, inner: Rect, back: usize, buf: &mut Buffer) {
     let end = entries.len().saturating_sub(back);
     let mut y = inner.bottom();
     for e in entries.iter().take(end).rev() {
-        let text: Vec<char> = e.text_with_count().chars().collect();
-        let chunks: Vec<String> = if text.is_empty() {
-            vec![String::new()]
-        } else {
-            text.chunks(text_w).map(|c| c.iter().collect()).collect()
-        };
+        let chunks = wrap(&e.text_with_count(), text_w);
         let rows = chunks.len() as u16;
         if y < inner.y + rows {
             break;
@@ -109,5 +104,48 @@ fn render_entries(app: &App, inner: Rect, back: usize, buf: &mut Buffer) {
             };
             buf.set_line(inner.x, y + k as u16, &line, inner.width);
         }
+    }
+}
+
+/// Splits `text` into rows of at most `width` characters, at spaces where it can.
+fn wrap(text: &str, width: usize) -> Vec<String> {
+    let width = width.max(1);
+    let mut rows = vec![String::new()];
+    for word in text.split(' ') {
+        let mut word: Vec<char> = word.chars().collect();
+        loop {
+            let row = rows.last_mut().expect("rows is never empty");
+            let used = row.chars().count();
+            let gap = usize::from(used > 0);
+            if used + gap + word.len() <= width {
+                if gap == 1 {
+                    row.push(' ');
+                }
+                row.extend(word.iter());
+                break;
+            }
+            if used == 0 {
+                // A word longer than a row is cut.
+                row.extend(word.iter().take(width));
+                word.drain(..width);
+            }
+            rows.push(String::new());
+        }
+    }
+    rows
+}
+
+#[cfg(test)]
+mod tests {
+    use super::wrap;
+
+    #[test]
+    fn wraps_at_spaces_and_cuts_only_long_words() {
+        assert_eq!(
+            wrap("fe 3.36 mm exceeded its band", 12),
+            ["fe 3.36 mm", "exceeded its", "band"]
+        );
+        assert_eq!(wrap("abcdefghij", 4), ["abcd", "efgh", "ij"]);
+        assert_eq!(wrap("", 4), [""]);
     }
 }
