@@ -10,9 +10,11 @@
 //! - [`sim`]: the physics simulator (DC motor, gearbox, carriage) and board emulation.
 //! - [`control`]: controllers (on-off, proportional, PID) and motion profiles.
 //! - [`engine`]: one task per axis (loop, supervision, state machine) and the machine core.
+//! - [`cockpit`]: the terminal UI (overview, axis detail, event log, keymap, gain saving).
 //! - [`cli`]: the headless subcommands and argument parsing; `main.rs` only dispatches.
 
 pub mod cli;
+pub mod cockpit;
 pub mod config;
 pub mod control;
 pub mod engine;

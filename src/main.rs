@@ -13,13 +13,8 @@ fn main() -> ExitCode {
         Some(Command::Move(a)) => cli::move_cmd::run(a),
         Some(Command::Home(a)) => cli::home_cmd::run(a),
         Some(Command::Linktest(a)) => cli::linktest::run(a),
-        Some(Command::Cockpit(m)) => cli_cockpit(m),
-        None => cli_cockpit(&cli.machine),
+        Some(Command::Cockpit(m)) => servotty::cockpit::run(m),
+        None => servotty::cockpit::run(&cli.machine),
     };
     ExitCode::from(code)
-}
-
-fn cli_cockpit(_m: &cli::MachineArgs) -> u8 {
-    eprintln!("servotty: the cockpit is not built yet; see `servotty --help`");
-    cli::EXIT_FAILED
 }

@@ -1,0 +1,641 @@
+//! The cockpit's state and everything that changes it: operator actions, sampled snapshots
+//! and notices from background work.
+//!
+//! Nothing here touches the terminal or the engine. [`App::apply`] turns an [`Action`] into
+//! a state change plus [`Effect`]s for the runner; [`App::observe`] takes the latest snapshot
+//! of every axis once per frame, keeps the histories and derives the event log from what
+//! changed between frames. Time is passed in, so tests are exact.
+
+use std::path::PathBuf;
+use std::time::Duration;
+
+use crate::cockpit::action::{Action, Effect};
+use crate::cockpit::event_log::{EventLog, Kind};
+use crate::cockpit::format::{decimals_for, num, plain};
+use crate::cockpit::gain_edit::{self, Param};
+use crate::cockpit::history::{History, Sample};
+use crate::cockpit::jog::{self, JogSettings};
+use crate::cockpit::keys::Mode;
+use crate::cockpit::save::SaveReport;
+use crate::cockpit::theme::Theme;
+use crate::config::{ConfigSource, ControllerConfig, MachineConfig};
+use crate::engine::{AxisCommand, AxisSnapshot, AxisState};
+
+/// Samples kept per axis: 30 s at the default 20 frames/s.
+pub const HISTORY_SAMPLES: usize = 600;
+/// Sparklines advance every this many frames (4 times a second at 20 frames/s): smooth
+/// enough to read a trend, and a fifth of the bytes of scrolling every frame.
+pub const SPARK_STRIDE: u64 = 5;
+/// Seconds shown in the detail screen's charts.
+pub const CHART_SECONDS: f64 = 10.0;
+/// Longest text a prompt accepts.
+const ENTRY_MAX: usize = 200;
+/// Bad or missed frames are logged at most this often per axis.
+const LINK_LOG_PERIOD: Duration = Duration::from_secs(2);
+/// What the jog and home keys say until the engine has those commands.
+pub const JOG_HOME_MISSING: &str = "jog/home not available yet";
+/// Suggested file name when the demo's gains are written out.
+pub const DEFAULT_COPY_NAME: &str = "servotty.toml";
+
+/// Which screen is showing.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Screen {
+    /// All axes.
+    Overview,
+    /// The selected axis.
+    Detail,
+    /// The event log.
+    Log,
+}
+
+/// What a prompt is for.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Purpose {
+    /// Move an axis to a typed position.
+    GoTo {
+        /// Axis index.
+        axis: usize,
+    },
+    /// A new value for a controller parameter.
+    Gain {
+        /// Axis index.
+        axis: usize,
+        /// Which parameter.
+        param: Param,
+    },
+    /// A file name for a copy of the configuration (the demo has no file).
+    SaveCopy,
+}
+
+/// A prompt being typed.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Prompt {
+    /// What it is for.
+    pub purpose: Purpose,
+    /// What has been typed.
+    pub text: String,
+    /// Why the last attempt was refused.
+    pub error: Option<String>,
+}
+
+/// What is drawn over the screen.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum Overlay {
+    /// Nothing.
+    None,
+    /// Key help.
+    Help,
+    /// "Quit?"
+    ConfirmQuit,
+    /// A prompt.
+    Prompt(Prompt),
+}
+
+/// News from background work.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Notice {
+    /// An axis answered a command.
+    Reply {
+        /// Axis index.
+        axis: usize,
+        /// The command, in words.
+        what: String,
+        /// `Err(reason)` when refused.
+        result: Result<(), String>,
+    },
+    /// A save finished.
+    Saved {
+        /// What happened.
+        result: Result<SaveReport, String>,
+        /// The controller parameters that were written.
+        controllers: Vec<ControllerConfig>,
+        /// True when this created a new file (the demo's copy).
+        new_file: bool,
+    },
+}
+
+/// Column widths that depend only on the configuration, worked out once.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Columns {
+    /// Widest axis name.
+    pub name_width: usize,
+    /// Widest position (soft limits at each axis's decimals), so columns line up across
+    /// panels.
+    pub pos_width: usize,
+}
+
+impl Columns {
+    fn of(config: &MachineConfig) -> Self {
+        let name_width = config.axes.iter().map(|a| a.name.chars().count()).max().unwrap_or(1);
+        let pos_width = config
+            .axes
+            .iter()
+            .map(|a| {
+                let d = decimals_for(a.scale.counts_per_unit);
+                num(a.limits.soft_min, d, 0).len().max(num(a.limits.soft_max, d, 0).len())
+            })
+            .max()
+            .unwrap_or(4);
+        Self { name_width, pos_width }
+    }
+}
+
+/// One axis as the cockpit sees it.
+#[derive(Debug, Clone)]
+pub struct AxisView {
+    /// The latest snapshot.
+    pub snap: AxisSnapshot,
+    /// Sampled values.
+    pub history: History,
+    /// Decimals worth showing for positions.
+    pub decimals: usize,
+    bad_logged: u64,
+    missed_logged: u64,
+    link_logged_at: Option<Duration>,
+}
+
+/// The whole cockpit state.
+#[derive(Debug, Clone)]
+pub struct App {
+    /// The live configuration (gains as edited).
+    pub config: MachineConfig,
+    /// Controller parameters as last saved (or loaded).
+    saved: Vec<ControllerConfig>,
+    /// Where the configuration came from.
+    pub source: ConfigSource,
+    /// Per axis, in configuration order.
+    pub axes: Vec<AxisView>,
+    /// Selected axis index.
+    pub selected: usize,
+    /// Screen showing.
+    pub screen: Screen,
+    log_return: Screen,
+    /// Overlay on top.
+    pub overlay: Overlay,
+    /// The event log.
+    pub log: EventLog,
+    /// Jog step and speed.
+    pub jog: JogSettings,
+    /// Stop-all latched, as last seen (or as just requested).
+    pub stop_latched: bool,
+    /// Stop-all's category.
+    pub stop_category: u8,
+    /// Detail screen: chosen parameter (index into the axis's parameter list).
+    pub param_cursor: usize,
+    /// Log screen: entries scrolled back from the newest (0 follows new entries).
+    pub log_back: usize,
+    /// Cockpit time of the latest frame.
+    pub now: Duration,
+    /// Colours and glyphs.
+    pub theme: Theme,
+    /// Column widths for drawing.
+    pub layout: Columns,
+    /// Where the log file is (shown in help), or why there is none.
+    pub log_file: Result<PathBuf, String>,
+    /// Set when the cockpit should end.
+    pub quit: bool,
+}
+
+impl App {
+    /// A cockpit for `config` with every axis offline.
+    pub fn new(config: MachineConfig, source: ConfigSource, theme: Theme) -> Self {
+        let axes = config
+            .axes
+            .iter()
+            .map(|a| AxisView {
+                snap: AxisSnapshot::offline(&a.name, &a.scale.unit),
+                history: History::new(HISTORY_SAMPLES),
+                decimals: decimals_for(a.scale.counts_per_unit),
+                bad_logged: 0,
+                missed_logged: 0,
+                link_logged_at: None,
+            })
+            .collect();
+        let mut log = EventLog::default();
+        log.push(Duration::ZERO, Kind::Info, format!("cockpit started on {source}"));
+        Self {
+            saved: config.axes.iter().map(|a| a.controller.clone()).collect(),
+            stop_category: config.machine.stop_category,
+            layout: Columns::of(&config),
+            config,
+            source,
+            axes,
+            selected: 0,
+            screen: Screen::Overview,
+            log_return: Screen::Overview,
+            overlay: Overlay::None,
+            log,
+            jog: JogSettings::default(),
+            stop_latched: false,
+            param_cursor: 0,
+            log_back: 0,
+            now: Duration::ZERO,
+            theme,
+            log_file: Err("not set up".to_owned()),
+            quit: false,
+        }
+    }
+
+    /// The input mode: the overlay if one is open, else the screen.
+    pub fn mode(&self) -> Mode {
+        match (&self.overlay, self.screen) {
+            (Overlay::Help, _) => Mode::Help,
+            (Overlay::ConfirmQuit, _) => Mode::ConfirmQuit,
+            (Overlay::Prompt(_), _) => Mode::Entry,
+            (Overlay::None, Screen::Overview) => Mode::Overview,
+            (Overlay::None, Screen::Detail) => Mode::Detail,
+            (Overlay::None, Screen::Log) => Mode::Log,
+        }
+    }
+
+    /// Axis `i`'s controller parameters as last saved (or loaded).
+    pub fn saved_controller(&self, i: usize) -> Option<&ControllerConfig> {
+        self.saved.get(i)
+    }
+
+    /// True when live gains differ from the file.
+    pub fn unsaved(&self) -> bool {
+        self.config.axes.iter().zip(&self.saved).any(|(a, s)| a.controller != *s)
+    }
+
+    /// Names of axes whose motor is on.
+    pub fn motors_on(&self) -> Vec<&str> {
+        self.axes.iter().filter(|a| a.snap.state.motor_on()).map(|a| &*a.snap.axis).collect()
+    }
+
+    /// (homed, total).
+    pub fn homed(&self) -> (usize, usize) {
+        (self.axes.iter().filter(|a| a.snap.homed).count(), self.axes.len())
+    }
+
+    /// The parameters the selected axis's controller offers.
+    pub fn params(&self) -> Vec<Param> {
+        self.config
+            .axes
+            .get(self.selected)
+            .map_or_else(Vec::new, |a| gain_edit::params_for(&a.controller))
+    }
+
+    fn name(&self, axis: usize) -> &str {
+        self.config.axes.get(axis).map_or("?", |a| a.name.as_str())
+    }
+
+    fn unit(&self, axis: usize) -> &str {
+        self.config.axes.get(axis).map_or("", |a| a.scale.unit.as_str())
+    }
+
+    fn note(&mut self, kind: Kind, text: impl Into<String>) {
+        self.log.push(self.now, kind, text);
+    }
+
+    fn command(&mut self, axis: usize, command: AxisCommand, words: &str) -> Effect {
+        let name = self.name(axis).to_owned();
+        self.note(Kind::Operator, format!("{name}: {words}"));
+        Effect::Command { axis, command }
+    }
+
+    /// Applies an operator action at cockpit time `now`; returns what the runner must do.
+    pub fn apply(&mut self, now: Duration, action: Action) -> Vec<Effect> {
+        self.now = self.now.max(now);
+        let sel = self.selected;
+        let n = self.axes.len();
+        match action {
+            Action::StopAll => {
+                self.stop_latched = true;
+                let how = if self.stop_category == 0 {
+                    "motor off at once"
+                } else {
+                    "controlled stop, then motor off"
+                };
+                self.note(
+                    Kind::Operator,
+                    format!("STOP-ALL latched (category {}: {how})", self.stop_category),
+                );
+                return vec![Effect::StopAll];
+            }
+            Action::ReleaseStopAll => {
+                if !self.stop_latched {
+                    self.note(Kind::Info, "stop-all is not latched");
+                    return vec![];
+                }
+                self.stop_latched = false;
+                self.note(Kind::Operator, "stop-all released (axes stay off until enabled)");
+                return vec![Effect::ReleaseStopAll];
+            }
+            Action::SelectPrev if n > 0 => self.select((sel + n - 1) % n),
+            Action::SelectNext if n > 0 => self.select((sel + 1) % n),
+            Action::SelectAxis(i) if i < n => self.select(i),
+            Action::SelectPrev | Action::SelectNext | Action::SelectAxis(_) => {}
+            Action::OpenDetail => {
+                self.screen = Screen::Detail;
+                self.param_cursor = self.param_cursor.min(self.params().len().saturating_sub(1));
+            }
+            Action::Back => self.screen = Screen::Overview,
+            Action::ToggleLog => {
+                if self.screen == Screen::Log {
+                    self.screen = self.log_return;
+                } else {
+                    self.log_return = self.screen;
+                    self.screen = Screen::Log;
+                    self.log_back = 0;
+                }
+            }
+            Action::Help => self.overlay = Overlay::Help,
+            Action::CloseOverlay | Action::CancelQuit | Action::EntryCancel => {
+                self.overlay = Overlay::None;
+            }
+            Action::Enable => return vec![self.command(sel, AxisCommand::Enable, "enable")],
+            Action::Disable => return vec![self.command(sel, AxisCommand::Disable, "disable")],
+            Action::ClearTrip => {
+                return vec![self.command(sel, AxisCommand::ClearTrip, "clear trip")]
+            }
+            Action::StopAxis => return vec![self.command(sel, AxisCommand::Stop, "stop")],
+            Action::EnableAll => return self.all(AxisCommand::Enable, "enable", |_| true),
+            Action::DisableAll => return self.all(AxisCommand::Disable, "disable", |_| true),
+            Action::ClearAllTrips => {
+                let fx = self.all(AxisCommand::ClearTrip, "clear trip", |s| s.trip.is_some());
+                if fx.is_empty() {
+                    self.note(Kind::Info, "no axis is tripped");
+                }
+                return fx;
+            }
+            Action::GoTo if n > 0 => self.prompt(Purpose::GoTo { axis: sel }, String::new()),
+            Action::GoTo => {}
+            Action::JogStep(_) | Action::JogHold(_) | Action::Home | Action::HomeAll => {
+                let vmax = self.config.axes.get(sel).map_or(0.0, |a| a.motion.max_velocity);
+                match jog::motion_command(action, self.jog, vmax) {
+                    Some(c) => return vec![self.command(sel, c, &format!("{action:?}"))],
+                    None => self.note(Kind::Info, JOG_HOME_MISSING),
+                }
+            }
+            Action::StepSmaller => self.jog.smaller_step(),
+            Action::StepLarger => self.jog.larger_step(),
+            Action::SpeedLower => self.jog.slower(),
+            Action::SpeedHigher => self.jog.faster(),
+            Action::ParamPrev => self.param_cursor = self.param_cursor.saturating_sub(1),
+            Action::ParamNext => {
+                self.param_cursor =
+                    (self.param_cursor + 1).min(self.params().len().saturating_sub(1));
+            }
+            Action::EditParam => {
+                if let (Some(&param), Some(a)) =
+                    (self.params().get(self.param_cursor), self.config.axes.get(sel))
+                {
+                    let text = plain(param.get(&a.controller));
+                    self.prompt(Purpose::Gain { axis: sel, param }, text);
+                }
+            }
+            Action::SaveGains => return self.save(),
+            Action::ScrollUp => {
+                self.log_back = (self.log_back + 1).min(self.log.len().saturating_sub(1))
+            }
+            Action::ScrollDown => self.log_back = self.log_back.saturating_sub(1),
+            Action::PageUp => {
+                self.log_back = (self.log_back + 10).min(self.log.len().saturating_sub(1))
+            }
+            Action::PageDown => self.log_back = self.log_back.saturating_sub(10),
+            Action::ScrollTop => self.log_back = self.log.len().saturating_sub(1),
+            Action::ScrollEnd => self.log_back = 0,
+            Action::Quit => {
+                if self.motors_on().is_empty() && !self.unsaved() {
+                    self.quit = true;
+                } else {
+                    self.overlay = Overlay::ConfirmQuit;
+                }
+            }
+            Action::ConfirmQuit => self.quit = true,
+            Action::EntryChar(c) => {
+                if let Overlay::Prompt(p) = &mut self.overlay {
+                    if p.text.chars().count() < ENTRY_MAX {
+                        p.text.push(c);
+                    }
+                    p.error = None;
+                }
+            }
+            Action::EntryBackspace => {
+                if let Overlay::Prompt(p) = &mut self.overlay {
+                    p.text.pop();
+                    p.error = None;
+                }
+            }
+            Action::EntrySubmit => return self.submit(),
+        }
+        vec![]
+    }
+
+    fn select(&mut self, i: usize) {
+        if i != self.selected {
+            self.selected = i;
+            self.param_cursor = self.param_cursor.min(self.params().len().saturating_sub(1));
+        }
+    }
+
+    fn prompt(&mut self, purpose: Purpose, text: String) {
+        self.overlay = Overlay::Prompt(Prompt { purpose, text, error: None });
+    }
+
+    fn all(
+        &mut self,
+        command: AxisCommand,
+        words: &str,
+        pick: impl Fn(&AxisSnapshot) -> bool,
+    ) -> Vec<Effect> {
+        let picked: Vec<usize> =
+            (0..self.axes.len()).filter(|&i| pick(&self.axes[i].snap)).collect();
+        if !picked.is_empty() {
+            let names: Vec<&str> = picked.iter().map(|&i| self.name(i)).collect();
+            let text = format!("{}: {words}", names.join(", "));
+            self.note(Kind::Operator, text);
+        }
+        picked.into_iter().map(|axis| Effect::Command { axis, command: command.clone() }).collect()
+    }
+
+    fn save(&mut self) -> Vec<Effect> {
+        if !self.unsaved() {
+            self.note(Kind::Info, format!("no unsaved gain changes ({})", self.source));
+            return vec![];
+        }
+        match &self.source {
+            ConfigSource::File(path) => {
+                let path = path.clone();
+                self.note(Kind::Operator, format!("saving gains to {}", path.display()));
+                vec![Effect::SaveGains { path, config: self.config.clone() }]
+            }
+            ConfigSource::BuiltInDemo => {
+                // The demo is compiled in: offer to write a copy that later runs can load.
+                self.prompt(Purpose::SaveCopy, DEFAULT_COPY_NAME.to_owned());
+                vec![]
+            }
+        }
+    }
+
+    fn submit(&mut self) -> Vec<Effect> {
+        let Overlay::Prompt(p) = &self.overlay else { return vec![] };
+        let (purpose, text) = (p.purpose, p.text.trim().to_owned());
+        let outcome: Result<Vec<Effect>, String> = match purpose {
+            Purpose::GoTo { axis } => self.submit_goto(axis, &text),
+            Purpose::Gain { axis, param } => self.submit_gain(axis, param, &text),
+            Purpose::SaveCopy => {
+                if text.is_empty() {
+                    Err("type a file name".to_owned())
+                } else {
+                    let path = PathBuf::from(&text);
+                    self.note(Kind::Operator, format!("writing the configuration to {text}"));
+                    Ok(vec![Effect::WriteCopy { path, config: self.config.clone() }])
+                }
+            }
+        };
+        match outcome {
+            Ok(fx) => {
+                self.overlay = Overlay::None;
+                fx
+            }
+            Err(e) => {
+                if let Overlay::Prompt(p) = &mut self.overlay {
+                    p.error = Some(e);
+                }
+                vec![]
+            }
+        }
+    }
+
+    fn submit_goto(&mut self, axis: usize, text: &str) -> Result<Vec<Effect>, String> {
+        let v: f64 = text.parse().map_err(|_| format!("{text:?} is not a number"))?;
+        let a = self.config.axes.get(axis).ok_or("no such axis")?;
+        let (lo, hi) = (a.limits.soft_min, a.limits.soft_max);
+        if !v.is_finite() || v < lo || v > hi {
+            return Err(format!("outside the soft limits {lo} … {hi} {}", a.scale.unit));
+        }
+        let words = format!("go to {} {}", plain(v), self.unit(axis));
+        Ok(vec![self.command(axis, AxisCommand::MoveTo(v), &words)])
+    }
+
+    fn submit_gain(
+        &mut self,
+        axis: usize,
+        param: Param,
+        text: &str,
+    ) -> Result<Vec<Effect>, String> {
+        let new = gain_edit::edit(&self.config, axis, param, text).map_err(|e| e.to_string())?;
+        let old = self.config.axes.get(axis).map_or(0.0, |a| param.get(&a.controller));
+        let controller = new.axes[axis].controller.clone();
+        self.config = new;
+        let words = format!(
+            "{} {} → {} (live; w writes it to the file)",
+            param.key(),
+            plain(old),
+            plain(param.get(&controller))
+        );
+        Ok(vec![self.command(axis, AxisCommand::SetController(controller), &words)])
+    }
+
+    /// Takes news from background work.
+    pub fn on_notice(&mut self, now: Duration, notice: Notice) {
+        self.now = self.now.max(now);
+        match notice {
+            Notice::Reply { result: Ok(()), .. } => {}
+            Notice::Reply { axis, what, result: Err(why) } => {
+                let name = self.name(axis).to_owned();
+                self.note(Kind::Refused, format!("{name}: {what} refused: {why}"));
+            }
+            Notice::Saved { result: Ok(report), controllers, new_file } => {
+                self.saved = controllers;
+                if new_file {
+                    self.source = ConfigSource::File(report.path.clone());
+                }
+                let keys = if report.changed.is_empty() {
+                    "nothing changed".to_owned()
+                } else {
+                    report.changed.join(", ")
+                };
+                let backup = report
+                    .backup
+                    .map(|b| format!("; previous file kept as {}", b.display()))
+                    .unwrap_or_default();
+                self.note(Kind::Info, format!("saved {}: {keys}{backup}", report.path.display()));
+            }
+            Notice::Saved { result: Err(e), .. } => {
+                self.note(Kind::Refused, format!("not saved: {e}"))
+            }
+        }
+    }
+
+    /// Takes the latest snapshot of every axis at cockpit time `now`, with stop-all's latch.
+    pub fn observe(&mut self, now: Duration, snaps: &[AxisSnapshot], stop_latched: bool) {
+        self.now = self.now.max(now);
+        self.stop_latched = stop_latched;
+        let t = now.as_secs_f64();
+        for (i, s) in snaps.iter().enumerate().take(self.axes.len()) {
+            let events = diff(&self.axes[i], s);
+            for (kind, text) in events {
+                self.log.push(now, kind, text);
+            }
+            let v = &mut self.axes[i];
+            if s.link.bad_frames > v.bad_logged || s.link.missed > v.missed_logged {
+                let due =
+                    v.link_logged_at.is_none_or(|at| now.saturating_sub(at) >= LINK_LOG_PERIOD);
+                if due {
+                    let text = format!(
+                        "{}: {} bad, {} missed frames (total {} bad, {} missed)",
+                        s.axis,
+                        s.link.bad_frames - v.bad_logged,
+                        s.link.missed.saturating_sub(v.missed_logged),
+                        s.link.bad_frames,
+                        s.link.missed
+                    );
+                    v.bad_logged = s.link.bad_frames;
+                    v.missed_logged = s.link.missed;
+                    v.link_logged_at = Some(now);
+                    self.log.push(now, Kind::Link, text);
+                }
+            }
+            let v = &mut self.axes[i];
+            v.history.push(Sample::of(t, s));
+            if v.snap != *s {
+                v.snap.clone_from(s);
+            }
+        }
+    }
+}
+
+/// Events worth logging between the previous snapshot of an axis and the new one.
+fn diff(view: &AxisView, new: &AxisSnapshot) -> Vec<(Kind, String)> {
+    let old = &view.snap;
+    let mut out = Vec::new();
+    let (name, u, d) = (&new.axis, &new.unit, view.decimals);
+    if new.link.link_ups > old.link.link_ups {
+        let n = new.link.link_ups;
+        out.push((Kind::Link, format!("{name}: link up (#{n}), {}", new.state)));
+    }
+    if new.state == AxisState::Offline && old.state != AxisState::Offline {
+        out.push((Kind::Link, format!("{name}: link down")));
+    }
+    match (&old.trip, &new.trip) {
+        (None, Some(t)) => out.push((
+            Kind::Trip,
+            format!(
+                "{name}: {} at {} s: fe {} {u}, pos {}, tgt {}, duty {} %, v {} {u}/s: {}",
+                t.cause,
+                num(t.at_s, 3, 0),
+                num(t.following_error, d, 0),
+                num(t.position, d, 0),
+                num(t.target, d, 0),
+                num(t.duty, 1, 0),
+                num(t.velocity, 1, 0),
+                t.detail
+            ),
+        )),
+        (Some(_), None) => out.push((Kind::State, format!("{name}: trip cleared"))),
+        _ => {}
+    }
+    // Trips, link changes and link-up have their own entries with more to say.
+    let covered = matches!(new.state, AxisState::Tripped | AxisState::Offline)
+        || old.state == AxisState::Offline;
+    if new.state != old.state && !covered {
+        out.push((Kind::State, format!("{name}: {} → {}", old.state, new.state)));
+    }
+    if new.homed && !old.homed {
+        out.push((Kind::State, format!("{name}: homed")));
+    }
+    out
+}

@@ -1,0 +1,122 @@
+//! The cockpit: a keyboard-driven terminal UI for every axis of a machine.
+//!
+//! # Layout
+//! - [`action`]: what the operator asked for ([`action::Action`]) and what must happen
+//!   outside the cockpit's state ([`action::Effect`]).
+//! - [`keys`]: the keymap table (key → action per mode), which the help overlay prints.
+//! - [`app`]: the cockpit's state; applies actions, samples snapshots, derives the event log.
+//! - [`history`], [`event_log`]: ring buffers of sampled values; the event log.
+//! - [`jog`]: jog settings and the one place jog/home keys meet the engine.
+//! - [`gain_edit`], [`save`]: checking a typed gain; saving gains into the file atomically.
+//! - [`ui`]: drawing, a pure function of the state.
+//! - [`runner`]: the event loop; [`port`]: the trait the loop needs from a machine.
+//! - [`terminal`], [`logging`], [`engine_thread`]: terminal lifecycle, the log file, and
+//!   running the machine on its own thread.
+//!
+//! [`run`] is what `servotty` and `servotty cockpit` call.
+
+pub mod action;
+pub mod app;
+pub mod engine_thread;
+pub mod event_log;
+pub mod format;
+pub mod gain_edit;
+pub mod history;
+pub mod jog;
+pub mod keys;
+pub mod logging;
+pub mod port;
+pub mod runner;
+pub mod save;
+pub mod terminal;
+pub mod theme;
+pub mod ui;
+
+use std::io::IsTerminal as _;
+use std::sync::Arc;
+
+pub use app::App;
+pub use theme::Theme;
+
+use crate::cli::{MachineArgs, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
+use engine_thread::{EngineStartError, EngineThread};
+
+/// Opens the cockpit on the machine `args` name; returns the process exit code.
+///
+/// Configuration errors are reported on stderr before the terminal is touched. Whatever
+/// happens after, every motor is off when this returns.
+pub fn run(args: &MachineArgs) -> u8 {
+    let (cfg, source) = match args.load() {
+        Ok(c) => c,
+        Err(e) => {
+            eprintln!("servotty: {e}");
+            return EXIT_USAGE;
+        }
+    };
+    if !(std::io::stdin().is_terminal() && std::io::stdout().is_terminal()) {
+        eprintln!(
+            "servotty: the cockpit needs a terminal; for scripts use `servotty move` or \
+             `servotty linktest`"
+        );
+        return EXIT_USAGE;
+    }
+    let log_file = logging::init();
+    let engine = match EngineThread::start(cfg.clone(), args.ports.clone()) {
+        Ok(e) => e,
+        Err(e) => {
+            eprintln!("servotty: {e}");
+            return match e {
+                EngineStartError::Start(_) => EXIT_USAGE,
+                EngineStartError::Os(_) => EXIT_FAILED,
+            };
+        }
+    };
+    let rt = match crate::cli::runtime() {
+        Ok(rt) => rt,
+        Err(e) => {
+            eprintln!("servotty: cannot start the runtime: {e}");
+            return EXIT_FAILED;
+        }
+    };
+    let mut app = App::new(cfg, source, Theme::from_env());
+    app.log_file = log_file;
+    let port = Arc::new(engine.handle().clone());
+    let result = rt.block_on(async {
+        let mut session = terminal::Session::enter()
+            .map_err(|e| format!("cannot take over the terminal: {e}"))?;
+        let events = crossterm::event::EventStream::new();
+        runner::run(&mut session.terminal, events, port, &mut app, hangup())
+            .await
+            .map_err(|e| e.to_string())
+        // `session` drops here: the terminal is restored before anything is printed.
+    });
+    // Motors off and tasks joined before the process reports anything.
+    engine.shutdown();
+    match result {
+        Ok(()) => EXIT_OK,
+        Err(e) => {
+            eprintln!("servotty: {e}");
+            EXIT_FAILED
+        }
+    }
+}
+
+/// Resolves when the process is asked to end from outside: SIGTERM, or SIGHUP when an SSH
+/// session drops. The cockpit then quits as if confirmed, which turns every motor off.
+async fn hangup() {
+    #[cfg(unix)]
+    {
+        use tokio::signal::unix::{signal, SignalKind};
+        match (signal(SignalKind::terminate()), signal(SignalKind::hangup())) {
+            (Ok(mut term), Ok(mut hup)) => {
+                tokio::select! {
+                    _ = term.recv() => {}
+                    _ = hup.recv() => {}
+                }
+            }
+            _ => std::future::pending().await,
+        }
+    }
+    #[cfg(not(unix))]
+    std::future::pending::<()>().await;
+}

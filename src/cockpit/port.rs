@@ -1,0 +1,64 @@
+//! The cockpit's whole view of the engine, as a small trait.
+//!
+//! The runner needs four things from a machine: the latest snapshots, stop-all (set,
+//! release, read) and a way to send one command to one axis. Behind a trait, tests drive the
+//! real event loop with a fake machine, and the UI cannot grow a dependency on engine
+//! internals.
+
+use std::future::Future;
+
+use crate::engine::{AxisCommand, AxisSnapshot, CommandError, MachineHandle};
+
+/// What the cockpit needs from a running machine.
+pub trait MachinePort: Send + Sync + 'static {
+    /// Replaces `out` with every axis's latest snapshot, in configuration order.
+    fn snapshots_into(&self, out: &mut Vec<AxisSnapshot>);
+    /// Latches stop-all. Must never wait.
+    fn stop_all(&self);
+    /// Releases stop-all.
+    fn release_stop_all(&self);
+    /// Whether stop-all is latched.
+    fn stop_all_latched(&self) -> bool;
+    /// Sends `command` to axis `axis` and resolves to its answer; `Err` carries the reason in
+    /// words. The cockpit awaits this only in a background task.
+    fn send(
+        &self,
+        axis: usize,
+        command: AxisCommand,
+    ) -> impl Future<Output = Result<(), String>> + Send + 'static;
+}
+
+impl MachinePort for MachineHandle {
+    fn snapshots_into(&self, out: &mut Vec<AxisSnapshot>) {
+        out.clear();
+        out.extend(self.axes().iter().map(crate::engine::AxisHandle::snapshot));
+    }
+
+    fn stop_all(&self) {
+        MachineHandle::stop_all(self);
+    }
+
+    fn release_stop_all(&self) {
+        MachineHandle::release_stop_all(self);
+    }
+
+    fn stop_all_latched(&self) -> bool {
+        MachineHandle::stop_all_latched(self)
+    }
+
+    fn send(
+        &self,
+        axis: usize,
+        command: AxisCommand,
+    ) -> impl Future<Output = Result<(), String>> + Send + 'static {
+        let handle = self.axes().get(axis).cloned();
+        async move {
+            let Some(h) = handle else { return Err(format!("no axis number {axis}")) };
+            match h.send(command).await {
+                Ok(_) => Ok(()),
+                Err(CommandError::Refused { reason, .. }) => Err(reason),
+                Err(CommandError::Gone(_)) => Err("the axis task has stopped".to_owned()),
+            }
+        }
+    }
+}

@@ -1,0 +1,212 @@
+//! The event loop: one `select!` over terminal input, the frame clock, notices from
+//! background work and an outside stop request.
+//!
+//! Data flows one way. Each frame the loop samples every axis's latest snapshot (a
+//! latest-value read that never waits) and draws. Keys become actions; actions change the
+//! cockpit's state and yield effects. Stop-all goes to the machine at once, in the same loop
+//! turn as its key. Axis commands go into one small queue per axis, served by a background
+//! task that awaits the axis's answer and reports it as a notice, so the loop never waits
+//! for an axis and commands to one axis stay in order. Saves run on the blocking pool.
+
+use std::future::Future;
+use std::sync::Arc;
+use std::time::Duration;
+
+use crossterm::event::{Event, KeyEventKind};
+use futures::{Stream, StreamExt};
+use ratatui::backend::Backend;
+use ratatui::Terminal;
+use tokio::sync::mpsc::{self, error::TrySendError};
+use tokio::time::{Instant, MissedTickBehavior};
+
+use crate::cockpit::action::Effect;
+use crate::cockpit::app::{App, Notice};
+use crate::cockpit::keys;
+use crate::cockpit::port::MachinePort;
+use crate::cockpit::save;
+use crate::engine::AxisCommand;
+
+/// Time between frames (20 frames/s): smooth enough for numbers and bars, and cheap on an
+/// SSH link because only changed cells are sent.
+pub const FRAME_INTERVAL: Duration = Duration::from_millis(50);
+/// Commands waiting per axis before the cockpit drops new ones (and says so).
+const LANE_DEPTH: usize = 16;
+/// Notices waiting for the loop.
+const NOTICE_DEPTH: usize = 64;
+
+/// Why the cockpit stopped other than by the operator quitting.
+#[derive(Debug, thiserror::Error)]
+pub enum RunError {
+    /// Writing to the terminal failed.
+    #[error("cannot draw: {0}")]
+    Draw(String),
+    /// Reading the terminal failed.
+    #[error("cannot read the terminal: {0}")]
+    Input(std::io::Error),
+    /// The terminal went away.
+    #[error("the terminal closed")]
+    InputClosed,
+    /// Some thread panicked; its message was printed after the terminal was restored.
+    #[error("an internal error stopped the cockpit (message above; details in the log file)")]
+    Panicked,
+}
+
+/// Runs the cockpit until the operator quits, `stop` resolves, or an error.
+///
+/// # Errors
+/// [`RunError`] when the terminal fails or a thread panicked.
+pub async fn run<B, E, P, S>(
+    terminal: &mut Terminal<B>,
+    mut events: E,
+    port: Arc<P>,
+    app: &mut App,
+    stop: S,
+) -> Result<(), RunError>
+where
+    B: Backend,
+    E: Stream<Item = std::io::Result<Event>> + Unpin,
+    P: MachinePort,
+    S: Future<Output = ()>,
+{
+    let (notice_tx, mut notice_rx) = mpsc::channel(NOTICE_DEPTH);
+    let lanes = spawn_lanes(&port, app.axes.len(), &notice_tx);
+    let mut frame = tokio::time::interval(FRAME_INTERVAL);
+    frame.set_missed_tick_behavior(MissedTickBehavior::Skip);
+    let start = Instant::now();
+    let mut snaps = Vec::with_capacity(app.axes.len());
+    let mut dirty = true;
+    tokio::pin!(stop);
+    loop {
+        if crate::cockpit::terminal::panicked() {
+            return Err(RunError::Panicked);
+        }
+        if app.quit {
+            return Ok(());
+        }
+        if dirty {
+            terminal
+                .draw(|f| f.render_widget(&*app, f.area()))
+                .map_err(|e| RunError::Draw(e.to_string()))?;
+            dirty = false;
+        }
+        tokio::select! {
+            biased;
+            ev = events.next() => match ev {
+                Some(Ok(Event::Key(k))) if k.kind == KeyEventKind::Press => {
+                    if let Some(action) = keys::map_key(app.mode(), &k) {
+                        for fx in app.apply(start.elapsed(), action) {
+                            execute(fx, &*port, &lanes, &notice_tx, app, start.elapsed());
+                        }
+                        dirty = true;
+                    }
+                }
+                Some(Ok(Event::Resize(..))) => dirty = true,
+                Some(Ok(_)) => {}
+                Some(Err(e)) => return Err(RunError::Input(e)),
+                None => return Err(RunError::InputClosed),
+            },
+            Some(n) = notice_rx.recv() => {
+                app.on_notice(start.elapsed(), n);
+                dirty = true;
+            }
+            _ = frame.tick() => {
+                port.snapshots_into(&mut snaps);
+                app.observe(start.elapsed(), &snaps, port.stop_all_latched());
+                dirty = true;
+            }
+            () = &mut stop => app.quit = true,
+        }
+    }
+}
+
+/// One background task per axis: sends that axis's commands in order and reports answers.
+fn spawn_lanes<P: MachinePort>(
+    port: &Arc<P>,
+    axes: usize,
+    notices: &mpsc::Sender<Notice>,
+) -> Vec<mpsc::Sender<AxisCommand>> {
+    (0..axes)
+        .map(|axis| {
+            let (tx, mut rx) = mpsc::channel::<AxisCommand>(LANE_DEPTH);
+            let (port, notices) = (Arc::clone(port), notices.clone());
+            tokio::spawn(async move {
+                while let Some(command) = rx.recv().await {
+                    let what = describe(&command).to_owned();
+                    let result = port.send(axis, command).await;
+                    if notices.send(Notice::Reply { axis, what, result }).await.is_err() {
+                        return;
+                    }
+                }
+            });
+            tx
+        })
+        .collect()
+}
+
+fn describe(c: &AxisCommand) -> &'static str {
+    match c {
+        AxisCommand::Enable => "enable",
+        AxisCommand::Disable => "disable",
+        AxisCommand::MoveTo(_) => "go to",
+        AxisCommand::Stop => "stop",
+        AxisCommand::ClearTrip => "clear trip",
+        AxisCommand::SetController(_) => "new gains",
+        AxisCommand::LinkReport { .. } => "link report",
+    }
+}
+
+/// Carries out one effect without waiting.
+fn execute<P: MachinePort>(
+    effect: Effect,
+    port: &P,
+    lanes: &[mpsc::Sender<AxisCommand>],
+    notices: &mpsc::Sender<Notice>,
+    app: &mut App,
+    now: Duration,
+) {
+    match effect {
+        Effect::StopAll => port.stop_all(),
+        Effect::ReleaseStopAll => port.release_stop_all(),
+        Effect::Command { axis, command } => {
+            let what = describe(&command).to_owned();
+            let why = match lanes.get(axis) {
+                Some(lane) => match lane.try_send(command) {
+                    Ok(()) => return,
+                    Err(TrySendError::Full(_)) => "too many commands waiting; this one dropped",
+                    Err(TrySendError::Closed(_)) => "the axis is not reachable",
+                },
+                None => "the axis is not reachable",
+            };
+            app.on_notice(now, Notice::Reply { axis, what, result: Err(why.to_owned()) });
+        }
+        Effect::SaveGains { path, config } => {
+            spawn_save(notices.clone(), config, false, move |c| save::save_controllers(&path, c));
+        }
+        Effect::WriteCopy { path, config } => {
+            spawn_save(notices.clone(), config, true, move |c| {
+                save::write_copy(&path, crate::config::DEMO_CONFIG, c)
+            });
+        }
+    }
+}
+
+/// Runs a save on the blocking pool (fsync can take a long time) and reports the outcome.
+fn spawn_save<F>(
+    notices: mpsc::Sender<Notice>,
+    config: crate::config::MachineConfig,
+    new_file: bool,
+    job: F,
+) where
+    F: FnOnce(&crate::config::MachineConfig) -> Result<save::SaveReport, save::SaveError>
+        + Send
+        + 'static,
+{
+    tokio::spawn(async move {
+        let controllers = config.axes.iter().map(|a| a.controller.clone()).collect();
+        let result = tokio::task::spawn_blocking(move || job(&config))
+            .await
+            .map_err(|e| format!("the save task failed: {e}"))
+            .and_then(|r| r.map_err(|e| e.to_string()));
+        let _ = notices.send(Notice::Saved { result, controllers, new_file }).await;
+    });
+}

@@ -1,0 +1,270 @@
+//! The cockpit's state machine: actions → state and effects, snapshots → event log. Plain
+//! data in, plain data out; no terminal, no engine.
+mod cockpit_support;
+
+use cockpit_support as s;
+use servotty::cockpit::action::{Action, Dir, Effect};
+use servotty::cockpit::app::{Notice, Overlay, Purpose, Screen, JOG_HOME_MISSING};
+use servotty::cockpit::event_log::Kind;
+use servotty::cockpit::{App, Theme};
+use servotty::config::ConfigSource;
+use servotty::engine::{AxisCommand, AxisState};
+
+fn now() -> std::time::Duration {
+    s::at(200)
+}
+
+fn type_text(app: &mut App, text: &str) {
+    for c in text.chars() {
+        app.apply(now(), Action::EntryChar(c));
+    }
+}
+
+fn log_texts(app: &App) -> Vec<String> {
+    app.log.entries().iter().map(|e| e.text.clone()).collect()
+}
+
+#[test]
+fn stop_all_goes_out_at_once_and_shows_latched() {
+    let mut app = s::normal();
+    assert_eq!(app.apply(now(), Action::StopAll), vec![Effect::StopAll]);
+    assert!(app.stop_latched);
+    assert_eq!(app.apply(now(), Action::ReleaseStopAll), vec![Effect::ReleaseStopAll]);
+    assert!(!app.stop_latched);
+    // Releasing when not latched does nothing (and says so).
+    assert_eq!(app.apply(now(), Action::ReleaseStopAll), vec![]);
+}
+
+#[test]
+fn stop_all_inside_a_prompt_keeps_the_prompt() {
+    let mut app = s::normal();
+    app.apply(now(), Action::GoTo);
+    type_text(&mut app, "12");
+    assert_eq!(app.apply(now(), Action::StopAll), vec![Effect::StopAll]);
+    let Overlay::Prompt(p) = &app.overlay else { panic!("prompt closed") };
+    assert_eq!(p.text, "12");
+}
+
+#[test]
+fn axis_commands_go_to_the_selected_axis() {
+    let mut app = s::normal();
+    app.apply(now(), Action::SelectNext);
+    assert_eq!(
+        app.apply(now(), Action::Enable),
+        vec![Effect::Command { axis: 1, command: AxisCommand::Enable }]
+    );
+    app.apply(now(), Action::SelectAxis(2));
+    assert_eq!(
+        app.apply(now(), Action::StopAxis),
+        vec![Effect::Command { axis: 2, command: AxisCommand::Stop }]
+    );
+    assert_eq!(app.apply(now(), Action::DisableAll).len(), 3);
+    // Selecting a number past the last axis changes nothing.
+    app.apply(now(), Action::SelectAxis(7));
+    assert_eq!(app.selected, 2);
+}
+
+#[test]
+fn clear_all_only_touches_tripped_axes() {
+    let mut app = s::tripped();
+    assert_eq!(
+        app.apply(now(), Action::ClearAllTrips),
+        vec![Effect::Command { axis: 0, command: AxisCommand::ClearTrip }]
+    );
+    let mut calm = s::normal();
+    assert_eq!(calm.apply(now(), Action::ClearAllTrips), vec![]);
+}
+
+#[test]
+fn go_to_checks_soft_limits_before_sending() {
+    let mut app = s::normal();
+    app.apply(now(), Action::GoTo);
+    type_text(&mut app, "1500");
+    assert_eq!(app.apply(now(), Action::EntrySubmit), vec![]);
+    let Overlay::Prompt(p) = &app.overlay else { panic!("prompt closed") };
+    assert!(p.error.as_deref().is_some_and(|e| e.contains("soft limits")), "{p:?}");
+    for _ in 0..4 {
+        app.apply(now(), Action::EntryBackspace);
+    }
+    type_text(&mut app, "300.5");
+    assert_eq!(
+        app.apply(now(), Action::EntrySubmit),
+        vec![Effect::Command { axis: 0, command: AxisCommand::MoveTo(300.5) }]
+    );
+    assert_eq!(app.overlay, Overlay::None);
+}
+
+#[test]
+fn jog_and_home_say_they_are_not_there_yet() {
+    let mut app = s::normal();
+    let before = app.log.len();
+    for a in
+        [Action::JogStep(Dir::Plus), Action::JogHold(Dir::Minus), Action::Home, Action::HomeAll]
+    {
+        assert_eq!(app.apply(now(), a), vec![], "{a:?}");
+    }
+    // Repeats fold into one entry with a count.
+    assert_eq!(app.log.len(), before + 1);
+    let last = app.log.last().expect("entry");
+    assert_eq!(last.text, JOG_HOME_MISSING);
+    assert_eq!(last.count, 4);
+}
+
+#[test]
+fn jog_step_and_speed_change() {
+    let mut app = s::normal();
+    let (step, speed) = (app.jog.step(), app.jog.speed_percent());
+    app.apply(now(), Action::StepLarger);
+    app.apply(now(), Action::SpeedHigher);
+    assert!(app.jog.step() > step && app.jog.speed_percent() > speed);
+}
+
+#[test]
+fn quitting_asks_only_when_a_motor_is_on() {
+    let mut app = s::normal(); // x moving, y holding
+    app.apply(now(), Action::Quit);
+    assert_eq!(app.overlay, Overlay::ConfirmQuit);
+    assert!(!app.quit);
+    app.apply(now(), Action::CancelQuit);
+    assert_eq!(app.overlay, Overlay::None);
+    app.apply(now(), Action::Quit);
+    app.apply(now(), Action::ConfirmQuit);
+    assert!(app.quit);
+
+    let mut idle = App::new(s::demo(), ConfigSource::BuiltInDemo, Theme::default());
+    let mut f = s::frame(0);
+    for a in &mut f {
+        a.state = AxisState::Disabled;
+    }
+    idle.observe(now(), &f, false);
+    idle.apply(now(), Action::Quit);
+    assert!(idle.quit, "nothing on: quit at once");
+}
+
+#[test]
+fn a_gain_is_checked_applied_live_and_marked_unsaved() {
+    let mut app = s::normal();
+    app.apply(now(), Action::OpenDetail);
+    app.apply(now(), Action::EditParam); // kp, prefilled with 8
+    let Overlay::Prompt(p) = &app.overlay else { panic!("no prompt") };
+    assert_eq!(p.text, "8");
+    assert!(matches!(p.purpose, Purpose::Gain { axis: 0, .. }));
+    app.apply(now(), Action::EntryBackspace);
+    type_text(&mut app, "abc");
+    assert_eq!(app.apply(now(), Action::EntrySubmit), vec![]);
+    for _ in 0..3 {
+        app.apply(now(), Action::EntryBackspace);
+    }
+    type_text(&mut app, "9.5");
+    let fx = app.apply(now(), Action::EntrySubmit);
+    let [Effect::Command { axis: 0, command: AxisCommand::SetController(c) }] = fx.as_slice()
+    else {
+        panic!("{fx:?}")
+    };
+    assert_eq!(c.kp, 9.5);
+    assert_eq!(app.config.axes[0].controller.kp, 9.5);
+    assert!(app.unsaved());
+    assert!(log_texts(&app).iter().any(|t| t.contains("kp 8 → 9.5")));
+}
+
+#[test]
+fn a_gain_the_configuration_check_refuses_never_reaches_the_axis() {
+    let mut app = s::normal();
+    app.apply(now(), Action::OpenDetail);
+    // max_duty below min_duty_forward (12): the file loader would refuse it.
+    let max_duty = app.params().iter().position(|p| p.key() == "max_duty").expect("listed");
+    for _ in 0..max_duty {
+        app.apply(now(), Action::ParamNext);
+    }
+    app.apply(now(), Action::EditParam);
+    for _ in 0..3 {
+        app.apply(now(), Action::EntryBackspace);
+    }
+    type_text(&mut app, "10");
+    assert_eq!(app.apply(now(), Action::EntrySubmit), vec![]);
+    let Overlay::Prompt(p) = &app.overlay else { panic!("prompt closed") };
+    assert!(p.error.as_deref().is_some_and(|e| e.contains("max_duty")), "{p:?}");
+    assert!(!app.unsaved());
+}
+
+#[test]
+fn saving_the_demo_offers_a_copy_and_then_uses_it() {
+    let mut app = s::normal();
+    assert_eq!(app.apply(now(), Action::SaveGains), vec![], "nothing to save yet");
+    app.config.axes[0].controller.kp = 9.0;
+    assert_eq!(app.apply(now(), Action::SaveGains), vec![]);
+    let Overlay::Prompt(p) = &app.overlay else { panic!("no prompt") };
+    assert_eq!(p.purpose, Purpose::SaveCopy);
+    let fx = app.apply(now(), Action::EntrySubmit);
+    assert!(matches!(fx.as_slice(), [Effect::WriteCopy { .. }]), "{fx:?}");
+    let report = servotty::cockpit::save::SaveReport {
+        path: "servotty.toml".into(),
+        backup: None,
+        changed: vec!["x.controller.kp".into()],
+    };
+    let controllers = app.config.axes.iter().map(|a| a.controller.clone()).collect();
+    app.on_notice(now(), Notice::Saved { result: Ok(report), controllers, new_file: true });
+    assert_eq!(app.source, ConfigSource::File("servotty.toml".into()));
+    assert!(!app.unsaved());
+    app.config.axes[0].controller.kp = 9.5;
+    let fx = app.apply(now(), Action::SaveGains);
+    assert!(
+        matches!(fx.as_slice(), [Effect::SaveGains { path, .. }] if path.as_os_str() == "servotty.toml")
+    );
+}
+
+#[test]
+fn refusals_are_logged_with_the_reason() {
+    let mut app = s::normal();
+    app.on_notice(
+        now(),
+        Notice::Reply { axis: 2, what: "enable".into(), result: Err("stop-all is latched".into()) },
+    );
+    let e = app.log.last().expect("entry");
+    assert_eq!(e.kind, Kind::Refused);
+    assert_eq!(e.text, "z: enable refused: stop-all is latched");
+}
+
+#[test]
+fn a_trip_is_logged_once_with_its_values() {
+    let app = s::tripped();
+    let trips: Vec<_> = app.log.entries().iter().filter(|e| e.kind == Kind::Trip).collect();
+    assert_eq!(trips.len(), 1, "{trips:?}");
+    let t = &trips[0].text;
+    for want in ["x: following error", "fe 3.36 mm", "duty 100.0 %", "slipping belt"] {
+        assert!(t.contains(want), "{want:?} not in {t:?}");
+    }
+    assert_eq!(trips[0].clock(), "00:00:07.5");
+}
+
+#[test]
+fn link_changes_are_logged() {
+    let mut app = s::normal();
+    let mut f = s::frame(200);
+    f[1].state = AxisState::Offline;
+    f[2].link.bad_frames = 10;
+    app.observe(s::at(201), &f, false);
+    let texts = log_texts(&app);
+    assert!(texts.iter().any(|t| t == "y: link down"), "{texts:?}");
+    assert!(texts.iter().any(|t| t.starts_with("z: 7 bad")), "{texts:?}");
+    // A burst of bad frames right after is held back, not logged frame by frame.
+    f[2].link.bad_frames = 12;
+    app.observe(s::at(202), &f, false);
+    assert!(!log_texts(&app).iter().any(|t| t.starts_with("z: 2 bad")));
+}
+
+#[test]
+fn screens_and_log_scrolling() {
+    let mut app = s::normal();
+    app.apply(now(), Action::OpenDetail);
+    app.apply(now(), Action::ToggleLog);
+    assert_eq!(app.screen, Screen::Log);
+    app.apply(now(), Action::PageUp);
+    assert!(app.log_back > 0);
+    app.apply(now(), Action::ScrollEnd);
+    assert_eq!(app.log_back, 0);
+    app.apply(now(), Action::ToggleLog);
+    assert_eq!(app.screen, Screen::Detail, "the log returns where it was opened");
+    app.apply(now(), Action::Back);
+    assert_eq!(app.screen, Screen::Overview);
+}

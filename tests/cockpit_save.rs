@@ -1,0 +1,138 @@
+//! Saving gains into a configuration file: only the changed values change, comments and
+//! layout stay, the previous file is kept as `.bak`, and a value the loader would refuse is
+//! never written.
+
+use std::fs;
+
+use servotty::cockpit::gain_edit::{self, Param};
+use servotty::cockpit::save::{save_controllers, update_text, write_copy, SaveError};
+use servotty::config::{MachineConfig, DEMO_CONFIG};
+
+fn demo_in(dir: &tempfile::TempDir) -> std::path::PathBuf {
+    let p = dir.path().join("gantry.toml");
+    fs::write(&p, DEMO_CONFIG).expect("write");
+    p
+}
+
+/// Lines of `a` and `b` that differ, as (line number, old, new).
+fn changed_lines<'a>(a: &'a str, b: &'a str) -> Vec<(usize, &'a str, &'a str)> {
+    assert_eq!(a.lines().count(), b.lines().count(), "line count changed");
+    a.lines()
+        .zip(b.lines())
+        .enumerate()
+        .filter(|(_, (x, y))| x != y)
+        .map(|(i, (x, y))| (i + 1, x, y))
+        .collect()
+}
+
+#[test]
+fn one_gain_changes_one_line_and_keeps_a_backup() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let path = demo_in(&dir);
+    let cfg = MachineConfig::load(&path).expect("loads");
+    let live = gain_edit::edit(&cfg, 0, Param::Kp, "9.5").expect("valid");
+    let report = save_controllers(&path, &live).expect("saved");
+    assert_eq!(report.changed, ["x.controller.kp"]);
+    let new = fs::read_to_string(&path).expect("read");
+    let diff = changed_lines(DEMO_CONFIG, &new);
+    assert_eq!(diff.len(), 1, "{diff:?}");
+    assert_eq!(diff[0].1.trim(), "kp = 8.0");
+    assert_eq!(diff[0].2.trim(), "kp = 9.5");
+    // Comments survive, including the header and trailing ones.
+    assert!(new.contains("# 20-tooth pulley, 2 mm belt pitch"));
+    assert!(new.starts_with("# Demo machine"));
+    let bak = dir.path().join("gantry.toml.bak");
+    assert_eq!(report.backup.as_deref(), Some(bak.as_path()));
+    assert_eq!(fs::read_to_string(&bak).expect("bak"), DEMO_CONFIG);
+    assert_eq!(MachineConfig::load(&path).expect("reloads").axes[0].controller.kp, 9.5);
+    // No temporary file is left behind.
+    let names: Vec<_> =
+        fs::read_dir(dir.path()).expect("ls").map(|e| e.expect("entry").file_name()).collect();
+    assert_eq!(names.len(), 2, "{names:?}");
+}
+
+#[test]
+fn a_trailing_comment_on_the_value_stays() {
+    let text = DEMO_CONFIG.replacen("kp = 40.0", "kp = 40.0    # tuned by hand, keep", 1);
+    let cfg = MachineConfig::from_toml_str(&text, "t").expect("valid");
+    let live = gain_edit::edit(&cfg, 2, Param::Kp, "35").expect("valid");
+    let (out, changed) = update_text(&text, "t", &live).expect("updated");
+    assert_eq!(changed, ["z.controller.kp"]);
+    let diff = changed_lines(&text, &out);
+    assert_eq!(diff.len(), 1);
+    assert_eq!(diff[0].2, "kp = 35.0    # tuned by hand, keep");
+}
+
+#[test]
+fn a_key_the_file_left_to_its_default_is_added_to_that_axis() {
+    // y's controller table has no ff_static line.
+    let cfg = MachineConfig::from_toml_str(DEMO_CONFIG, "t").expect("valid");
+    let live = gain_edit::edit(&cfg, 1, Param::FfStatic, "2.5").expect("valid");
+    let (out, changed) = update_text(DEMO_CONFIG, "t", &live).expect("updated");
+    assert_eq!(changed, ["y.controller.ff_static"]);
+    let back = MachineConfig::from_toml_str(&out, "t").expect("reloads");
+    assert_eq!(back.axes[1].controller.ff_static, 2.5);
+    assert_eq!(back.axes[0].controller.ff_static, 0.0);
+    assert_eq!(back.axes[2].controller.ff_static, 0.0);
+    assert_eq!(out.lines().count(), DEMO_CONFIG.lines().count() + 1);
+}
+
+#[test]
+fn a_bad_value_is_refused_and_the_file_is_untouched() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let path = demo_in(&dir);
+    let mut live = MachineConfig::load(&path).expect("loads");
+    // Built by hand, past the prompt's check: the save must still refuse it.
+    live.axes[0].controller.kp = -1.0;
+    let err = save_controllers(&path, &live).expect_err("refused");
+    assert!(matches!(err, SaveError::Refused(_)), "{err}");
+    assert!(err.to_string().contains("kp"), "{err}");
+    assert_eq!(fs::read_to_string(&path).expect("read"), DEMO_CONFIG);
+    assert!(!dir.path().join("gantry.toml.bak").exists());
+}
+
+#[test]
+fn the_prompt_check_refuses_what_the_loader_would() {
+    let cfg = MachineConfig::demo().expect("demo");
+    for (p, text) in
+        [(Param::Kp, "-1"), (Param::MaxDuty, "150"), (Param::MaxDuty, "5"), (Param::Kd, "nan")]
+    {
+        assert!(gain_edit::edit(&cfg, 0, p, text).is_err(), "{} = {text}", p.key());
+    }
+    assert!(gain_edit::edit(&cfg, 0, Param::Kd, " 0.2 ").is_ok());
+}
+
+#[test]
+fn an_axis_missing_from_the_file_is_an_error() {
+    let mut live = MachineConfig::demo().expect("demo");
+    live.axes[0].name = "w".into();
+    let err = update_text(DEMO_CONFIG, "t", &live).expect_err("no axis w");
+    assert!(err.to_string().contains("\"w\""), "{err}");
+}
+
+#[test]
+fn a_copy_never_overwrites() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let mut live = MachineConfig::demo().expect("demo");
+    live.axes[0].controller.ki = 25.0;
+    let path = dir.path().join("mine.toml");
+    let report = write_copy(&path, DEMO_CONFIG, &live).expect("written");
+    assert_eq!(report.changed, ["x.controller.ki"]);
+    assert_eq!(MachineConfig::load(&path).expect("loads").axes[0].controller.ki, 25.0);
+    let err = write_copy(&path, DEMO_CONFIG, &live).expect_err("exists");
+    assert!(matches!(err, SaveError::Exists(_)));
+}
+
+#[cfg(unix)]
+#[test]
+fn saving_through_a_symlink_keeps_the_link() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let real = demo_in(&dir);
+    let link = dir.path().join("current.toml");
+    std::os::unix::fs::symlink(&real, &link).expect("symlink");
+    let live = gain_edit::edit(&MachineConfig::load(&link).expect("loads"), 0, Param::Ki, "21")
+        .expect("ok");
+    save_controllers(&link, &live).expect("saved");
+    assert!(fs::symlink_metadata(&link).expect("meta").file_type().is_symlink());
+    assert_eq!(MachineConfig::load(&real).expect("loads").axes[0].controller.ki, 21.0);
+}
