@@ -4,7 +4,8 @@ mod cockpit_support;
 
 use cockpit_support as s;
 use servotty::cockpit::action::{Action, Dir, Effect};
-use servotty::cockpit::app::{Notice, Overlay, Purpose, Screen, JOG_HOME_MISSING};
+use servotty::cockpit::app::{Notice, Overlay, Purpose, Screen};
+
 use servotty::cockpit::event_log::Kind;
 use servotty::cockpit::{App, Theme};
 use servotty::config::ConfigSource;
@@ -95,28 +96,39 @@ fn go_to_checks_soft_limits_before_sending() {
 }
 
 #[test]
-fn jog_and_home_say_they_are_not_there_yet() {
+fn jog_and_home_keys_become_engine_commands() {
     let mut app = s::normal();
+    let x = app.config.axes[0].jog.clone();
+    let (step, speed) = (app.jog.step(&x), app.jog.speed(&x));
+    assert_eq!(
+        app.apply(now(), Action::JogStep(Dir::Plus)),
+        vec![Effect::Command { axis: 0, command: AxisCommand::JogStep { distance: step, speed } }]
+    );
+    assert_eq!(
+        app.apply(now(), Action::JogHold(Dir::Minus)),
+        vec![Effect::Command { axis: 0, command: AxisCommand::JogPulse { direction: -1, speed } }]
+    );
+    assert_eq!(
+        app.apply(now(), Action::Home),
+        vec![Effect::Command { axis: 0, command: AxisCommand::Home }]
+    );
+    assert_eq!(app.apply(now(), Action::HomeAll), vec![Effect::HomeAll]);
+    // A held key's repeats are not logged one by one.
     let before = app.log.len();
-    for a in
-        [Action::JogStep(Dir::Plus), Action::JogHold(Dir::Minus), Action::Home, Action::HomeAll]
-    {
-        assert_eq!(app.apply(now(), a), vec![], "{a:?}");
+    for _ in 0..30 {
+        app.apply(now(), Action::JogHold(Dir::Minus));
     }
-    // Repeats fold into one entry with a count.
-    assert_eq!(app.log.len(), before + 1);
-    let last = app.log.last().expect("entry");
-    assert_eq!(last.text, JOG_HOME_MISSING);
-    assert_eq!(last.count, 4);
+    assert_eq!(app.log.len(), before);
 }
 
 #[test]
 fn jog_step_and_speed_change() {
     let mut app = s::normal();
-    let (step, speed) = (app.jog.step(), app.jog.speed_percent());
+    let x = app.config.axes[0].jog.clone();
+    let (step, speed) = (app.jog.step(&x), app.jog.speed(&x));
     app.apply(now(), Action::StepLarger);
     app.apply(now(), Action::SpeedHigher);
-    assert!(app.jog.step() > step && app.jog.speed_percent() > speed);
+    assert!(app.jog.step(&x) > step && app.jog.speed(&x) > speed);
 }
 
 #[test]
@@ -145,10 +157,11 @@ fn quitting_asks_only_when_a_motor_is_on() {
 fn a_gain_is_checked_applied_live_and_marked_unsaved() {
     let mut app = s::normal();
     app.apply(now(), Action::OpenDetail);
-    app.apply(now(), Action::EditParam); // kp, prefilled with 8
+    app.apply(now(), Action::EditParam); // kp, prefilled with the demo's 20
     let Overlay::Prompt(p) = &app.overlay else { panic!("no prompt") };
-    assert_eq!(p.text, "8");
+    assert_eq!(p.text, "20");
     assert!(matches!(p.purpose, Purpose::Gain { axis: 0, .. }));
+    app.apply(now(), Action::EntryBackspace);
     app.apply(now(), Action::EntryBackspace);
     type_text(&mut app, "abc");
     assert_eq!(app.apply(now(), Action::EntrySubmit), vec![]);
@@ -164,14 +177,14 @@ fn a_gain_is_checked_applied_live_and_marked_unsaved() {
     assert_eq!(c.kp, 9.5);
     assert_eq!(app.config.axes[0].controller.kp, 9.5);
     assert!(app.unsaved());
-    assert!(log_texts(&app).iter().any(|t| t.contains("kp 8 → 9.5")));
+    assert!(log_texts(&app).iter().any(|t| t.contains("kp 20 → 9.5")));
 }
 
 #[test]
 fn a_gain_the_configuration_check_refuses_never_reaches_the_axis() {
     let mut app = s::normal();
     app.apply(now(), Action::OpenDetail);
-    // max_duty below min_duty_forward (12): the file loader would refuse it.
+    // max_duty below min_duty_forward (8.5): the file loader would refuse it.
     let max_duty = app.params().iter().position(|p| p.key() == "max_duty").expect("listed");
     for _ in 0..max_duty {
         app.apply(now(), Action::ParamNext);
@@ -180,7 +193,7 @@ fn a_gain_the_configuration_check_refuses_never_reaches_the_axis() {
     for _ in 0..3 {
         app.apply(now(), Action::EntryBackspace);
     }
-    type_text(&mut app, "10");
+    type_text(&mut app, "8");
     assert_eq!(app.apply(now(), Action::EntrySubmit), vec![]);
     let Overlay::Prompt(p) = &app.overlay else { panic!("prompt closed") };
     assert!(p.error.as_deref().is_some_and(|e| e.contains("max_duty")), "{p:?}");

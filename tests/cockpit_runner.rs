@@ -82,6 +82,11 @@ impl MachinePort for FakeMachine {
         s.sent.push((axis, command));
         async move { answer }
     }
+
+    #[allow(clippy::manual_async_fn)] // the trait's signature asks for `+ Send + 'static`
+    fn home_all(&self) -> impl Future<Output = Result<(), String>> + Send + 'static {
+        async { Ok(()) }
+    }
 }
 
 fn press(c: KeyCode) -> std::io::Result<Event> {

@@ -36,7 +36,7 @@ fn one_gain_changes_one_line_and_keeps_a_backup() {
     let new = fs::read_to_string(&path).expect("read");
     let diff = changed_lines(DEMO_CONFIG, &new);
     assert_eq!(diff.len(), 1, "{diff:?}");
-    assert_eq!(diff[0].1.trim(), "kp = 8.0");
+    assert_eq!(diff[0].1.trim(), "kp = 20.0");
     assert_eq!(diff[0].2.trim(), "kp = 9.5");
     // Comments survive, including the header and trailing ones.
     assert!(new.contains("# 20-tooth pulley, 2 mm belt pitch"));
@@ -65,15 +65,17 @@ fn a_trailing_comment_on_the_value_stays() {
 
 #[test]
 fn a_key_the_file_left_to_its_default_is_added_to_that_axis() {
-    // y's controller table has no ff_static line.
+    // y's controller table has no tracking_time_s line.
     let cfg = MachineConfig::from_toml_str(DEMO_CONFIG, "t").expect("valid");
-    let live = gain_edit::edit(&cfg, 1, Param::FfStatic, "2.5").expect("valid");
+    assert!(!DEMO_CONFIG.contains("tracking_time_s"));
+    let default = cfg.axes[1].controller.tracking_time_s;
+    let live = gain_edit::edit(&cfg, 1, Param::TrackingTime, "0.08").expect("valid");
     let (out, changed) = update_text(DEMO_CONFIG, "t", &live).expect("updated");
-    assert_eq!(changed, ["y.controller.ff_static"]);
+    assert_eq!(changed, ["y.controller.tracking_time_s"]);
     let back = MachineConfig::from_toml_str(&out, "t").expect("reloads");
-    assert_eq!(back.axes[1].controller.ff_static, 2.5);
-    assert_eq!(back.axes[0].controller.ff_static, 0.0);
-    assert_eq!(back.axes[2].controller.ff_static, 0.0);
+    assert_eq!(back.axes[1].controller.tracking_time_s, 0.08);
+    assert_eq!(back.axes[0].controller.tracking_time_s, default);
+    assert_eq!(back.axes[2].controller.tracking_time_s, default);
     assert_eq!(out.lines().count(), DEMO_CONFIG.lines().count() + 1);
 }
 

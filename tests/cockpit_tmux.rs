@@ -57,8 +57,6 @@ fn tmux_present() -> bool {
 }
 
 #[test]
-#[ignore = "needs the real control, plant and protocol modules (stubs panic on this branch); \
-            un-ignore after merging them"]
 fn operate_the_demo_under_tmux() {
     if !tmux_present() {
         eprintln!("tmux is not installed: skipping the end-to-end cockpit test");
@@ -87,17 +85,16 @@ fn operate_the_demo_under_tmux() {
     assert!(t.screen().contains("Space  stop-all (not safety-rated)"));
     assert_eq!(alternate_on(&t), "1");
 
-    // Enable x and move it.
-    t.keys(&["e"]);
-    t.wait_for("x holding", |s| s.contains("holding"));
+    // Home the machine (lift first, then the gantry), then move x and jog it.
+    t.keys(&["H"]);
+    t.wait_for("all homed", |s| s.contains("homed 3/3"));
     t.keys(&["g", "1", "0", "0", "Enter"]);
-    t.wait_for("x moving (or its log line)", |s| s.contains("moving"));
-
-    // Jog and home keys answer (until the engine has them, with a note in the log).
-    t.keys(&["Right", "h"]);
-    t.wait_for("jog/home answer", |s| {
-        s.contains("jog/home not available yet") || s.contains("jogging") || s.contains("homing")
+    t.wait_for("x moving", |s| s.contains("moving"));
+    t.wait_for("x holding at 100", |s| {
+        s.lines().any(|l| l.contains("holding") && l.contains("100.00 mm"))
     });
+    t.keys(&["Right"]);
+    t.wait_for("a jog step", |s| s.contains("jog step"));
 
     // Stop-all.
     t.keys(&["Space"]);

@@ -135,6 +135,8 @@ pub enum Effect {
         /// The command.
         command: AxisCommand,
     },
+    /// Home every axis in the configured order (its end comes back as a notice).
+    HomeAll,
     /// Save the live controller parameters into an existing configuration file.
     SaveGains {
         /// The file.

@@ -33,7 +33,6 @@ const ENTRY_MAX: usize = 200;
 /// Bad or missed frames are logged at most this often per axis.
 const LINK_LOG_PERIOD: Duration = Duration::from_secs(2);
 /// What the jog and home keys say until the engine has those commands.
-pub const JOG_HOME_MISSING: &str = "jog/home not available yet";
 /// Suggested file name when the demo's gains are written out.
 pub const DEFAULT_COPY_NAME: &str = "servotty.toml";
 
@@ -101,6 +100,11 @@ pub enum Notice {
         /// The command, in words.
         what: String,
         /// `Err(reason)` when refused.
+        result: Result<(), String>,
+    },
+    /// Machine-wide homing finished (or stopped).
+    HomeAll {
+        /// `Err(reason)` when an axis failed.
         result: Result<(), String>,
     },
     /// A save finished.
@@ -361,11 +365,23 @@ impl App {
             }
             Action::GoTo if n > 0 => self.prompt(Purpose::GoTo { axis: sel }, String::new()),
             Action::GoTo => {}
-            Action::JogStep(_) | Action::JogHold(_) | Action::Home | Action::HomeAll => {
-                let vmax = self.config.axes.get(sel).map_or(0.0, |a| a.motion.max_velocity);
-                match jog::motion_command(action, self.jog, vmax) {
-                    Some(c) => return vec![self.command(sel, c, &format!("{action:?}"))],
-                    None => self.note(Kind::Info, JOG_HOME_MISSING),
+            Action::HomeAll => {
+                self.note(Kind::Operator, "home all axes in the configured order");
+                return vec![Effect::HomeAll];
+            }
+            Action::JogStep(_) | Action::JogHold(_) | Action::Home => {
+                let Some(cfg) = self.config.axes.get(sel).map(|a| a.jog.clone()) else {
+                    return Vec::new();
+                };
+                self.jog.clamp_to(&cfg);
+                if let Some(c) = jog::motion_command(action, self.jog, &cfg) {
+                    // A held jog key repeats 25–40 times a second: one log line per repeat
+                    // would bury everything else.
+                    if matches!(action, Action::JogHold(_)) {
+                        return vec![Effect::Command { axis: sel, command: c }];
+                    }
+                    let words = c.words();
+                    return vec![self.command(sel, c, &words)];
                 }
             }
             Action::StepSmaller => self.jog.smaller_step(),
@@ -553,6 +569,10 @@ impl App {
                     .map(|b| format!("; previous file kept as {}", b.display()))
                     .unwrap_or_default();
                 self.note(Kind::Info, format!("saved {}: {keys}{backup}", report.path.display()));
+            }
+            Notice::HomeAll { result: Ok(()) } => self.note(Kind::Info, "all axes homed"),
+            Notice::HomeAll { result: Err(e) } => {
+                self.note(Kind::Refused, format!("homing stopped: {e}"));
             }
             Notice::Saved { result: Err(e), .. } => {
                 self.note(Kind::Refused, format!("not saved: {e}"))

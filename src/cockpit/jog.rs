@@ -1,23 +1,17 @@
-//! Jog settings (step size, speed) and the one place where jog and home keys become engine
-//! commands.
+//! Jog settings (which of the axis's configured step sizes and speeds is chosen) and the one
+//! place where jog and home keys become engine commands.
 //!
-//! The engine has no jog or home command yet. [`motion_command`] is where each of those keys
-//! turns into an [`AxisCommand`]; today every arm answers `None` and the cockpit logs that the
-//! feature is not available. Wiring one later is a one-line change in that arm.
+//! Step sizes and speeds come from each axis's `[axis.jog]` table, so a fine lift axis and a
+//! long belt axis each get sensible choices; the operator picks a position in those lists.
 
-use crate::cockpit::action::{Action, Dir};
+use crate::cockpit::action::Action;
+use crate::config::JogConfig;
 use crate::engine::AxisCommand;
 
-/// Jog step sizes offered, in axis units.
-pub const STEPS: [f64; 5] = [0.01, 0.1, 1.0, 10.0, 100.0];
-/// Jog speeds offered, % of the axis's maximum velocity.
-pub const SPEEDS: [u8; 6] = [2, 5, 10, 25, 50, 100];
-/// How long a continuous jog keeps going after the last key auto-repeat, s. Terminals do not
-/// report key release, so a held key is a stream of repeats and silence means "let go"; this
-/// must outlast the keyboard's initial repeat delay (typically 250–600 ms, from memory).
-pub const HOLD_LEASE_S: f64 = 0.7;
+/// The longest list the selection walks through; longer configured lists are cut here.
+const MAX_CHOICES: usize = 9;
 
-/// The operator's jog choices, shared by all axes.
+/// The operator's jog choices: positions in the selected axis's lists.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct JogSettings {
     step: usize,
@@ -26,20 +20,24 @@ pub struct JogSettings {
 
 impl Default for JogSettings {
     fn default() -> Self {
-        // 1 unit and 10 %: small enough to be safe on any demo axis, big enough to see.
-        Self { step: 2, speed: 2 }
+        // The middle entries of the demo's lists: small enough to be safe, big enough to see.
+        Self { step: 1, speed: 1 }
     }
 }
 
+fn pick(list: &[f64], i: usize) -> f64 {
+    list.get(i.min(list.len().saturating_sub(1))).copied().unwrap_or(0.0)
+}
+
 impl JogSettings {
-    /// Step size, units.
-    pub fn step(self) -> f64 {
-        STEPS[self.step]
+    /// Step size for this axis, units.
+    pub fn step(self, cfg: &JogConfig) -> f64 {
+        pick(&cfg.steps, self.step)
     }
 
-    /// Speed, % of maximum velocity.
-    pub fn speed_percent(self) -> u8 {
-        SPEEDS[self.speed]
+    /// Jog speed for this axis, unit/s.
+    pub fn speed(self, cfg: &JogConfig) -> f64 {
+        pick(&cfg.speeds, self.speed)
     }
 
     /// A smaller step (stays at the smallest).
@@ -47,9 +45,9 @@ impl JogSettings {
         self.step = self.step.saturating_sub(1);
     }
 
-    /// A larger step (stays at the largest).
+    /// A larger step (stays at the largest the longest list allows).
     pub fn larger_step(&mut self) {
-        self.step = (self.step + 1).min(STEPS.len() - 1);
+        self.step = (self.step + 1).min(MAX_CHOICES - 1);
     }
 
     /// Slower.
@@ -59,31 +57,31 @@ impl JogSettings {
 
     /// Faster.
     pub fn faster(&mut self) {
-        self.speed = (self.speed + 1).min(SPEEDS.len() - 1);
+        self.speed = (self.speed + 1).min(MAX_CHOICES - 1);
+    }
+
+    /// Keeps the choices inside this axis's lists (after switching axes), so that pressing
+    /// "larger" once always changes something.
+    pub fn clamp_to(&mut self, cfg: &JogConfig) {
+        self.step = self.step.min(cfg.steps.len().saturating_sub(1));
+        self.speed = self.speed.min(cfg.speeds.len().saturating_sub(1));
     }
 }
 
-/// Jog velocity for a direction at the chosen speed, unit/s.
-pub fn jog_velocity(dir: Dir, jog: JogSettings, max_velocity: f64) -> f64 {
-    dir.sign() * max_velocity * f64::from(jog.speed_percent()) / 100.0
-}
-
-/// The engine command for a jog or home action on one axis, or `None` while the engine does
-/// not offer it. `max_velocity` is the axis's profile limit, unit/s.
-pub fn motion_command(action: Action, jog: JogSettings, max_velocity: f64) -> Option<AxisCommand> {
-    // Both are used by the arms below once the engine has the commands.
-    let _ = (jog, max_velocity);
+/// The engine command for a jog or home action on one axis (`None` for machine-wide homing,
+/// which is its own effect).
+pub fn motion_command(action: Action, jog: JogSettings, cfg: &JogConfig) -> Option<AxisCommand> {
+    let speed = jog.speed(cfg);
     match action {
-        // Wire: Action::JogStep(d) => Some(AxisCommand::JogBy(d.sign() * jog.step())),
-        Action::JogStep(_) => None,
-        // Wire: Action::JogHold(d) => Some(AxisCommand::Jog {
-        //     velocity: jog_velocity(d, jog, max_velocity), lease_s: HOLD_LEASE_S }),
-        Action::JogHold(_) => None,
-        // Wire: Action::Home => Some(AxisCommand::Home),
-        Action::Home => None,
-        // Machine-wide, in the configured order: wire through a new `Effect::HomeAll` that
-        // calls a wished-for `MachineHandle::home_all()`, not through one axis.
-        Action::HomeAll => None,
+        Action::JogStep(d) => {
+            Some(AxisCommand::JogStep { distance: d.sign() * jog.step(cfg), speed })
+        }
+        // Each auto-repeat of a held key is one pulse; the engine turns a stream of pulses
+        // into continuous motion and stops when they stop (its deadman).
+        Action::JogHold(d) => {
+            Some(AxisCommand::JogPulse { direction: if d.sign() > 0.0 { 1 } else { -1 }, speed })
+        }
+        Action::Home => Some(AxisCommand::Home),
         _ => None,
     }
 }
@@ -91,26 +89,39 @@ pub fn motion_command(action: Action, jog: JogSettings, max_velocity: f64) -> Op
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::cockpit::action::Dir;
 
     #[test]
-    fn steps_and_speeds_stay_in_range() {
+    fn choices_come_from_the_axis_lists_and_stay_in_range() {
+        let cfg = JogConfig {
+            steps: vec![0.1, 1.0],
+            speeds: vec![5.0, 20.0, 60.0],
+            ..JogConfig::default()
+        };
         let mut j = JogSettings::default();
-        for _ in 0..10 {
+        for _ in 0..20 {
             j.larger_step();
             j.faster();
         }
-        assert_eq!((j.step(), j.speed_percent()), (100.0, 100));
-        for _ in 0..10 {
-            j.smaller_step();
-            j.slower();
-        }
-        assert_eq!((j.step(), j.speed_percent()), (0.01, 2));
+        assert_eq!((j.step(&cfg), j.speed(&cfg)), (1.0, 60.0));
+        j.clamp_to(&cfg);
+        j.smaller_step();
+        assert_eq!(j.step(&cfg), 0.1);
     }
 
     #[test]
-    fn jog_and_home_are_not_wired_yet() {
+    fn keys_become_engine_commands() {
+        let cfg = JogConfig::default();
         let j = JogSettings::default();
-        assert_eq!(motion_command(Action::JogStep(Dir::Plus), j, 100.0), None);
-        assert_eq!(motion_command(Action::Home, j, 100.0), None);
+        assert_eq!(
+            motion_command(Action::JogStep(Dir::Minus), j, &cfg),
+            Some(AxisCommand::JogStep { distance: -1.0, speed: 20.0 })
+        );
+        assert_eq!(
+            motion_command(Action::JogHold(Dir::Plus), j, &cfg),
+            Some(AxisCommand::JogPulse { direction: 1, speed: 20.0 })
+        );
+        assert_eq!(motion_command(Action::Home, j, &cfg), Some(AxisCommand::Home));
+        assert_eq!(motion_command(Action::HomeAll, j, &cfg), None);
     }
 }

@@ -1,7 +1,7 @@
 //! The cockpit's whole view of the engine, as a small trait.
 //!
-//! The runner needs four things from a machine: the latest snapshots, stop-all (set,
-//! release, read) and a way to send one command to one axis. Behind a trait, tests drive the
+//! The runner needs five things from a machine: the latest snapshots, stop-all (set,
+//! release, read), a way to send one command to one axis, and machine-wide homing. Behind a trait, tests drive the
 //! real event loop with a fake machine, and the UI cannot grow a dependency on engine
 //! internals.
 
@@ -26,9 +26,16 @@ pub trait MachinePort: Send + Sync + 'static {
         axis: usize,
         command: AxisCommand,
     ) -> impl Future<Output = Result<(), String>> + Send + 'static;
+    /// Homes every axis in the configured order; resolves when done or stopped.
+    fn home_all(&self) -> impl Future<Output = Result<(), String>> + Send + 'static;
 }
 
 impl MachinePort for MachineHandle {
+    fn home_all(&self) -> impl Future<Output = Result<(), String>> + Send + 'static {
+        let h = self.clone();
+        async move { h.home(None).await.map_err(|e| e.to_string()) }
+    }
+
     fn snapshots_into(&self, out: &mut Vec<AxisSnapshot>) {
         out.clear();
         out.extend(self.axes().iter().map(crate::engine::AxisHandle::snapshot));

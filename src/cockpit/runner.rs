@@ -152,6 +152,13 @@ fn describe(c: &AxisCommand) -> &'static str {
         AxisCommand::ClearTrip => "clear trip",
         AxisCommand::SetController(_) => "new gains",
         AxisCommand::LinkReport { .. } => "link report",
+        AxisCommand::Home => "home",
+        AxisCommand::JogStep { .. } => "jog step",
+        AxisCommand::JogPulse { .. } => "jog",
+        AxisCommand::JogRelease => "jog release",
+        AxisCommand::History => "history",
+        AxisCommand::Experiment { .. } => "test",
+        AxisCommand::TakeExperiment => "test result",
     }
 }
 
@@ -178,6 +185,14 @@ fn execute<P: MachinePort>(
                 None => "the axis is not reachable",
             };
             app.on_notice(now, Notice::Reply { axis, what, result: Err(why.to_owned()) });
+        }
+        Effect::HomeAll => {
+            let job = port.home_all();
+            let notices = notices.clone();
+            tokio::spawn(async move {
+                let result = job.await;
+                let _ = notices.send(Notice::HomeAll { result }).await;
+            });
         }
         Effect::SaveGains { path, config } => {
             spawn_save(notices.clone(), config, false, move |c| save::save_controllers(&path, c));

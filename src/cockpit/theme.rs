@@ -132,7 +132,7 @@ impl Theme {
             AxisState::Offline => self.dim(),
             AxisState::Disabled => self.text(),
             AxisState::Holding => self.good().add_modifier(Modifier::BOLD),
-            AxisState::Moving | AxisState::Jogging | AxisState::Homing => {
+            AxisState::Moving | AxisState::Jogging | AxisState::Homing | AxisState::Testing => {
                 self.fg(Color::Cyan).add_modifier(Modifier::BOLD)
             }
         }

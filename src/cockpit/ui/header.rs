@@ -26,7 +26,10 @@ pub fn render(app: &App, area: Rect, buf: &mut Buffer) {
     row.push(0, stop_seg);
     row.text(1, format!("stop cat {}", app.stop_category), t.dim());
     row.text(1, format!("homed {homed}/{total}"), if homed == total { t.good() } else { t.warn() });
-    row.text(3, format!("jog {} {unit} · {} %", app.jog.step(), app.jog.speed_percent()), t.dim());
+    if let Some(j) = app.config.axes.get(app.selected).map(|a| &a.jog) {
+        let (step, speed) = (app.jog.step(j), app.jog.speed(j));
+        row.text(3, format!("jog {step} {unit} · {speed} {unit}/s"), t.dim());
+    }
     if app.unsaved() {
         row.text(2, "gains unsaved", t.warn());
     }

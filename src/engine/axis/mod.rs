@@ -258,8 +258,10 @@ impl AxisTask {
                 req = self.wiring.commands.recv() => {
                     let Some(req) = req else { return true };
                     let (answer, _) = self.command(req.command);
-                    let _ = req.reply.send(answer);
+                    // Publish first: whoever gets the answer must already see its effect
+                    // (e.g. the homing waiter watching for the state to leave `homing`).
                     self.publish();
+                    let _ = req.reply.send(answer);
                 }
                 () = sleep => return false,
             }
@@ -318,8 +320,10 @@ impl AxisTask {
                     if off {
                         self.motor_off_now(&mut stream).await;
                     }
-                    let _ = req.reply.send(answer);
+                    // Publish first: whoever gets the answer must already see its effect
+                    // (e.g. the homing waiter watching for the state to leave `homing`).
                     self.publish();
+                    let _ = req.reply.send(answer);
                 }
                 () = tokio::time::sleep_until(deadline) => {
                     // A starved process wakes with the timer and the data both due: let the
