@@ -9,7 +9,7 @@ use serde::Serialize;
 
 use crate::cli::{LinktestArgs, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
 use crate::engine::link_meter::Turnaround;
-use crate::engine::{AxisCommand, Machine, MachineHandle, Reply};
+use crate::engine::{AxisCommand, MachineHandle, Reply};
 
 /// One axis's link figures, as printed in JSON.
 #[derive(Debug, Clone, Serialize, PartialEq)]
@@ -98,42 +98,15 @@ pub fn run(args: &LinktestArgs) -> u8 {
         eprintln!("servotty: --seconds must be between 0 and 3600, found {}", args.seconds);
         return EXIT_USAGE;
     }
-    let (cfg, _) = match args.machine.load() {
-        Ok(c) => c,
-        Err(e) => {
-            eprintln!("servotty: {e}");
-            return EXIT_USAGE;
-        }
-    };
-    let rt = match crate::cli::runtime() {
-        Ok(rt) => rt,
-        Err(e) => {
-            eprintln!("servotty: cannot start the runtime: {e}");
-            return EXIT_FAILED;
-        }
-    };
-    rt.block_on(async {
-        let machine = match Machine::start(&cfg, &args.machine.ports) {
-            Ok(m) => m,
+    let (json, seconds) = (args.json, args.seconds);
+    crate::cli::with_machine(&args.machine, |h| async move {
+        match measure(&h, seconds).await {
             Err(e) => {
-                eprintln!("servotty: {e}");
-                return EXIT_USAGE;
-            }
-        };
-        let h = machine.handle();
-        let result = tokio::select! {
-            r = measure(&h, args.seconds) => Some(r),
-            _ = tokio::signal::ctrl_c() => None,
-        };
-        machine.shutdown().await;
-        match result {
-            None => EXIT_FAILED,
-            Some(Err(e)) => {
                 eprintln!("servotty: {e}");
                 EXIT_FAILED
             }
-            Some(Ok(out)) => {
-                if args.json {
+            Ok(out) => {
+                if json {
                     println!("{}", serde_json::to_string(&out).unwrap_or_default());
                 } else {
                     println!(

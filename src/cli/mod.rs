@@ -159,6 +159,25 @@ impl std::str::FromStr for Target {
     }
 }
 
+/// Loads the configuration and builds the runtime; errors are printed and become the exit
+/// code (2 for configuration, 1 for the runtime).
+///
+/// # Errors
+/// The exit code to return.
+pub fn prepare(
+    config: Option<&std::path::Path>,
+) -> Result<(MachineConfig, ConfigSource, tokio::runtime::Runtime), u8> {
+    let (cfg, source) = MachineConfig::load_or_demo(config).map_err(|e| {
+        eprintln!("servotty: {e}");
+        EXIT_USAGE
+    })?;
+    let rt = runtime().map_err(|e| {
+        eprintln!("servotty: cannot start the runtime: {e}");
+        EXIT_FAILED
+    })?;
+    Ok((cfg, source, rt))
+}
+
 /// Loads the configuration, starts the machine with its recorder on a current-thread
 /// runtime, runs `body`, and always shuts the machine down (motors off). Errors before the
 /// machine exists are printed and give [`EXIT_USAGE`].
@@ -167,19 +186,9 @@ where
     F: FnOnce(crate::engine::MachineHandle) -> Fut,
     Fut: std::future::Future<Output = u8>,
 {
-    let (cfg, source) = match args.load() {
-        Ok(c) => c,
-        Err(e) => {
-            eprintln!("servotty: {e}");
-            return EXIT_USAGE;
-        }
-    };
-    let rt = match runtime() {
-        Ok(rt) => rt,
-        Err(e) => {
-            eprintln!("servotty: cannot start the runtime: {e}");
-            return EXIT_FAILED;
-        }
+    let (cfg, source, rt) = match prepare(args.config.as_deref()) {
+        Ok(p) => p,
+        Err(code) => return code,
     };
     rt.block_on(async {
         let paths = crate::engine::recorder::RecorderPaths::resolve(&cfg, &source);

@@ -2,7 +2,7 @@
 //! (or any other program) talks to it over a real tty device.
 
 use crate::cli::{SimArgs, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
-use crate::config::{MachineConfig, TransportConfig};
+use crate::config::TransportConfig;
 use crate::sim::board::SimBoard;
 
 /// `servotty sim`.
@@ -11,19 +11,9 @@ pub fn run(args: &SimArgs) -> u8 {
         eprintln!("servotty: sim needs --pty (serve each simulated axis on a pseudo-terminal)");
         return EXIT_USAGE;
     }
-    let cfg = match MachineConfig::load_or_demo(args.config.as_deref()) {
-        Ok((c, _)) => c,
-        Err(e) => {
-            eprintln!("servotty: {e}");
-            return EXIT_USAGE;
-        }
-    };
-    let rt = match crate::cli::runtime() {
-        Ok(rt) => rt,
-        Err(e) => {
-            eprintln!("servotty: cannot start the runtime: {e}");
-            return EXIT_FAILED;
-        }
+    let (cfg, _, rt) = match crate::cli::prepare(args.config.as_deref()) {
+        Ok(p) => p,
+        Err(code) => return code,
     };
     rt.block_on(async {
         let mut served = 0;
