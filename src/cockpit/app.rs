@@ -102,6 +102,9 @@ pub enum Notice {
         /// `Err(reason)` when refused.
         result: Result<(), String>,
     },
+    /// Something the engine reported that snapshots do not show (a trip capture written, a
+    /// notice such as a test's end).
+    Engine(crate::engine::Event),
     /// Machine-wide homing finished (or stopped).
     HomeAll {
         /// `Err(reason)` when an axis failed.
@@ -196,6 +199,8 @@ pub struct App {
     pub layout: Columns,
     /// Where the log file is (shown in help), or why there is none.
     pub log_file: Result<PathBuf, String>,
+    /// Where trip captures and the event log are written, shown in the help overlay.
+    pub recorder: Option<crate::engine::recorder::RecorderPaths>,
     /// Set when the cockpit should end.
     pub quit: bool,
 }
@@ -236,6 +241,7 @@ impl App {
             now: Duration::ZERO,
             theme,
             log_file: Err("not set up".to_owned()),
+            recorder: None,
             quit: false,
         }
     }
@@ -296,6 +302,13 @@ impl App {
         let name = self.name(axis).to_owned();
         self.note(Kind::Operator, format!("{name}: {words}"));
         Effect::Command { axis, command }
+    }
+
+    /// Records where the event log and trip captures go, and says so in the log.
+    pub fn set_recorder(&mut self, paths: crate::engine::recorder::RecorderPaths) {
+        self.note(Kind::Info, format!("event log: {}", paths.event_log.display()));
+        self.note(Kind::Info, format!("trip captures: {}", paths.captures_dir.display()));
+        self.recorder = Some(paths);
     }
 
     /// Applies an operator action at cockpit time `now`; returns what the runner must do.
@@ -569,6 +582,18 @@ impl App {
                     .map(|b| format!("; previous file kept as {}", b.display()))
                     .unwrap_or_default();
                 self.note(Kind::Info, format!("saved {}: {keys}{backup}", report.path.display()));
+            }
+            Notice::Engine(ev) => {
+                let who = ev.axis.as_deref().unwrap_or("machine").to_owned();
+                match ev.kind {
+                    crate::engine::EventKind::Capture { path } => {
+                        self.note(Kind::Info, format!("{who}: trip capture written: {path}"));
+                    }
+                    crate::engine::EventKind::Notice { text } => {
+                        self.note(Kind::Info, format!("{who}: {text}"));
+                    }
+                    _ => {}
+                }
             }
             Notice::HomeAll { result: Ok(()) } => self.note(Kind::Info, "all axes homed"),
             Notice::HomeAll { result: Err(e) } => {

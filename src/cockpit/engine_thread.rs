@@ -45,7 +45,11 @@ impl EngineThread {
     ///
     /// # Errors
     /// [`EngineStartError`].
-    pub fn start(cfg: MachineConfig, ports: Vec<PortOverride>) -> Result<Self, EngineStartError> {
+    pub fn start(
+        cfg: MachineConfig,
+        ports: Vec<PortOverride>,
+        recorder: Option<crate::engine::recorder::RecorderPaths>,
+    ) -> Result<Self, EngineStartError> {
         let (ready_tx, ready_rx) = std_mpsc::channel();
         let (stop_tx, stop_rx) = oneshot::channel::<()>();
         let thread = std::thread::Builder::new()
@@ -59,7 +63,7 @@ impl EngineThread {
                     }
                 };
                 rt.block_on(async move {
-                    let machine = match Machine::start(&cfg, &ports) {
+                    let machine = match Machine::start_with(&cfg, &ports, recorder) {
                         Ok(m) => m,
                         Err(e) => {
                             let _ = ready_tx.send(Err(e.into()));

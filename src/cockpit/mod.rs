@@ -61,7 +61,8 @@ pub fn run(args: &MachineArgs) -> u8 {
         return EXIT_USAGE;
     }
     let log_file = logging::init();
-    let engine = match EngineThread::start(cfg.clone(), args.ports.clone()) {
+    let paths = crate::engine::recorder::RecorderPaths::resolve(&cfg, &source);
+    let engine = match EngineThread::start(cfg.clone(), args.ports.clone(), Some(paths.clone())) {
         Ok(e) => e,
         Err(e) => {
             eprintln!("servotty: {e}");
@@ -80,6 +81,7 @@ pub fn run(args: &MachineArgs) -> u8 {
     };
     let mut app = App::new(cfg, source, Theme::from_env());
     app.log_file = log_file;
+    app.set_recorder(paths);
     let port = Arc::new(engine.handle().clone());
     let result = rt.block_on(async {
         let mut session = terminal::Session::enter()

@@ -28,9 +28,17 @@ pub trait MachinePort: Send + Sync + 'static {
     ) -> impl Future<Output = Result<(), String>> + Send + 'static;
     /// Homes every axis in the configured order; resolves when done or stopped.
     fn home_all(&self) -> impl Future<Output = Result<(), String>> + Send + 'static;
+    /// The machine's event stream, when it has one (trip captures, notices).
+    fn events(&self) -> Option<tokio::sync::broadcast::Receiver<crate::engine::Event>> {
+        None
+    }
 }
 
 impl MachinePort for MachineHandle {
+    fn events(&self) -> Option<tokio::sync::broadcast::Receiver<crate::engine::Event>> {
+        Some(MachineHandle::events(self))
+    }
+
     fn home_all(&self) -> impl Future<Output = Result<(), String>> + Send + 'static {
         let h = self.clone();
         async move { h.home(None).await.map_err(|e| e.to_string()) }

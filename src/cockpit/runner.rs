@@ -70,6 +70,28 @@ where
 {
     let (notice_tx, mut notice_rx) = mpsc::channel(NOTICE_DEPTH);
     let lanes = spawn_lanes(&port, app.axes.len(), &notice_tx);
+    if let Some(mut engine_events) = port.events() {
+        let tx = notice_tx.clone();
+        tokio::spawn(async move {
+            use tokio::sync::broadcast::error::RecvError;
+            loop {
+                match engine_events.recv().await {
+                    Ok(ev) => {
+                        let wanted = matches!(
+                            ev.kind,
+                            crate::engine::EventKind::Capture { .. }
+                                | crate::engine::EventKind::Notice { .. }
+                        );
+                        if wanted && tx.send(Notice::Engine(ev)).await.is_err() {
+                            return;
+                        }
+                    }
+                    Err(RecvError::Lagged(_)) => {}
+                    Err(RecvError::Closed) => return,
+                }
+            }
+        });
+    }
     let mut frame = tokio::time::interval(FRAME_INTERVAL);
     frame.set_missed_tick_behavior(MissedTickBehavior::Skip);
     let start = Instant::now();
