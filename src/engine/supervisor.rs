@@ -87,7 +87,6 @@ impl Supervisor {
 
     /// Runs every check on one frame; the first that fires wins.
     pub fn observe(&mut self, o: &Observation) -> Option<Finding> {
-        let u = &self.unit;
         // The encoder check runs even with the motor off: a jump is a wiring or noise fault
         // whatever the drive is doing, and it poisons the position reference.
         let allowed = u64::from(self.limits.encoder_jump_counts) * u64::from(o.ticks.max(1));
@@ -105,6 +104,11 @@ impl Supervisor {
             self.reset();
             return None;
         }
+        let runaway = self.check_runaway(o);
+        if runaway.is_some() {
+            return runaway;
+        }
+        let u = &self.unit;
         if o.limits_active {
             let l = &self.limits;
             let margin = l.following_error;
@@ -121,6 +125,13 @@ impl Supervisor {
         let band = self.following_error_band(o.target_velocity);
         let fe = o.target - o.position;
         if o.following_active && fe.abs() > band {
+            // A miswired axis usually blows the band before the runaway rule's time is up;
+            // if it is at that moment speeding up against its duty, say what is really wrong.
+            if let Some((since, speed0)) = self.runaway {
+                if o.velocity.abs() >= speed0 {
+                    return Some(self.runaway_finding(o, o.t - since));
+                }
+            }
             return Some(Finding {
                 cause: TripCause::FollowingError,
                 detail: format!(
@@ -129,9 +140,6 @@ impl Supervisor {
                     o.target_velocity
                 ),
             });
-        }
-        if let Some(f) = self.check_runaway(o) {
-            return Some(f);
         }
         self.check_stall(o)
     }
@@ -179,22 +187,25 @@ impl Supervisor {
                     // Slowing down: re-arm from here.
                     self.runaway = Some((o.t, o.velocity.abs()));
                 } else if o.t - since >= self.limits.runaway_timeout_s {
-                    return Some(Finding {
-                        cause: TripCause::Runaway,
-                        detail: format!(
-                            "moving at {:.1} {u}/s against a duty of {:.0} % for {:.3} s: the \
-                             motor or the encoder is wired the other way round (flip \
-                             scale.invert_motor or scale.invert_encoder)",
-                            o.velocity,
-                            o.duty,
-                            o.t - since,
-                            u = self.unit
-                        ),
-                    });
+                    return Some(self.runaway_finding(o, o.t - since));
                 }
             }
         }
         None
+    }
+
+    fn runaway_finding(&self, o: &Observation, for_s: f64) -> Finding {
+        Finding {
+            cause: TripCause::Runaway,
+            detail: format!(
+                "moving at {:.1} {u}/s against a duty of {:.0} % for {for_s:.3} s: the motor or \
+                 the encoder is wired the other way round (flip scale.invert_motor or \
+                 scale.invert_encoder)",
+                o.velocity,
+                o.duty,
+                u = self.unit
+            ),
+        }
     }
 }
 
@@ -294,6 +305,24 @@ mod tests {
         let (cause, k) = fired.expect("runaway fires");
         assert_eq!(cause, TripCause::Runaway);
         assert!((29..=31).contains(&k), "fired at tick {k}");
+    }
+
+    #[test]
+    fn a_band_blown_while_speeding_up_against_the_duty_is_called_runaway() {
+        let mut s = sup();
+        let mut last = None;
+        for k in 0..10 {
+            let mut o = obs(f64::from(k) * 0.001);
+            o.duty = -60.0;
+            o.velocity = 20.0 + f64::from(k);
+            o.target = -0.5 * f64::from(k);
+            last = s.observe(&o);
+            if last.is_some() {
+                break;
+            }
+        }
+        let f = last.expect("fires before the runaway timeout");
+        assert_eq!(f.cause, TripCause::Runaway, "{f:?}");
     }
 
     #[test]
