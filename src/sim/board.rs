@@ -24,6 +24,8 @@ use crate::transport::BoardStream;
 
 /// Tick rate the simulated board runs at before the host configures it, Hz.
 const POWER_UP_TICK_HZ: u16 = 1000;
+/// Longest a telemetry frame waits for room in the link before it is dropped.
+const TX_PATIENCE: Duration = Duration::from_micros(500);
 /// Fastest tick the simulated board accepts, Hz.
 const MAX_TICK_HZ: u16 = 5000;
 
@@ -176,6 +178,12 @@ impl SimBoard {
         let mut frames_sent: u64 = 0;
         let mut motor_off_at_tick: Option<u64> = None;
         let mut host_absent = false;
+        // One read per tick is all a board needs (a duty is applied at the next tick
+        // anyway). A PTY signals "readable" several times per host message and most of
+        // those reads come back empty; not reading again until the next tick saves those
+        // system calls, which otherwise cost more than everything else the board does.
+        let mut read_this_tick = false;
+        let mut tick_due = false;
         let mut retry_read_at = tokio::time::Instant::now();
         let features = if self.plant_params.home_switch_mm.is_some() {
             features::INDEX_PULSE | features::HOME_INPUT
@@ -185,90 +193,15 @@ impl SimBoard {
 
         loop {
             tokio::select! {
-                _ = interval.tick() => {
-                    let (pf, lf) = {
-                        let s = self.handle.lock();
-                        (s.plant_faults.clone(), s.link_faults.clone())
-                    };
-                    self.plant.faults = pf;
-                    let period = 1.0 / f64::from(tick_hz);
-                    ticks += 1;
-                    if motor_on && ticks.saturating_sub(last_command_tick) > watchdog_ticks {
-                        motor_on = false;
-                        watchdog_tripped = true;
-                        motor_off_at_tick = Some(ticks);
-                    }
-                    self.plant.step(if motor_on { duty } else { 0.0 }, period);
-                    let count = self.plant.encoder_count();
-                    {
-                        let mut s = self.handle.lock();
-                        s.view = BoardView {
-                            position_mm: self.plant.position_mm(),
-                            velocity_mm_s: self.plant.velocity_mm_s(),
-                            count,
-                            duty: if motor_on { duty } else { 0.0 },
-                            motor_on,
-                            watchdog_tripped,
-                            ticks,
-                            frames_sent,
-                            commands_received,
-                            motor_off_at_tick,
-                        };
-                    }
-                    if !streaming || lf.cut {
-                        continue;
-                    }
-                    let this_seq = seq;
-                    seq = seq.wrapping_add(1);
-                    if rng.chance(lf.drop_probability) {
-                        continue;
-                    }
-                    let mut in_bits = 0u8;
-                    if self.plant.home_switch() {
-                        in_bits |= inputs::HOME;
-                    }
-                    if self.plant.index_pulse() {
-                        in_bits |= inputs::INDEX;
-                    }
-                    let mut st = 0u8;
-                    if motor_on {
-                        st |= status::MOTOR_ON;
-                    }
-                    if watchdog_tripped {
-                        st |= status::WATCHDOG_TRIPPED;
-                    }
-                    let board_time_us = (ticks * 1_000_000 / u64::from(tick_hz)) as u32;
-                    let frame = BoardMessage::Telemetry(Telemetry {
-                        seq: this_seq,
-                        board_time_us,
-                        // The wire count is 32 bits and wraps; the host unwraps it.
-                        count: count as i32,
-                        inputs: in_bits,
-                        status: st,
-                        ack_seq,
-                    });
-                    tx.clear();
-                    protocol::write_frame(&frame, &mut tx);
-                    if rng.chance(lf.corrupt_probability) && tx.len() > 2 {
-                        let bit = (rng.next() % ((tx.len() as u64 - 1) * 8)) as usize;
-                        tx[bit / 8] ^= 1 << (bit % 8);
-                        // Keep the delimiter out of the body so only this frame is hit.
-                        if tx[bit / 8] == 0 {
-                            tx[bit / 8] = 0x55;
-                        }
-                    }
-                    // A board's UART never waits for the host: with nobody reading, or a
-                    // full buffer, the frame (or its tail) is lost and the host resyncs.
-                    if send_without_waiting(&mut stream, &tx) {
-                        frames_sent += 1;
-                    }
-                }
-                () = tokio::time::sleep_until(retry_read_at), if host_absent => {
-                    host_absent = false;
-                }
-                n = stream.read(&mut rx), if !host_absent => {
+                // Order matters: at a tick, first take what the host sent (a Stop that
+                // arrived during the last tick must act on this one), then do the tick.
+                biased;
+                n = stream.read(&mut rx), if !host_absent && !read_this_tick => {
                     let n = match n {
-                        Ok(n) if n > 0 => n,
+                        Ok(n) if n > 0 => {
+                            read_this_tick = true;
+                            n
+                        }
                         _ if self.persistent => {
                             // A PTY with no host on the other side reads as an error; look
                             // again shortly, ticking on meanwhile (sleeping here would stall
@@ -363,6 +296,95 @@ impl SimBoard {
                         sh.view.motor_off_at_tick = motor_off_at_tick;
                         sh.view.commands_received = commands_received;
                     }
+                }
+                () = std::future::ready(()), if tick_due => {
+                    tick_due = false;
+                    let (pf, lf) = {
+                        let s = self.handle.lock();
+                        (s.plant_faults.clone(), s.link_faults.clone())
+                    };
+                    self.plant.faults = pf;
+                    let period = 1.0 / f64::from(tick_hz);
+                    ticks += 1;
+                    if motor_on && ticks.saturating_sub(last_command_tick) > watchdog_ticks {
+                        motor_on = false;
+                        watchdog_tripped = true;
+                        motor_off_at_tick = Some(ticks);
+                    }
+                    self.plant.step(if motor_on { duty } else { 0.0 }, period);
+                    let count = self.plant.encoder_count();
+                    {
+                        let mut s = self.handle.lock();
+                        s.view = BoardView {
+                            position_mm: self.plant.position_mm(),
+                            velocity_mm_s: self.plant.velocity_mm_s(),
+                            count,
+                            duty: if motor_on { duty } else { 0.0 },
+                            motor_on,
+                            watchdog_tripped,
+                            ticks,
+                            frames_sent,
+                            commands_received,
+                            motor_off_at_tick,
+                        };
+                    }
+                    if !streaming || lf.cut {
+                        continue;
+                    }
+                    let this_seq = seq;
+                    seq = seq.wrapping_add(1);
+                    if rng.chance(lf.drop_probability) {
+                        continue;
+                    }
+                    let mut in_bits = 0u8;
+                    if self.plant.home_switch() {
+                        in_bits |= inputs::HOME;
+                    }
+                    if self.plant.index_pulse() {
+                        in_bits |= inputs::INDEX;
+                    }
+                    let mut st = 0u8;
+                    if motor_on {
+                        st |= status::MOTOR_ON;
+                    }
+                    if watchdog_tripped {
+                        st |= status::WATCHDOG_TRIPPED;
+                    }
+                    let board_time_us = (ticks * 1_000_000 / u64::from(tick_hz)) as u32;
+                    let frame = BoardMessage::Telemetry(Telemetry {
+                        seq: this_seq,
+                        board_time_us,
+                        // The wire count is 32 bits and wraps; the host unwraps it.
+                        count: count as i32,
+                        inputs: in_bits,
+                        status: st,
+                        ack_seq,
+                    });
+                    tx.clear();
+                    protocol::write_frame(&frame, &mut tx);
+                    if rng.chance(lf.corrupt_probability) && tx.len() > 2 {
+                        let bit = (rng.next() % ((tx.len() as u64 - 1) * 8)) as usize;
+                        tx[bit / 8] ^= 1 << (bit % 8);
+                        // Keep the delimiter out of the body so only this frame is hit.
+                        if tx[bit / 8] == 0 {
+                            tx[bit / 8] = 0x55;
+                        }
+                    }
+                    // A UART drains its FIFO within a fraction of a tick; when nobody reads
+                    // and the buffer stays full, the frame (or its tail) is lost and the host
+                    // resyncs. Waiting a little (not at all would also drop frames whenever
+                    // the OS reports the device busy for a moment) keeps the tick running.
+                    let sent = tokio::time::timeout(TX_PATIENCE, stream.write_all(&tx)).await;
+                    if matches!(sent, Ok(Ok(()))) {
+                        frames_sent += 1;
+                    }
+                }
+                _ = interval.tick(), if !tick_due => {
+                    tick_due = true;
+                    read_this_tick = false;
+                }
+                () = tokio::time::sleep_until(retry_read_at), if host_absent => {
+                    host_absent = false;
                 }
             }
         }
