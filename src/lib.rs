@@ -10,6 +10,8 @@
 //! - [`sim`]: the physics simulator (DC motor, gearbox, carriage) and board emulation.
 //! - [`control`]: controllers (on-off, proportional, PID) and motion profiles.
 //! - [`engine`]: one task per axis (loop, supervision, state machine) and the machine core.
+//! - [`tuning`]: commissioning analysis (identification, relay autotuning, tuning rules, gain
+//!   suggestions, step-test reports); pure functions on recorded samples.
 //! - [`cli`]: the headless subcommands and argument parsing; `main.rs` only dispatches.
 
 pub mod cli;
@@ -19,3 +21,4 @@ pub mod engine;
 pub mod protocol;
 pub mod sim;
 pub mod transport;
+pub mod tuning;
