@@ -11,6 +11,8 @@
 //! - [`control`]: controllers (on-off, proportional, PID) and motion profiles.
 //! - [`engine`]: one task per axis (loop, supervision, state machine) and the machine core.
 //! - [`cockpit`]: the terminal UI (overview, axis detail, event log, keymap, gain saving).
+//! - [`tuning`]: commissioning analysis (identification, relay autotuning, tuning rules, gain
+//!   suggestions, step-test reports); pure functions on recorded samples.
 //! - [`cli`]: the headless subcommands and argument parsing; `main.rs` only dispatches.
 
 pub mod cli;
@@ -21,3 +23,4 @@ pub mod engine;
 pub mod protocol;
 pub mod sim;
 pub mod transport;
+pub mod tuning;

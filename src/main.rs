@@ -13,6 +13,7 @@ fn main() -> ExitCode {
         Some(Command::Move(a)) => cli::move_cmd::run(a),
         Some(Command::Home(a)) => cli::home_cmd::run(a),
         Some(Command::Linktest(a)) => cli::linktest::run(a),
+        Some(Command::Analyze(a)) => cli::analyze::run(a),
         Some(Command::Cockpit(m)) => servotty::cockpit::run(m),
         None => servotty::cockpit::run(&cli.machine),
     };

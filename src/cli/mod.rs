@@ -12,6 +12,7 @@ use clap::{Args, Parser, Subcommand};
 use crate::config::{ConfigSource, MachineConfig};
 use crate::engine::PortOverride;
 
+pub mod analyze;
 pub mod check;
 pub mod home_cmd;
 pub mod linktest;
@@ -58,6 +59,8 @@ pub enum Command {
     Home(HomeArgs),
     /// Measure each link: frame rate, host turnaround, bad and missed frames, CPU share.
     Linktest(LinktestArgs),
+    /// Analyse a recorded file (no machine needed), e.g. the metrics of a step test.
+    Analyze(analyze::AnalyzeArgs),
 }
 
 /// Which machine to talk to.

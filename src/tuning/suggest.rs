@@ -1,0 +1,515 @@
+//! Gain suggestions: PID gains and feedforward for an axis, either from an identified model
+//! (SIMC rules) or from a relay experiment (Ziegler–Nichols or Tyreus–Luyben), as a patch to
+//! `[axis.controller]` with the reasoning spelled out.
+//!
+//! # From the model: SIMC
+//! The position plant is the identified velocity model integrated, with a delay:
+//! `G(s) = K·e^(−θs) / (s·(τ s + 1))` (position per % of duty), an "integrating process with
+//! lag". S. Skogestad, "Simple analytic rules for model reduction and PID controller tuning",
+//! *Journal of Process Control* 13 (2003) 291–309, Table 1, gives for it, in series form
+//! `Kc·(1 + 1/(τI s))·(1 + τD s)`:
+//!
+//! `Kc = 1/(K·(τc + θ))`, `τI = 4·(τc + θ)`, `τD = τ`,
+//!
+//! with `τc` the one tuning knob (desired closed-loop time constant); the paper recommends
+//! `τc ≥ θ` for robustness. Multiplying out the series form gives the parallel gains
+//! `kp = Kc·(1 + τD/τI)`, `ki = Kc/τI`, `kd = Kc·τD` (the paper gives the same conversion to
+//! the ideal form: `Kc' = Kc·(1 + τD/τI)`, `τI' = τI + τD`, `τD' = τD/(1 + τD/τI)`).
+//!
+//! - **θ** = the identified input delay (link and electrical lag; one tick if it was not
+//!   observable) plus half a tick: the host samples the position and holds the duty for a
+//!   tick, and a zero-order hold behaves like a delay of half its period (K. J. Åström and
+//!   B. Wittenmark, *Computer-Controlled Systems*, 3rd ed., 1997, on approximating a sampled
+//!   loop by a continuous one; from memory).
+//! - **τc** defaults to the velocity time constant τ (never below θ): the closed position
+//!   loop is asked to be about as fast as the motor's own speed response. Much faster asks
+//!   for gains whose response to a single encoder count (`kd·q/(Tf + h)` in the derivative)
+//!   becomes a visible duty kick. Our choice, no source; the reason is printed with the
+//!   numbers.
+//! - The derivative filter is `Tf = Td/N` with the ideal-form `Td` and `N` = 10 by default
+//!   (Åström & Hägglund, *PID Controllers*, 2nd ed., 1995, ch. 3: N typically 8–20).
+//!
+//! # Minimum duty, and why the gains are scaled by it
+//! servotty's controller maps its linear output `u` to the motor duty
+//! `min + |u|·(max − min)/max` ([`crate::control::controller`]), so the loop sees the plant
+//! times the slope `(max − min)/max`. Every suggested gain and feedforward is divided by that
+//! slope so the loop gain is what the rule asks for. The minimum duty itself is the measured
+//! breakaway duty when known (what it takes to start moving from rest: driver deadband or
+//! static friction), else the identified offset `u0` (what sliding friction costs).
+//!
+//! # Feedforward
+//! With a profile velocity `v` and acceleration `a`, the model needs the duty
+//! `v/K + τ·a/K + u0·sign(v)`. Because servotty's derivative acts on the measurement, an axis
+//! that follows the profile at `v` also gets `D = −kd·v`; the velocity feedforward must pay
+//! that back, so `ff_velocity = 1/K + kd` (common practice, no source). Then
+//! `ff_acceleration = τ/K`; `ff_static = u0 − min` when the minimum duty does not already
+//! cover sliding friction, else 0 (the compensation adds the minimum duty to every non-zero
+//! output, profile or not).
+//!
+//! # From a relay experiment
+//! [`from_relay`] applies a rule of [`super::rules`] to Ku and Tu. The relay amplitude is the
+//! raw duty swing the driver saw, so the same slope scaling applies. No feedforward: a relay
+//! experiment does not measure K or τ.
+
+use serde::Serialize;
+
+use super::ident::VelocityModel;
+use super::relay::RelayResult;
+use super::rules::{from_ultimate, IdealPid, Rule};
+use crate::config::{ControlMode, ControllerConfig};
+
+/// Default derivative filter ratio N (`Tf = Td/N`).
+pub const DEFAULT_FILTER_N: f64 = 10.0;
+
+/// SIMC integral-time factor for integrating processes (`τI = 4·(τc + θ)`, Skogestad 2003).
+pub const SIMC_INTEGRAL_FACTOR: f64 = 4.0;
+
+/// Choices for [`simc`].
+#[derive(Debug, Clone, PartialEq)]
+pub struct SimcOptions {
+    /// Board tick, s.
+    pub tick_s: f64,
+    /// Desired closed-loop time constant τc, s; the velocity time constant when `None`.
+    pub closed_loop_time_s: Option<f64>,
+    /// Derivative filter ratio N.
+    pub filter_n: f64,
+    /// Measured breakaway duty forwards, % (see the module docs).
+    pub breakaway_forward_pct: Option<f64>,
+    /// Measured breakaway duty in reverse, % (positive).
+    pub breakaway_reverse_pct: Option<f64>,
+    /// One encoder count in axis units, for the noise note.
+    pub resolution: Option<f64>,
+}
+
+impl SimcOptions {
+    /// Defaults for a board ticking every `tick_s` seconds.
+    pub fn new(tick_s: f64) -> Self {
+        Self {
+            tick_s,
+            closed_loop_time_s: None,
+            filter_n: DEFAULT_FILTER_N,
+            breakaway_forward_pct: None,
+            breakaway_reverse_pct: None,
+            resolution: None,
+        }
+    }
+}
+
+/// New values for `[axis.controller]`; `None` leaves a key as it is.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct ControllerPatch {
+    /// %/unit.
+    pub kp: f64,
+    /// %/(unit·s).
+    pub ki: f64,
+    /// %·s/unit.
+    pub kd: f64,
+    /// s.
+    pub derivative_filter_s: f64,
+    /// % per unit/s.
+    pub ff_velocity: Option<f64>,
+    /// % per unit/s².
+    pub ff_acceleration: Option<f64>,
+    /// %.
+    pub ff_static: Option<f64>,
+    /// %.
+    pub min_duty_forward: Option<f64>,
+    /// %.
+    pub min_duty_reverse: Option<f64>,
+}
+
+impl ControllerPatch {
+    /// `base` with this patch applied, in PID mode.
+    pub fn apply(&self, base: &ControllerConfig) -> ControllerConfig {
+        let mut c = base.clone();
+        c.mode = ControlMode::Pid;
+        c.kp = self.kp;
+        c.ki = self.ki;
+        c.kd = self.kd;
+        c.derivative_filter_s = self.derivative_filter_s;
+        let set = |slot: &mut f64, v: Option<f64>| {
+            if let Some(v) = v {
+                *slot = v;
+            }
+        };
+        set(&mut c.ff_velocity, self.ff_velocity);
+        set(&mut c.ff_acceleration, self.ff_acceleration);
+        set(&mut c.ff_static, self.ff_static);
+        set(&mut c.min_duty_forward, self.min_duty_forward);
+        set(&mut c.min_duty_reverse, self.min_duty_reverse);
+        c
+    }
+
+    /// The patch as `key = value` lines for `[axis.controller]`.
+    pub fn to_toml_lines(&self) -> String {
+        let mut s = String::from("mode = \"pid\"\n");
+        let mut line = |k: &str, v: f64| s.push_str(&format!("{k} = {}\n", round_sig(v, 4)));
+        line("kp", self.kp);
+        line("ki", self.ki);
+        line("kd", self.kd);
+        line("derivative_filter_s", self.derivative_filter_s);
+        for (k, v) in [
+            ("min_duty_forward", self.min_duty_forward),
+            ("min_duty_reverse", self.min_duty_reverse),
+            ("ff_velocity", self.ff_velocity),
+            ("ff_acceleration", self.ff_acceleration),
+            ("ff_static", self.ff_static),
+        ] {
+            if let Some(v) = v {
+                line(k, v);
+            }
+        }
+        s
+    }
+}
+
+/// A suggestion: the patch, the rule's own numbers and the reasoning.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Suggestion {
+    /// Method and source, one line.
+    pub method: String,
+    pub patch: ControllerPatch,
+    /// The rule's result in ideal form, before the minimum-duty slope scaling.
+    pub ideal: IdealPid,
+    /// Explanation, one point per line.
+    pub notes: Vec<String>,
+}
+
+/// Why no suggestion could be made.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum SuggestError {
+    #[error("the model is not usable: {0}")]
+    BadModel(String),
+    #[error("the options are not usable: {0}")]
+    BadOptions(String),
+    #[error("the minimum duty ({min} %) leaves no range below max_duty ({max} %)")]
+    NoDutyRange { min: f64, max: f64 },
+}
+
+/// Slope `(max − min)/max` of the minimum-duty compensation for one direction.
+pub fn compensation_slope(max_duty: f64, min_duty: f64) -> f64 {
+    (max_duty - min_duty) / max_duty
+}
+
+/// SIMC gains and model-based feedforward (module docs), starting from `base` (its
+/// `max_duty`, limits and anti-windup are kept).
+///
+/// # Errors
+/// A model or options that are not positive finite numbers, or a minimum duty at or above
+/// `max_duty`.
+pub fn simc(
+    model: &VelocityModel,
+    base: &ControllerConfig,
+    opts: &SimcOptions,
+) -> Result<Suggestion, SuggestError> {
+    let (k, tau, u0) = (model.gain, model.time_constant_s, model.offset_pct);
+    if !(k.is_finite() && k > 0.0 && tau.is_finite() && tau > 0.0 && u0.is_finite()) {
+        return Err(SuggestError::BadModel(format!("K = {k}, τ = {tau}, u0 = {u0}")));
+    }
+    let h = opts.tick_s;
+    if !(h.is_finite() && h > 0.0 && opts.filter_n.is_finite() && opts.filter_n > 0.0) {
+        return Err(SuggestError::BadOptions(format!("tick {h} s, N {}", opts.filter_n)));
+    }
+    let identified = model.delay_s.filter(|d| d.is_finite() && *d >= 0.0);
+    let theta = identified.unwrap_or(h) + 0.5 * h;
+    let asked = opts.closed_loop_time_s;
+    if asked.is_some_and(|t| !(t.is_finite() && t > 0.0)) {
+        return Err(SuggestError::BadOptions(format!("closed-loop time {asked:?}")));
+    }
+    let tau_c = asked.unwrap_or(tau).max(theta);
+
+    // Skogestad 2003, Table 1, integrating process with lag (series form).
+    let kc = 1.0 / (k * (tau_c + theta));
+    let ti = SIMC_INTEGRAL_FACTOR * (tau_c + theta);
+    let td = tau;
+    // Series → parallel / ideal.
+    let ideal =
+        IdealPid { kc: kc * (1.0 + td / ti), ti_s: Some(ti + td), td_s: ti * td / (ti + td) };
+
+    let max = base.max_duty;
+    let u0_floor = u0.max(0.0);
+    let m_f = opts.breakaway_forward_pct.unwrap_or(u0_floor).max(0.0);
+    let m_r = opts.breakaway_reverse_pct.unwrap_or(u0_floor).max(0.0);
+    if !(max.is_finite() && max > m_f.max(m_r)) {
+        return Err(SuggestError::NoDutyRange { min: m_f.max(m_r), max });
+    }
+    let slope = 0.5 * (compensation_slope(max, m_f) + compensation_slope(max, m_r));
+    let kp = kc * (1.0 + td / ti) / slope;
+    let ki = kc / ti / slope;
+    let kd = kc * td / slope;
+    let tf = ideal.td_s / opts.filter_n;
+    let ff_velocity = 1.0 / (k * slope) + kd;
+    let ff_acceleration = tau / (k * slope);
+    let ff_static = ((u0 - m_f.min(m_r)) / slope).max(0.0);
+
+    let mut notes = vec![
+        format!(
+            "model: K = {} unit/s per %, τ = {} s, u0 = {} %, delay {}",
+            round_sig(k, 4),
+            round_sig(tau, 3),
+            round_sig(u0, 3),
+            identified.map_or("not observed (one tick assumed)".to_owned(), |d| format!(
+                "{} s",
+                round_sig(d, 2)
+            ))
+        ),
+        format!(
+            "θ = {} s: the delay plus half a tick for the sample-and-hold",
+            round_sig(theta, 3)
+        ),
+        if asked.is_some_and(|t| t < theta) {
+            format!("τc = {} s: raised to θ, SIMC asks for τc ≥ θ", round_sig(tau_c, 3))
+        } else if asked.is_some() {
+            format!("τc = {} s as asked", round_sig(tau_c, 3))
+        } else {
+            format!(
+                "τc = {} s (default: the velocity time constant): position loop about as fast \
+                 as the motor's own speed response",
+                round_sig(tau_c, 3)
+            )
+        },
+        format!(
+            "SIMC, series form: Kc = 1/(K(τc+θ)) = {} %/unit, τI = 4(τc+θ) = {} s, τD = τ = {} s",
+            round_sig(kc, 4),
+            round_sig(ti, 3),
+            round_sig(td, 3)
+        ),
+        format!(
+            "parallel: kp = Kc(1+τD/τI), ki = Kc/τI, kd = Kc·τD, each divided by the \
+             minimum-duty slope {} so the loop gain is what the rule asks",
+            round_sig(slope, 3)
+        ),
+        format!(
+            "min duty {} / {} % ({}): every non-zero output starts there",
+            round_sig(m_f, 3),
+            round_sig(m_r, 3),
+            if opts.breakaway_forward_pct.is_some() || opts.breakaway_reverse_pct.is_some() {
+                "measured breakaway"
+            } else {
+                "identified friction offset; measure the breakaway duty to do better"
+            }
+        ),
+        format!(
+            "ff_velocity = 1/K + kd = {}: the derivative acts on the measurement and takes \
+             kd·v away at profile velocity v; the feedforward pays it back",
+            round_sig(ff_velocity, 4)
+        ),
+        format!("ff_acceleration = τ/K = {}", round_sig(ff_acceleration, 3)),
+        format!(
+            "ff_static = {} %: {}",
+            round_sig(ff_static, 3),
+            if ff_static > 0.0 {
+                "sliding friction beyond the minimum duty"
+            } else {
+                "the minimum duty already covers sliding friction"
+            }
+        ),
+    ];
+    if let Some(q) = opts.resolution.filter(|q| q.is_finite() && *q > 0.0) {
+        let kick = kd * q / (tf + h);
+        notes.push(format!(
+            "one encoder count ({} unit) moves the derivative term by up to {} % and the \
+             proportional term by {} %",
+            round_sig(q, 3),
+            round_sig(kick, 2),
+            round_sig(kp * q, 2)
+        ));
+    }
+    Ok(Suggestion {
+        method: "SIMC for an integrating process with lag (Skogestad, J. Process Control 13, \
+                 2003)"
+            .to_owned(),
+        patch: ControllerPatch {
+            kp,
+            ki,
+            kd,
+            derivative_filter_s: tf,
+            ff_velocity: Some(ff_velocity),
+            ff_acceleration: Some(ff_acceleration),
+            ff_static: Some(ff_static),
+            min_duty_forward: Some(m_f),
+            min_duty_reverse: Some(m_r),
+        },
+        ideal,
+        notes,
+    })
+}
+
+/// Gains from a relay experiment by a published rule (module docs). The minimum duty and
+/// feedforward of `base` are kept; `filter_n` sets `Tf = Td/N` (the base filter is kept when
+/// the rule has no derivative).
+///
+/// # Errors
+/// A relay result that is not positive and finite, or a minimum duty at or above max_duty.
+pub fn from_relay(
+    relay: &RelayResult,
+    rule: Rule,
+    base: &ControllerConfig,
+    filter_n: f64,
+) -> Result<Suggestion, SuggestError> {
+    let (ku, tu) = (relay.ultimate_gain, relay.period_s);
+    if !(ku.is_finite() && ku > 0.0 && tu.is_finite() && tu > 0.0) {
+        return Err(SuggestError::BadModel(format!("Ku = {ku}, Tu = {tu}")));
+    }
+    if !(filter_n.is_finite() && filter_n > 0.0) {
+        return Err(SuggestError::BadOptions(format!("N {filter_n}")));
+    }
+    let max = base.max_duty;
+    let (m_f, m_r) = (base.min_duty_forward.max(0.0), base.min_duty_reverse.max(0.0));
+    if !(max.is_finite() && max > m_f.max(m_r)) {
+        return Err(SuggestError::NoDutyRange { min: m_f.max(m_r), max });
+    }
+    let slope = 0.5 * (compensation_slope(max, m_f) + compensation_slope(max, m_r));
+    let ideal = from_ultimate(rule, ku, tu);
+    let g = ideal.to_parallel();
+    let tf = if ideal.td_s > 0.0 { ideal.td_s / filter_n } else { base.derivative_filter_s };
+    let notes = vec![
+        format!(
+            "relay: a = {} unit, period {} s over {} cycles → Ku = 4d/(π a) = {} %/unit, \
+             Tu = {} s",
+            round_sig(relay.amplitude, 4),
+            round_sig(relay.period_s, 4),
+            relay.cycles,
+            round_sig(ku, 4),
+            round_sig(tu, 4)
+        ),
+        format!(
+            "{}: Kc = {} %/unit, Ti = {}, Td = {} s (ideal form)",
+            rule.name(),
+            round_sig(ideal.kc, 4),
+            ideal.ti_s.map_or("none".to_owned(), |t| format!("{} s", round_sig(t, 4))),
+            round_sig(ideal.td_s, 4)
+        ),
+        format!(
+            "parallel: kp = Kc, ki = Kc/Ti, kd = Kc·Td, each divided by the minimum-duty slope {}",
+            round_sig(slope, 3)
+        ),
+    ];
+    Ok(Suggestion {
+        method: format!(
+            "relay feedback (Åström & Hägglund, Automatica 20(5), 1984), {}",
+            rule.source()
+        ),
+        patch: ControllerPatch {
+            kp: g.kp / slope,
+            ki: g.ki / slope,
+            kd: g.kd / slope,
+            derivative_filter_s: tf,
+            ff_velocity: None,
+            ff_acceleration: None,
+            ff_static: None,
+            min_duty_forward: None,
+            min_duty_reverse: None,
+        },
+        ideal,
+        notes,
+    })
+}
+
+/// `x` rounded to `digits` significant digits (for display and config files).
+pub fn round_sig(x: f64, digits: i32) -> f64 {
+    if x == 0.0 || !x.is_finite() {
+        return x;
+    }
+    let scale = 10f64.powi(digits - 1 - x.abs().log10().floor() as i32);
+    (x * scale).round() / scale
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::config::AntiWindup;
+
+    fn base() -> ControllerConfig {
+        ControllerConfig {
+            mode: ControlMode::Proportional,
+            on_off_duty: 40.0,
+            tolerance: 0.5,
+            kp: 1.0,
+            ki: 0.0,
+            kd: 0.0,
+            derivative_filter_s: 0.002,
+            integral_limit: 20.0,
+            anti_windup: AntiWindup::Clamp,
+            tracking_time_s: 0.05,
+            min_duty_forward: 0.0,
+            min_duty_reverse: 0.0,
+            max_duty: 100.0,
+            ff_velocity: 0.0,
+            ff_acceleration: 0.0,
+            ff_static: 0.0,
+        }
+    }
+
+    // SIMC for k'e^{−θs}/(s(τ1 s+1)): Kc = 1/(k'(τc+θ)), τI = 4(τc+θ), τD = τ1 in series form
+    // (S. Skogestad, J. Process Control 13 (2003) 291–309, Table 1); with no minimum duty the
+    // slope is 1, so the parallel gains are Kc(1+τD/τI), Kc/τI, Kc·τD exactly.
+    #[test]
+    fn simc_matches_the_published_rule() {
+        let model = VelocityModel {
+            gain: 2.0,
+            time_constant_s: 0.05,
+            offset_pct: 0.0,
+            delay_s: Some(0.0095),
+        };
+        let opts = SimcOptions { closed_loop_time_s: Some(0.04), ..SimcOptions::new(0.001) };
+        let s = simc(&model, &base(), &opts).expect("suggests");
+        let theta = 0.0095 + 0.0005;
+        let kc = 1.0 / (2.0 * (0.04 + theta));
+        let ti = 4.0 * (0.04 + theta);
+        assert!((s.patch.kp - kc * (1.0 + 0.05 / ti)).abs() < 1e-12);
+        assert!((s.patch.ki - kc / ti).abs() < 1e-12);
+        assert!((s.patch.kd - kc * 0.05).abs() < 1e-12);
+        // Ideal form is the same controller: Kc'(1 + 1/(Ti' s) + Td' s).
+        assert!((s.ideal.kc - s.patch.kp).abs() < 1e-12);
+        assert!((s.ideal.kc / s.ideal.ti_s.expect("PI") - s.patch.ki).abs() < 1e-12);
+        assert!((s.ideal.kc * s.ideal.td_s - s.patch.kd).abs() < 1e-12);
+        assert_eq!(s.patch.ff_velocity, Some(1.0 / 2.0 + s.patch.kd));
+        assert_eq!(s.patch.ff_acceleration, Some(0.05 / 2.0));
+    }
+
+    #[test]
+    fn minimum_duty_scales_the_gains() {
+        let model =
+            VelocityModel { gain: 2.0, time_constant_s: 0.05, offset_pct: 3.0, delay_s: None };
+        let plain = simc(&model, &base(), &SimcOptions::new(0.001)).expect("suggests");
+        let opts = SimcOptions {
+            breakaway_forward_pct: Some(20.0),
+            breakaway_reverse_pct: Some(20.0),
+            ..SimcOptions::new(0.001)
+        };
+        let comp = simc(&model, &base(), &opts).expect("suggests");
+        // Without breakaway the minimum duty is u0 = 3 %, slope 0.97; with 20 %, slope 0.8.
+        assert!((plain.patch.kp * 0.97 / 0.8 - comp.patch.kp).abs() < 1e-9);
+        assert_eq!(plain.patch.min_duty_forward, Some(3.0));
+        assert_eq!(comp.patch.ff_static, Some(0.0));
+        let cfg = comp.patch.apply(&base());
+        assert_eq!(cfg.mode, ControlMode::Pid);
+        assert_eq!(cfg.min_duty_reverse, 20.0);
+        assert!(comp.patch.to_toml_lines().contains("min_duty_forward = 20\n"));
+    }
+
+    #[test]
+    fn bad_inputs_are_errors() {
+        let bad =
+            VelocityModel { gain: -1.0, time_constant_s: 0.05, offset_pct: 0.0, delay_s: None };
+        assert!(matches!(
+            simc(&bad, &base(), &SimcOptions::new(0.001)),
+            Err(SuggestError::BadModel(_))
+        ));
+        let ok = VelocityModel { gain: 1.0, ..bad };
+        assert!(matches!(
+            simc(&ok, &base(), &SimcOptions::new(0.0)),
+            Err(SuggestError::BadOptions(_))
+        ));
+        let opts = SimcOptions { breakaway_forward_pct: Some(100.0), ..SimcOptions::new(0.001) };
+        assert!(matches!(simc(&ok, &base(), &opts), Err(SuggestError::NoDutyRange { .. })));
+    }
+
+    #[test]
+    fn rounding_to_significant_digits() {
+        assert_eq!(round_sig(0.0123456, 3), 0.0123);
+        assert_eq!(round_sig(12345.0, 2), 12000.0);
+        assert_eq!(round_sig(-2.5349, 4), -2.535);
+    }
+}
