@@ -12,6 +12,7 @@ fn main() -> ExitCode {
         Some(Command::Sim(a)) => cli::sim_pty::run(a),
         Some(Command::Move(a)) => cli::move_cmd::run(a),
         Some(Command::Home(a)) => cli::home_cmd::run(a),
+        Some(Command::Tune(a)) => cli::tune::run(a),
         Some(Command::Linktest(a)) => cli::linktest::run(a),
         Some(Command::Analyze(a)) => cli::analyze::run(a),
         Some(Command::Cockpit(m)) => servotty::cockpit::run(m),

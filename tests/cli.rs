@@ -145,3 +145,32 @@ fn move_on_the_simulated_demo_prints_json() {
     assert!((axes[0]["final"].as_f64().expect("final") - 50.0).abs() <= 0.1);
     assert!(axes[0]["trip"].is_null());
 }
+
+#[test]
+fn tune_refuses_to_move_without_yes() {
+    let out = servotty(&["tune", "direction", "x"]);
+    assert_eq!(out.status.code(), Some(2));
+    let err = text(&out.stderr);
+    assert!(err.contains("will move up to") && err.contains("--yes"), "{err}");
+}
+
+#[test]
+fn tune_direction_and_identify_on_the_demo() {
+    let out = servotty(&["tune", "direction", "x", "--yes", "--json"]);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).expect("json");
+    assert_eq!(v["ok"], true, "{v}");
+    assert!(v["result"]["counts"].as_f64().expect("counts") > 3.0, "{v}");
+
+    let out = servotty(&["tune", "identify", "x", "--yes", "--json"]);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).expect("json");
+    // The demo X axis's true velocity gain follows from its (invented) motor constants:
+    // K = supply/100 · Kt/(R·b + Kt·Ke) · r·1000/N with r = 40 mm/(2π), N = 15
+    // (University of Michigan Control Tutorials, "DC Motor Speed: System Modeling").
+    let (kt, ke, r_ohm, b) = (0.02_f64, 0.02_f64, 2.0_f64, 1.0e-6_f64);
+    let k_true = 12.0 / 100.0 * kt / (r_ohm * b + kt * ke) * (40.0 / std::f64::consts::TAU) / 15.0;
+    let k = v["result"]["model"]["gain"].as_f64().expect("gain");
+    assert!((k / k_true - 1.0).abs() < 0.05, "identified {k}, true {k_true}");
+    assert!(v["proposed"].as_str().expect("lines").contains("kp = "), "{v}");
+}

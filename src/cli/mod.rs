@@ -18,6 +18,7 @@ pub mod home_cmd;
 pub mod linktest;
 pub mod move_cmd;
 pub mod sim_pty;
+pub mod tune;
 
 /// Exit code: done.
 pub const EXIT_OK: u8 = 0;
@@ -57,6 +58,8 @@ pub enum Command {
     Move(MoveArgs),
     /// Link and home every axis in the configured order.
     Home(HomeArgs),
+    /// Commissioning steps on one axis: direction, breakaway, identify, relay, step.
+    Tune(tune::TuneArgs),
     /// Measure each link: frame rate, host turnaround, bad and missed frames, CPU share.
     Linktest(LinktestArgs),
     /// Analyse a recorded file (no machine needed), e.g. the metrics of a step test.
