@@ -10,7 +10,7 @@
 use std::sync::{Arc, Mutex, PoisonError};
 use std::time::Duration;
 
-use tokio::io::{AsyncReadExt, AsyncWriteExt};
+use tokio::io::AsyncWriteExt;
 
 use tokio::time::MissedTickBehavior;
 
@@ -24,7 +24,7 @@ use crate::transport::BoardStream;
 
 /// Tick rate the simulated board runs at before the host configures it, Hz.
 const POWER_UP_TICK_HZ: u16 = 1000;
-/// Longest a telemetry frame waits for room in the link before it is dropped.
+/// Longest a frame waits for room in the link before it is dropped.
 const TX_PATIENCE: Duration = Duration::from_micros(500);
 /// Fastest tick the simulated board accepts, Hz.
 const MAX_TICK_HZ: u16 = 5000;
@@ -157,251 +157,284 @@ impl SimBoard {
     /// Mirrors the firmware contract in docs/protocol.md: motor off at power-up; answer Hello
     /// with capabilities; stream telemetry every tick after Configure; apply each valid Duty at
     /// the next tick; motor off on Stop, and on watchdog expiry until the next valid Duty.
+    ///
+    /// Like a firmware main loop, the board does everything at its tick: read what the host
+    /// sent since the last tick, then sample, step and send. One wake-up per tick (not one
+    /// per host message) keeps eight boards at 1 kHz cheap enough to share a small computer
+    /// with the host they are testing.
     pub async fn run<S: BoardStream>(mut self, mut stream: S) {
-        let mut tick_hz = POWER_UP_TICK_HZ;
-        let mut watchdog_ticks: u64 = 50;
-        let mut streaming = false;
-        let mut interval = make_interval(tick_hz);
-        let mut decoder = FrameDecoder::new();
+        let mut b = BoardState::new(self.seed, self.plant_params.home_switch_mm.is_some());
+        let mut interval = make_interval(b.tick_hz);
         let mut rx = vec![0u8; 4096];
-        let mut tx: Vec<u8> = Vec::with_capacity(256);
-        let mut rng = SplitMix64(self.seed);
-
-        let mut ticks: u64 = 0;
-        let mut seq: u16 = 0;
-        let mut duty = 0.0_f64;
-        let mut motor_on = false;
-        let mut watchdog_tripped = false;
-        let mut last_command_tick: u64 = 0;
-        let mut ack_seq: u16 = 0;
-        let mut commands_received: u64 = 0;
-        let mut frames_sent: u64 = 0;
-        let mut motor_off_at_tick: Option<u64> = None;
-        let mut host_absent = false;
-        // One read per tick is all a board needs (a duty is applied at the next tick
-        // anyway). A PTY signals "readable" several times per host message and most of
-        // those reads come back empty; not reading again until the next tick saves those
-        // system calls, which otherwise cost more than everything else the board does.
-        let mut read_this_tick = false;
-        let mut tick_due = false;
-        let mut retry_read_at = tokio::time::Instant::now();
-        let features = if self.plant_params.home_switch_mm.is_some() {
-            features::INDEX_PULSE | features::HOME_INPUT
-        } else {
-            features::INDEX_PULSE
-        };
-
+        let mut retry_read_at: Option<tokio::time::Instant> = None;
         loop {
-            tokio::select! {
-                // Order matters: at a tick, first take what the host sent (a Stop that
-                // arrived during the last tick must act on this one), then do the tick.
-                biased;
-                n = stream.read(&mut rx), if !host_absent && !read_this_tick => {
-                    let n = match n {
-                        Ok(n) if n > 0 => {
-                            read_this_tick = true;
-                            n
+            interval.tick().await;
+            // 1. What the host sent since the last tick.
+            let now = tokio::time::Instant::now();
+            if retry_read_at.is_none_or(|t| now >= t) {
+                retry_read_at = None;
+                loop {
+                    match read_now(&mut stream, &mut rx).await {
+                        None => break,
+                        Some(Ok(n)) if n > 0 => {
+                            if self.handle.lock().link_faults.cut {
+                                continue;
+                            }
+                            b.decoder.extend(&rx[..n]);
+                            while let Some(msg) = b.decoder.next_message::<HostMessage>() {
+                                // Bad frames are dropped and, per the contract, never feed
+                                // the watchdog.
+                                let Ok(msg) = msg else { continue };
+                                if let Some(reply) = b.on_host(msg) {
+                                    send(&mut stream, &reply).await;
+                                }
+                            }
                         }
-                        _ if self.persistent => {
+                        Some(_) if self.persistent => {
                             // A PTY with no host on the other side reads as an error; look
-                            // again shortly, ticking on meanwhile (sleeping here would stall
-                            // the ticks and make them burst later).
-                            host_absent = true;
-                            retry_read_at = tokio::time::Instant::now() + Duration::from_millis(50);
-                            continue;
+                            // again shortly, ticking on meanwhile.
+                            retry_read_at = Some(now + Duration::from_millis(50));
+                            break;
                         }
-                        _ => return,
-                    };
-                    if self.handle.lock().link_faults.cut {
-                        continue;
-                    }
-                    decoder.extend(&rx[..n]);
-                    let mut got_any = false;
-                    while let Some(msg) = decoder.next_message::<HostMessage>() {
-                        got_any = true;
-                        // Bad frames are dropped and, per the contract, never feed the
-                        // watchdog.
-                        let Ok(msg) = msg else { continue };
-                        commands_received += 1;
-                        match msg {
-                            HostMessage::Hello => {
-                                // Contract: Hello switches the motor off first.
-                                if motor_on {
-                                    motor_off_at_tick = Some(ticks);
-                                }
-                                motor_on = false;
-                                duty = 0.0;
-                                let caps = BoardMessage::Hello(Capabilities {
-                                    protocol_version: protocol::PROTOCOL_VERSION,
-                                    max_tick_hz: MAX_TICK_HZ,
-                                    features,
-                                    board_name: "servotty-sim".to_owned(),
-                                });
-                                tx.clear();
-                                protocol::write_frame(&caps, &mut tx);
-                                send_without_waiting(&mut stream, &tx);
-                            }
-                            HostMessage::Configure { tick_hz: hz, watchdog_ms } => {
-                                let hz = hz.clamp(1, MAX_TICK_HZ);
-                                if hz != tick_hz {
-                                    // Board time stays continuous across a rate change.
-                                    ticks = ticks * u64::from(hz) / u64::from(tick_hz);
-                                    tick_hz = hz;
-                                    interval = make_interval(tick_hz);
-                                }
-                                watchdog_ticks =
-                                    (u64::from(watchdog_ms) * u64::from(tick_hz)).div_ceil(1000).max(1);
-                                // Contract: Configure starts from motor off with fresh
-                                // sequence numbers.
-                                if motor_on {
-                                    motor_off_at_tick = Some(ticks);
-                                }
-                                motor_on = false;
-                                duty = 0.0;
-                                seq = 0;
-                                ack_seq = 0;
-                                watchdog_tripped = false;
-                                streaming = true;
-                            }
-                            // Contract: a Duty before Configure is ignored (no watchdog
-                            // is armed yet).
-                            HostMessage::Duty { .. } if !streaming => {}
-                            HostMessage::Duty { seq: s, duty: d } => {
-                                duty = f64::from(d.clamp(-protocol::DUTY_FULL_SCALE, protocol::DUTY_FULL_SCALE))
-                                    / f64::from(protocol::DUTY_FULL_SCALE);
-                                motor_on = true;
-                                watchdog_tripped = false;
-                                last_command_tick = ticks;
-                                ack_seq = s;
-                            }
-                            HostMessage::Stop { seq: s } => {
-                                if motor_on {
-                                    // Received after tick `ticks`: the next tick already
-                                    // runs with the bridge off.
-                                    motor_off_at_tick = Some(ticks);
-                                }
-                                motor_on = false;
-                                duty = 0.0;
-                                last_command_tick = ticks;
-                                ack_seq = s;
-                            }
+                        Some(_) => {
+                            // The host hung up: a real board would stop on its watchdog.
+                            b.motor_off();
+                            self.publish(&b);
+                            return;
                         }
                     }
-                    if got_any {
-                        // Show the bridge state at once, not only at the next tick: a host
-                        // that stops the motor and then closes the link must see it off.
-                        let mut sh = self.handle.lock();
-                        sh.view.motor_on = motor_on;
-                        sh.view.duty = if motor_on { duty } else { 0.0 };
-                        sh.view.motor_off_at_tick = motor_off_at_tick;
-                        sh.view.commands_received = commands_received;
-                    }
                 }
-                () = std::future::ready(()), if tick_due => {
-                    tick_due = false;
-                    let (pf, lf) = {
-                        let s = self.handle.lock();
-                        (s.plant_faults.clone(), s.link_faults.clone())
-                    };
-                    self.plant.faults = pf;
-                    let period = 1.0 / f64::from(tick_hz);
-                    ticks += 1;
-                    if motor_on && ticks.saturating_sub(last_command_tick) > watchdog_ticks {
-                        motor_on = false;
-                        watchdog_tripped = true;
-                        motor_off_at_tick = Some(ticks);
-                    }
-                    self.plant.step(if motor_on { duty } else { 0.0 }, period);
-                    let count = self.plant.encoder_count();
-                    {
-                        let mut s = self.handle.lock();
-                        s.view = BoardView {
-                            position_mm: self.plant.position_mm(),
-                            velocity_mm_s: self.plant.velocity_mm_s(),
-                            count,
-                            duty: if motor_on { duty } else { 0.0 },
-                            motor_on,
-                            watchdog_tripped,
-                            ticks,
-                            frames_sent,
-                            commands_received,
-                            motor_off_at_tick,
-                        };
-                    }
-                    if !streaming || lf.cut {
-                        continue;
-                    }
-                    let this_seq = seq;
-                    seq = seq.wrapping_add(1);
-                    if rng.chance(lf.drop_probability) {
-                        continue;
-                    }
-                    let mut in_bits = 0u8;
-                    if self.plant.home_switch() {
-                        in_bits |= inputs::HOME;
-                    }
-                    if self.plant.index_pulse() {
-                        in_bits |= inputs::INDEX;
-                    }
-                    let mut st = 0u8;
-                    if motor_on {
-                        st |= status::MOTOR_ON;
-                    }
-                    if watchdog_tripped {
-                        st |= status::WATCHDOG_TRIPPED;
-                    }
-                    let board_time_us = (ticks * 1_000_000 / u64::from(tick_hz)) as u32;
-                    let frame = BoardMessage::Telemetry(Telemetry {
-                        seq: this_seq,
-                        board_time_us,
-                        // The wire count is 32 bits and wraps; the host unwraps it.
-                        count: count as i32,
-                        inputs: in_bits,
-                        status: st,
-                        ack_seq,
-                    });
-                    tx.clear();
-                    protocol::write_frame(&frame, &mut tx);
-                    if rng.chance(lf.corrupt_probability) && tx.len() > 2 {
-                        let bit = (rng.next() % ((tx.len() as u64 - 1) * 8)) as usize;
-                        tx[bit / 8] ^= 1 << (bit % 8);
-                        // Keep the delimiter out of the body so only this frame is hit.
-                        if tx[bit / 8] == 0 {
-                            tx[bit / 8] = 0x55;
-                        }
-                    }
-                    // A UART drains its FIFO within a fraction of a tick; when nobody reads
-                    // and the buffer stays full, the frame (or its tail) is lost and the host
-                    // resyncs. Waiting a little (not at all would also drop frames whenever
-                    // the OS reports the device busy for a moment) keeps the tick running.
-                    let sent = tokio::time::timeout(TX_PATIENCE, stream.write_all(&tx)).await;
-                    if matches!(sent, Ok(Ok(()))) {
-                        frames_sent += 1;
-                    }
+                if b.rate_changed {
+                    b.rate_changed = false;
+                    interval = make_interval(b.tick_hz);
                 }
-                _ = interval.tick(), if !tick_due => {
-                    tick_due = true;
-                    read_this_tick = false;
+            }
+            // 2. The tick itself.
+            let (pf, lf) = {
+                let s = self.handle.lock();
+                (s.plant_faults.clone(), s.link_faults.clone())
+            };
+            self.plant.faults = pf;
+            b.ticks += 1;
+            if b.motor_on && b.ticks.saturating_sub(b.last_command_tick) > b.watchdog_ticks {
+                b.motor_on = false;
+                b.watchdog_tripped = true;
+                b.motor_off_at_tick = Some(b.ticks);
+            }
+            let period = 1.0 / f64::from(b.tick_hz);
+            self.plant.step(if b.motor_on { b.duty } else { 0.0 }, period);
+            self.publish(&b);
+            if !b.streaming || lf.cut {
+                continue;
+            }
+            let this_seq = b.seq;
+            b.seq = b.seq.wrapping_add(1);
+            if b.rng.chance(lf.drop_probability) {
+                continue;
+            }
+            let frame = b.telemetry(this_seq, &self.plant);
+            b.tx.clear();
+            protocol::write_frame(&frame, &mut b.tx);
+            if b.rng.chance(lf.corrupt_probability) && b.tx.len() > 2 {
+                let bit = (b.rng.next() % ((b.tx.len() as u64 - 1) * 8)) as usize;
+                b.tx[bit / 8] ^= 1 << (bit % 8);
+                // Keep the delimiter out of the body so only this frame is hit.
+                if b.tx[bit / 8] == 0 {
+                    b.tx[bit / 8] = 0x55;
                 }
-                () = tokio::time::sleep_until(retry_read_at), if host_absent => {
-                    host_absent = false;
-                }
+            }
+            if send(&mut stream, &b.tx).await {
+                b.frames_sent += 1;
             }
         }
     }
+
+    fn publish(&self, b: &BoardState) {
+        let view = BoardView {
+            position_mm: self.plant.position_mm(),
+            velocity_mm_s: self.plant.velocity_mm_s(),
+            count: self.plant.encoder_count(),
+            duty: if b.motor_on { b.duty } else { 0.0 },
+            motor_on: b.motor_on,
+            watchdog_tripped: b.watchdog_tripped,
+            ticks: b.ticks,
+            frames_sent: b.frames_sent,
+            commands_received: b.commands_received,
+            motor_off_at_tick: b.motor_off_at_tick,
+        };
+        self.handle.lock().view = view;
+    }
 }
 
-/// Writes what the stream takes right now; true if the whole frame went out.
-fn send_without_waiting<S: BoardStream>(stream: &mut S, bytes: &[u8]) -> bool {
-    use futures::FutureExt;
-    let mut done = 0;
-    while done < bytes.len() {
-        match stream.write(&bytes[done..]).now_or_never() {
-            Some(Ok(n)) if n > 0 => done += n,
-            _ => return false,
+/// The firmware's variables.
+struct BoardState {
+    tick_hz: u16,
+    rate_changed: bool,
+    watchdog_ticks: u64,
+    streaming: bool,
+    decoder: FrameDecoder,
+    tx: Vec<u8>,
+    rng: SplitMix64,
+    ticks: u64,
+    seq: u16,
+    duty: f64,
+    motor_on: bool,
+    watchdog_tripped: bool,
+    last_command_tick: u64,
+    ack_seq: u16,
+    commands_received: u64,
+    frames_sent: u64,
+    motor_off_at_tick: Option<u64>,
+    features: u16,
+}
+
+impl BoardState {
+    fn new(seed: u64, home_input: bool) -> Self {
+        Self {
+            tick_hz: POWER_UP_TICK_HZ,
+            rate_changed: false,
+            watchdog_ticks: 50,
+            streaming: false,
+            decoder: FrameDecoder::new(),
+            tx: Vec::with_capacity(256),
+            rng: SplitMix64(seed),
+            ticks: 0,
+            seq: 0,
+            duty: 0.0,
+            motor_on: false,
+            watchdog_tripped: false,
+            last_command_tick: 0,
+            ack_seq: 0,
+            commands_received: 0,
+            frames_sent: 0,
+            motor_off_at_tick: None,
+            features: if home_input {
+                features::INDEX_PULSE | features::HOME_INPUT
+            } else {
+                features::INDEX_PULSE
+            },
         }
     }
-    true
+
+    fn motor_off(&mut self) {
+        if self.motor_on {
+            // Received after tick `ticks`: the next tick already runs with the bridge off.
+            self.motor_off_at_tick = Some(self.ticks);
+        }
+        self.motor_on = false;
+        self.duty = 0.0;
+    }
+
+    /// Applies one valid host message; returns bytes to send back, if any.
+    fn on_host(&mut self, msg: HostMessage) -> Option<Vec<u8>> {
+        self.commands_received += 1;
+        match msg {
+            HostMessage::Hello => {
+                // Contract: Hello switches the motor off first.
+                self.motor_off();
+                let caps = BoardMessage::Hello(Capabilities {
+                    protocol_version: protocol::PROTOCOL_VERSION,
+                    max_tick_hz: MAX_TICK_HZ,
+                    features: self.features,
+                    board_name: "servotty-sim".to_owned(),
+                });
+                let mut out = Vec::new();
+                protocol::write_frame(&caps, &mut out);
+                Some(out)
+            }
+            HostMessage::Configure { tick_hz, watchdog_ms } => {
+                let hz = tick_hz.clamp(1, MAX_TICK_HZ);
+                if hz != self.tick_hz {
+                    // Board time stays continuous across a rate change.
+                    self.ticks = self.ticks * u64::from(hz) / u64::from(self.tick_hz);
+                    self.tick_hz = hz;
+                    self.rate_changed = true;
+                }
+                self.watchdog_ticks =
+                    (u64::from(watchdog_ms) * u64::from(self.tick_hz)).div_ceil(1000).max(1);
+                // Contract: Configure starts from motor off with fresh sequence numbers.
+                self.motor_off();
+                self.seq = 0;
+                self.ack_seq = 0;
+                self.watchdog_tripped = false;
+                self.streaming = true;
+                None
+            }
+            // Contract: a Duty before Configure is ignored (no watchdog is armed yet).
+            HostMessage::Duty { .. } if !self.streaming => None,
+            HostMessage::Duty { seq, duty } => {
+                let full = protocol::DUTY_FULL_SCALE;
+                self.duty = f64::from(duty.clamp(-full, full)) / f64::from(full);
+                self.motor_on = true;
+                self.watchdog_tripped = false;
+                self.last_command_tick = self.ticks;
+                self.ack_seq = seq;
+                None
+            }
+            HostMessage::Stop { seq } => {
+                self.motor_off();
+                self.last_command_tick = self.ticks;
+                self.ack_seq = seq;
+                None
+            }
+        }
+    }
+
+    fn telemetry(&self, seq: u16, plant: &Plant) -> BoardMessage {
+        let mut in_bits = 0u8;
+        if plant.home_switch() {
+            in_bits |= inputs::HOME;
+        }
+        if plant.index_pulse() {
+            in_bits |= inputs::INDEX;
+        }
+        let mut st = 0u8;
+        if self.motor_on {
+            st |= status::MOTOR_ON;
+        }
+        if self.watchdog_tripped {
+            st |= status::WATCHDOG_TRIPPED;
+        }
+        BoardMessage::Telemetry(Telemetry {
+            seq,
+            board_time_us: (self.ticks * 1_000_000 / u64::from(self.tick_hz)) as u32,
+            // The wire count is 32 bits and wraps; the host unwraps it.
+            count: plant.encoder_count() as i32,
+            inputs: in_bits,
+            status: st,
+            ack_seq: self.ack_seq,
+        })
+    }
+}
+
+/// Sends a frame; true if it all went out.
+///
+/// A UART drains its FIFO within a fraction of a tick; when nobody reads and the buffer stays
+/// full, the frame (or its tail) is lost and the host resyncs. Waiting a moment (not at all
+/// would drop frames whenever the OS reports the device busy for an instant) keeps the tick
+/// running either way.
+async fn send<S: BoardStream>(stream: &mut S, bytes: &[u8]) -> bool {
+    matches!(tokio::time::timeout(TX_PATIENCE, stream.write_all(bytes)).await, Ok(Ok(())))
+}
+
+/// Reads what has arrived, without waiting: None when nothing is there.
+///
+/// Polls with the task's own waker: a readiness event then merely wakes the task, which goes
+/// back to waiting for its tick without a system call.
+async fn read_now<S: BoardStream>(
+    stream: &mut S,
+    buf: &mut [u8],
+) -> Option<std::io::Result<usize>> {
+    use std::task::Poll;
+    std::future::poll_fn(|cx| {
+        let mut rb = tokio::io::ReadBuf::new(buf);
+        match std::pin::Pin::new(&mut *stream).poll_read(cx, &mut rb) {
+            Poll::Ready(Ok(())) => Poll::Ready(Some(Ok(rb.filled().len()))),
+            Poll::Ready(Err(e)) => Poll::Ready(Some(Err(e))),
+            Poll::Pending => Poll::Ready(None),
+        }
+    })
+    .await
 }
 
 fn make_interval(tick_hz: u16) -> tokio::time::Interval {
