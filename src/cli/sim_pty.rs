@@ -11,10 +11,21 @@ pub fn run(args: &SimArgs) -> u8 {
         eprintln!("servotty: sim needs --pty (serve each simulated axis on a pseudo-terminal)");
         return EXIT_USAGE;
     }
-    let (cfg, _, rt) = match crate::cli::prepare(args.config.as_deref()) {
+    let (cfg, _, _) = match crate::cli::prepare(args.config.as_deref()) {
         Ok(p) => p,
         Err(code) => return code,
     };
+    // Unlike the host, the simulated boards pay a PTY read and write per tick each, which on
+    // a small VM costs most of a core for eight boards: spread them over two workers so the
+    // boards keep their tick (the host they test stays on one thread).
+    let rt =
+        match tokio::runtime::Builder::new_multi_thread().worker_threads(2).enable_all().build() {
+            Ok(rt) => rt,
+            Err(e) => {
+                eprintln!("servotty: cannot start the runtime: {e}");
+                return EXIT_FAILED;
+            }
+        };
     rt.block_on(async {
         let mut served = 0;
         for (i, axis) in cfg.axes.iter().enumerate() {
