@@ -462,6 +462,31 @@ pub struct ControllerConfig {
     pub ff_static: f64,
 }
 
+impl Default for ControllerConfig {
+    /// Every key at its documented default, proportional mode with no gain: a neutral base
+    /// for building a configuration in code.
+    fn default() -> Self {
+        Self {
+            mode: ControlMode::Proportional,
+            on_off_duty: default_on_off_duty(),
+            tolerance: default_tolerance(),
+            kp: 0.0,
+            ki: 0.0,
+            kd: 0.0,
+            derivative_filter_s: default_derivative_filter(),
+            integral_limit: default_integral_limit(),
+            anti_windup: AntiWindup::default(),
+            tracking_time_s: default_tracking_time(),
+            min_duty_forward: 0.0,
+            min_duty_reverse: 0.0,
+            max_duty: default_max_duty(),
+            ff_velocity: 0.0,
+            ff_acceleration: 0.0,
+            ff_static: 0.0,
+        }
+    }
+}
+
 fn default_on_off_duty() -> f64 {
     40.0
 }

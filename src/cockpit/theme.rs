@@ -85,7 +85,7 @@ impl Theme {
         Style::new().add_modifier(Modifier::BOLD)
     }
 
-    /// An alarm: red, or reverse video without colour.
+    /// An alarm: red, or inverted colours when there is no colour.
     pub fn alarm(self) -> Style {
         if self.color {
             Style::new().fg(Color::White).bg(Color::Red).add_modifier(Modifier::BOLD)

@@ -353,21 +353,13 @@ mod tests {
     fn pid() -> ControllerConfig {
         ControllerConfig {
             mode: ControlMode::Pid,
-            on_off_duty: 40.0,
-            tolerance: 0.5,
             kp: 2.0,
             ki: 2.0,
             kd: 0.5,
             derivative_filter_s: 0.025,
             integral_limit: 100.0,
-            anti_windup: AntiWindup::Clamp,
             tracking_time_s: 0.5,
-            min_duty_forward: 0.0,
-            min_duty_reverse: 0.0,
-            max_duty: 100.0,
-            ff_velocity: 0.0,
-            ff_acceleration: 0.0,
-            ff_static: 0.0,
+            ..ControllerConfig::default()
         }
     }
 

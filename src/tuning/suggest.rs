@@ -418,26 +418,13 @@ pub fn round_sig(x: f64, digits: i32) -> f64 {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::config::AntiWindup;
 
     fn base() -> ControllerConfig {
         ControllerConfig {
             mode: ControlMode::Proportional,
-            on_off_duty: 40.0,
-            tolerance: 0.5,
             kp: 1.0,
-            ki: 0.0,
-            kd: 0.0,
-            derivative_filter_s: 0.002,
             integral_limit: 20.0,
-            anti_windup: AntiWindup::Clamp,
-            tracking_time_s: 0.05,
-            min_duty_forward: 0.0,
-            min_duty_reverse: 0.0,
-            max_duty: 100.0,
-            ff_velocity: 0.0,
-            ff_acceleration: 0.0,
-            ff_static: 0.0,
+            ..ControllerConfig::default()
         }
     }
 
