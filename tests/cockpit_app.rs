@@ -113,6 +113,10 @@ fn jog_and_home_keys_become_engine_commands() {
         vec![Effect::Command { axis: 0, command: AxisCommand::Home }]
     );
     assert_eq!(app.apply(now(), Action::HomeAll), vec![Effect::HomeAll]);
+    assert_eq!(
+        app.apply(now(), Action::JogRelease),
+        vec![Effect::Command { axis: 0, command: AxisCommand::JogRelease }]
+    );
     // A held key's repeats are not logged one by one.
     let before = app.log.len();
     for _ in 0..30 {

@@ -7,7 +7,7 @@ use std::sync::{Arc, Mutex};
 use std::time::Duration;
 
 use cockpit_support as s;
-use crossterm::event::{Event, KeyCode, KeyEvent, KeyModifiers};
+use crossterm::event::{Event, KeyCode, KeyEvent, KeyEventKind, KeyModifiers};
 use futures::Stream;
 use ratatui::backend::TestBackend;
 use ratatui::Terminal;
@@ -214,4 +214,48 @@ async fn an_outside_stop_request_ends_the_loop_and_closed_input_is_an_error() {
         .await
         .expect_err("input closed");
     assert!(err.to_string().contains("closed"), "{err}");
+}
+
+fn key_of_kind(c: char, kind: KeyEventKind) -> std::io::Result<Event> {
+    Ok(Event::Key(KeyEvent::new_with_kind(KeyCode::Char(c), KeyModifiers::NONE, kind)))
+}
+
+// Terminals with the keyboard enhancement protocol send Press, Repeat… and Release: the
+// repeats keep a held jog going and the release ends it at once.
+#[tokio::test(start_paused = true)]
+async fn a_reported_key_release_ends_a_held_jog() {
+    let machine = FakeMachine::with(s::frame(0));
+    let mut app = App::new(s::demo(), ConfigSource::BuiltInDemo, Theme::default());
+    let mut term = Terminal::new(TestBackend::new(80, 24)).expect("terminal");
+    let (tx, rx) = mpsc::channel(16);
+    let script = {
+        let machine = Arc::clone(&machine);
+        async move {
+            frames(2).await;
+            tx.send(key_of_kind('>', KeyEventKind::Press)).await.expect("send");
+            tx.send(key_of_kind('>', KeyEventKind::Repeat)).await.expect("send");
+            tx.send(key_of_kind('>', KeyEventKind::Release)).await.expect("send");
+            frames(2).await;
+            let sent: Vec<AxisCommand> =
+                machine.lock().sent.iter().map(|(_, c)| c.clone()).collect();
+            assert!(matches!(sent[0], AxisCommand::JogPulse { direction: 1, .. }), "{sent:?}");
+            assert!(matches!(sent[1], AxisCommand::JogPulse { direction: 1, .. }), "{sent:?}");
+            assert_eq!(sent[2], AxisCommand::JogRelease, "{sent:?}");
+            tx.send(ch('q')).await.expect("send");
+            frames(1).await;
+            tx.send(ch('y')).await.expect("send");
+            std::future::pending::<()>().await;
+        }
+    };
+    let run = runner::run(
+        &mut term,
+        key_stream(rx),
+        Arc::clone(&machine),
+        &mut app,
+        std::future::pending(),
+    );
+    tokio::select! {
+        r = run => r.expect("runs until quit"),
+        () = script => unreachable!(),
+    }
 }

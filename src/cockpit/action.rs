@@ -72,6 +72,9 @@ pub enum Action {
     JogStep(Dir),
     /// Jog the selected axis continuously while the key is held (auto-repeat keeps it going).
     JogHold(Dir),
+    /// The held jog key was released (only terminals with the keyboard enhancement protocol
+    /// report releases; elsewhere the engine's deadman ends the jog).
+    JogRelease,
     /// Smaller jog step.
     StepSmaller,
     /// Larger jog step.

@@ -378,6 +378,10 @@ impl App {
             }
             Action::GoTo if n > 0 => self.prompt(Purpose::GoTo { axis: sel }, String::new()),
             Action::GoTo => {}
+            Action::JogRelease if n > 0 => {
+                return vec![Effect::Command { axis: sel, command: AxisCommand::JogRelease }];
+            }
+            Action::JogRelease => {}
             Action::HomeAll => {
                 self.note(Kind::Operator, "home all axes in the configured order");
                 return vec![Effect::HomeAll];

@@ -114,7 +114,19 @@ where
         tokio::select! {
             biased;
             ev = events.next() => match ev {
-                Some(Ok(Event::Key(k))) if k.kind == KeyEventKind::Press => {
+                Some(Ok(Event::Key(k))) if k.kind == KeyEventKind::Release => {
+                    // Only a held jog key's release matters (terminals that report releases).
+                    if let Some(crate::cockpit::action::Action::JogHold(_)) =
+                        keys::map_key(app.mode(), &k)
+                    {
+                        let action = crate::cockpit::action::Action::JogRelease;
+                        for fx in app.apply(start.elapsed(), action) {
+                            execute(fx, &*port, &lanes, &notice_tx, app, start.elapsed());
+                        }
+                    }
+                }
+                // An auto-repeat is a press again (what terminals without releases send too).
+                Some(Ok(Event::Key(k))) => {
                     if let Some(action) = keys::map_key(app.mode(), &k) {
                         for fx in app.apply(start.elapsed(), action) {
                             execute(fx, &*port, &lanes, &notice_tx, app, start.elapsed());

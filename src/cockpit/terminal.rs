@@ -21,6 +21,9 @@ const OUTPUT_BUFFER: usize = 256 * 1024;
 static ACTIVE: AtomicBool = AtomicBool::new(false);
 /// Set by the panic hook: any thread panicked, the UI must end.
 static PANICKED: AtomicBool = AtomicBool::new(false);
+/// Set while the terminal reports key releases (keyboard enhancement protocol), so that
+/// restore pops the flags it pushed.
+static RELEASES: AtomicBool = AtomicBool::new(false);
 static HOOK: Once = Once::new();
 
 /// The terminal type the cockpit draws on.
@@ -43,6 +46,16 @@ impl Session {
         ACTIVE.store(true, Ordering::SeqCst);
         let setup = (|| {
             execute!(io::stdout(), terminal::EnterAlternateScreen, cursor::Hide)?;
+            // Where the terminal can say when a key is let go, a held jog stops on release
+            // instead of waiting out the deadman.
+            if terminal::supports_keyboard_enhancement().unwrap_or(false) {
+                use crossterm::event::{KeyboardEnhancementFlags, PushKeyboardEnhancementFlags};
+                execute!(
+                    io::stdout(),
+                    PushKeyboardEnhancementFlags(KeyboardEnhancementFlags::REPORT_EVENT_TYPES)
+                )?;
+                RELEASES.store(true, Ordering::SeqCst);
+            }
             let backend =
                 CrosstermBackend::new(BufWriter::with_capacity(OUTPUT_BUFFER, io::stdout()));
             let mut t = Terminal::new(backend)?;
@@ -76,6 +89,11 @@ pub fn restore() {
         return;
     }
     let mut out = io::stdout();
+    if RELEASES.swap(false, Ordering::SeqCst) {
+        if let Err(e) = execute!(out, crossterm::event::PopKeyboardEnhancementFlags) {
+            eprintln!("servotty: could not reset the keyboard mode: {e}");
+        }
+    }
     if let Err(e) = execute!(out, terminal::LeaveAlternateScreen) {
         eprintln!("servotty: could not leave the alternate screen: {e}");
     }
