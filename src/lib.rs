@@ -13,10 +13,12 @@
 //! - [`cockpit`]: the terminal UI (overview, axis detail, event log, keymap, gain saving).
 //! - [`tuning`]: commissioning analysis (identification, relay autotuning, tuning rules, gain
 //!   suggestions, step-test reports); pure functions on recorded samples.
+//! - [`commission`]: commissioning steps on a live machine (experiment, then analysis).
 //! - [`cli`]: the headless subcommands and argument parsing; `main.rs` only dispatches.
 
 pub mod cli;
 pub mod cockpit;
+pub mod commission;
 pub mod config;
 pub mod control;
 pub mod engine;

@@ -1,0 +1,319 @@
+//! Commissioning steps on a live machine: run one bounded experiment on an axis, analyse the
+//! record, and say what was found and which gains follow. Shared by `servotty tune` and the
+//! cockpit, so both run exactly the same procedure.
+//!
+//! The experiments run in the axis loop (`engine::experiment`); the analysis is pure
+//! (`tuning`). This module only sequences them and words the result.
+
+use std::path::PathBuf;
+use std::time::Duration;
+
+use clap::ValueEnum;
+
+use crate::config::{AxisConfig, ControllerConfig};
+use crate::engine::experiment::{ExperimentBounds, ExperimentResult, ExperimentSpec};
+use crate::engine::{AxisCommand, AxisHandle, AxisState, MachineHandle, Reply};
+use crate::tuning::{ident, relay, report, rules, suggest};
+
+/// Which commissioning step.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum TuneStep {
+    /// A short duty pulse forwards: does the encoder count up?
+    Direction,
+    /// Slow duty ramps each way: the smallest duty that moves the axis.
+    Breakaway,
+    /// Open-loop duty pulses: velocity gain, time constant, friction; SIMC gains.
+    Identify,
+    /// Relay oscillation: ultimate gain and period; Tyreus–Luyben gains.
+    Relay,
+    /// A closed-loop step: rise, overshoot, settling; CSV and SVG saved.
+    Step,
+}
+
+/// What to run, with the operator's overrides.
+#[derive(Debug, Clone, PartialEq)]
+pub struct StepRequest {
+    /// The step.
+    pub step: TuneStep,
+    /// Travel bound, units (a default per step when None).
+    pub travel: Option<f64>,
+    /// Duty for direction and relay, %.
+    pub duty: Option<f64>,
+    /// Step size for the step test, units.
+    pub size: Option<f64>,
+    /// Folder for the step test's CSV and SVG (the state folder's `steps` when None).
+    pub out_dir: Option<PathBuf>,
+}
+
+impl StepRequest {
+    /// The step with every default.
+    pub fn new(step: TuneStep) -> Self {
+        Self { step, travel: None, duty: None, size: None, out_dir: None }
+    }
+}
+
+/// What a step found.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Outcome {
+    /// False when the axis did not do what the step checks (or the test was cut short).
+    pub ok: bool,
+    /// Lines for a person.
+    pub text: String,
+    /// The numbers, for JSON.
+    pub result: serde_json::Value,
+    /// Proposed `[axis.controller]` lines (empty when none).
+    pub proposed: String,
+    /// The axis's controller with the suggested gains, when the step suggests gains.
+    pub suggested: Option<ControllerConfig>,
+}
+
+/// The plan of one step: experiment, bounds, and a sentence for the warning.
+pub fn plan(args: &StepRequest, a: &AxisConfig) -> (ExperimentSpec, ExperimentBounds) {
+    let max = a.controller.max_duty;
+    let duty = args.duty.unwrap_or(30.0).clamp(1.0, max);
+    let resolution = 1.0 / a.scale.counts_per_unit;
+    match args.step {
+        TuneStep::Direction => (
+            ExperimentSpec::DutySteps { steps: vec![(duty, 0.15)], settle_s: 0.3 },
+            ExperimentBounds { travel: args.travel.unwrap_or(10.0), seconds: 2.0 },
+        ),
+        TuneStep::Breakaway => (
+            ExperimentSpec::BreakawayRamp {
+                direction: 1,
+                rate: 5.0,
+                max_duty: max.min(60.0),
+                motion_counts: 3,
+            },
+            ExperimentBounds { travel: args.travel.unwrap_or(10.0), seconds: 15.0 },
+        ),
+        TuneStep::Identify => {
+            // Two sizes each way, each from rest, so that gain, friction and delay separate.
+            let (lo, hi) = ((0.3 * max).max(15.0).min(max), (0.5 * max).max(25.0).min(max));
+            let on = 0.25;
+            let rest = 0.3;
+            let steps = vec![
+                (lo, on),
+                (0.0, rest),
+                (-lo, on),
+                (0.0, rest),
+                (hi, on),
+                (0.0, rest),
+                (-hi, on),
+            ];
+            (
+                ExperimentSpec::DutySteps { steps, settle_s: rest },
+                ExperimentBounds { travel: args.travel.unwrap_or(150.0), seconds: 5.0 },
+            )
+        }
+        TuneStep::Relay => (
+            ExperimentSpec::Relay { amplitude: duty, hysteresis: 2.0 * resolution, seconds: 3.0 },
+            ExperimentBounds { travel: args.travel.unwrap_or(30.0), seconds: 4.0 },
+        ),
+        TuneStep::Step => {
+            let size = args.size.unwrap_or(5.0);
+            (
+                ExperimentSpec::Step { size, lead_s: 0.1, seconds: 1.5 },
+                ExperimentBounds {
+                    travel: args.travel.unwrap_or(3.0 * size.abs() + 5.0),
+                    seconds: 2.5,
+                },
+            )
+        }
+    }
+}
+
+async fn run_experiment(
+    a: &AxisHandle,
+    spec: ExperimentSpec,
+    bounds: ExperimentBounds,
+) -> Result<ExperimentResult, String> {
+    a.send(AxisCommand::Experiment { spec, bounds }).await.map_err(|e| e.to_string())?;
+    let mut rx = a.watch();
+    let limit = Duration::from_secs_f64(bounds.seconds + 5.0);
+    let _ = tokio::time::timeout(
+        limit,
+        rx.wait_for(|s| !matches!(s.state, AxisState::Testing | AxisState::Stopping)),
+    )
+    .await;
+    match a.send(AxisCommand::TakeExperiment).await.map_err(|e| e.to_string())? {
+        Reply::Experiment(Some(r)) => Ok(*r),
+        _ => Err("the test did not finish".to_owned()),
+    }
+}
+
+/// Runs one step on axis `a` (which must be linked; it is enabled if it is not). The axis is
+/// left holding (or as the test left it); `a` is the axis's live configuration.
+///
+/// # Errors
+/// A sentence: the axis refused, the test did not finish, or the analysis failed.
+pub async fn run(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Result<Outcome, String> {
+    let (spec, bounds) = plan(args, a);
+    let axis = h.axis(&a.name).ok_or("no such axis")?;
+    if !axis.snapshot().state.motor_on() {
+        axis.send(AxisCommand::Enable).await.map_err(|e| e.to_string())?;
+    }
+    // Let the hold settle so the test starts from rest.
+    tokio::time::sleep(Duration::from_millis(200)).await;
+    let u = a.scale.unit.clone();
+    let resolution = 1.0 / a.scale.counts_per_unit;
+    let mut runs = vec![run_experiment(axis, spec.clone(), bounds).await?];
+    if args.step == TuneStep::Breakaway {
+        // The other direction, from where the first ramp left the axis.
+        let ExperimentSpec::BreakawayRamp { rate, max_duty, motion_counts, .. } = spec else {
+            unreachable!("planned as a ramp")
+        };
+        let back = ExperimentSpec::BreakawayRamp { direction: -1, rate, max_duty, motion_counts };
+        runs.push(run_experiment(axis, back, bounds).await?);
+    }
+    let r = &runs[0];
+    if let Some(why) = &r.aborted {
+        return Ok(Outcome {
+            ok: false,
+            text: format!("test ended early: {why}"),
+            result: serde_json::json!({ "aborted": why }),
+            proposed: String::new(),
+            suggested: None,
+        });
+    }
+    let samples: Vec<ident::DutySample> = r.samples.iter().map(ident::DutySample::from).collect();
+    let mut patch_text = String::new();
+    let mut suggestion: Option<suggest::Suggestion> = None;
+    let (ok, text, extra) = match args.step {
+        TuneStep::Direction => {
+            let moved = r.samples.last().map_or(0.0, |s| s.position) - r.start_position;
+            let counts = (moved / resolution).round();
+            if counts.abs() < 3.0 {
+                (
+                    false,
+                    format!(
+                    "{}: did not move ({counts} counts): check motor power and wiring, then run \
+                     `tune breakaway` (the pulse may be below the minimum duty)", a.name),
+                    serde_json::json!({ "moved": moved, "counts": counts }),
+                )
+            } else if counts > 0.0 {
+                (true, format!("{}: forward duty counts up ({counts} counts, {moved:+.3} {u}): direction is right", a.name),
+                    serde_json::json!({ "moved": moved, "counts": counts }))
+            } else {
+                (
+                    false,
+                    format!(
+                    "{}: forward duty counted DOWN ({counts} counts). If the carriage moved in \
+                     its positive direction, set scale.invert_encoder = {}; if it moved the \
+                     negative way, set scale.invert_motor = {}.",
+                    a.name, !a.scale.invert_encoder, !a.scale.invert_motor),
+                    serde_json::json!({ "moved": moved, "counts": counts }),
+                )
+            }
+        }
+        TuneStep::Breakaway => {
+            let fwd = runs[0].moved_at_duty;
+            let rev = runs.get(1).and_then(|r| r.moved_at_duty);
+            match (fwd, rev) {
+                (Some(f), Some(r)) => {
+                    let up = |d: f64| (d.abs() * 2.0).ceil() / 2.0;
+                    patch_text =
+                        format!("min_duty_forward = {}\nmin_duty_reverse = {}\n", up(f), up(r));
+                    (
+                        true,
+                        format!(
+                            "{}: breaks away at {f:+.1} % forwards and {r:+.1} % in reverse",
+                            a.name
+                        ),
+                        serde_json::json!({ "forward_pct": f, "reverse_pct": r }),
+                    )
+                }
+                _ => (
+                    false,
+                    format!(
+                    "{}: did not move within the ramp (forwards {fwd:?}, reverse {rev:?}): check \
+                     motor power, the driver enable and the wiring", a.name),
+                    serde_json::json!({ "forward_pct": fwd, "reverse_pct": rev }),
+                ),
+            }
+        }
+        TuneStep::Identify => {
+            let opts = ident::IdentOptions { resolution: Some(resolution), ..Default::default() };
+            let id =
+                ident::identify(&samples, &opts).map_err(|e| format!("identification: {e}"))?;
+            let mut so = suggest::SimcOptions::new(1.0 / f64::from(a.board.tick_hz));
+            so.resolution = Some(resolution);
+            let s = suggest::simc(&id.model, &a.controller, &so).map_err(|e| e.to_string())?;
+            let m = id.model;
+            let text = format!(
+                "{}: velocity gain {:.4} {u}/s per %, time constant {:.4} s, friction offset {:.2} %, \
+                 delay {} (fit R² {:.4}, position RMS {:.4} {u})\n{}",
+                a.name, m.gain, m.time_constant_s, m.offset_pct,
+                m.delay_s.map_or_else(|| "not measured".to_owned(), |d| format!("{:.4} s", d)),
+                id.r_squared, id.position_rms, s.method
+            );
+            patch_text = s.patch.to_toml_lines();
+            let extra = serde_json::to_value(&id).unwrap_or_default();
+            suggestion = Some(s);
+            (true, text, extra)
+        }
+        TuneStep::Relay => {
+            let t: Vec<f64> = r.samples.iter().map(|s| s.t).collect();
+            let y: Vec<f64> = r.samples.iter().map(|s| s.position).collect();
+            let ExperimentSpec::Relay { amplitude, hysteresis, .. } = spec else {
+                unreachable!("planned as a relay")
+            };
+            let opts = relay::RelayOptions {
+                amplitude,
+                hysteresis,
+                ..relay::RelayOptions::ideal(amplitude)
+            };
+            let rr = relay::analyze_relay(&t, &y, &opts).map_err(|e| format!("relay: {e}"))?;
+            let s = suggest::from_relay(&rr, rules::Rule::TyreusLuybenPid, &a.controller, 10.0)
+                .map_err(|e| e.to_string())?;
+            let text = format!(
+                "{}: oscillation ±{:.4} {u}, period {:.4} s → Ku {:.2} %/{u}, Tu {:.4} s\n{}",
+                a.name, rr.amplitude, rr.period_s, rr.ultimate_gain, rr.period_s, s.method
+            );
+            patch_text = s.patch.to_toml_lines();
+            let extra = serde_json::to_value(rr).unwrap_or_default();
+            suggestion = Some(s);
+            (true, text, extra)
+        }
+        TuneStep::Step => {
+            let rows: Vec<report::StepRow> = r.samples.iter().map(report::StepRow::from).collect();
+            let summary = report::summarize_step(&rows, 0.02).map_err(|e| e.to_string())?;
+            let dir = args
+                .out_dir
+                .clone()
+                .unwrap_or_else(|| crate::engine::recorder::state_dir().join("steps"));
+            let stamp = crate::engine::events::rfc3339_utc(std::time::SystemTime::now())
+                .replace([':', '.'], "-");
+            let base = dir.join(format!("step-{}-{stamp}", a.name).to_lowercase());
+            let csv = base.with_extension("csv");
+            let svg = base.with_extension("svg");
+            std::fs::create_dir_all(&dir).map_err(|e| format!("{}: {e}", dir.display()))?;
+            report::write_step_csv(&csv, &rows).map_err(|e| format!("{}: {e}", csv.display()))?;
+            report::write_step_svg(&svg, &rows, &format!("{} step", a.name), &u)
+                .map_err(|e| e.to_string())?;
+            let text =
+                format!("{}\nsaved {} and {}", summary.to_text(&u), csv.display(), svg.display());
+            (
+                true,
+                text,
+                serde_json::json!({ "metrics": summary.to_json(), "csv": csv, "svg": svg }),
+            )
+        }
+    };
+    let mut text = text;
+    if !patch_text.is_empty() {
+        text.push_str(&format!("\nproposed [axis.controller] lines for {}:\n{patch_text}", a.name));
+    }
+    if let Some(s) = &suggestion {
+        for n in &s.notes {
+            text.push_str(&format!("  note: {n}\n"));
+        }
+    }
+    let suggested = suggestion.as_ref().map(|s| s.patch.apply(&a.controller));
+    Ok(Outcome {
+        ok,
+        text: text.trim_end().to_owned(),
+        result: extra,
+        proposed: patch_text,
+        suggested,
+    })
+}
