@@ -308,7 +308,25 @@ pub async fn run(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
             text.push_str(&format!("  note: {n}\n"));
         }
     }
-    let suggested = suggestion.as_ref().map(|s| s.patch.apply(&a.controller));
+    // The same four significant digits as the proposed lines: what is applied live is what a
+    // person reads and what `w` writes.
+    let suggested = suggestion.as_ref().map(|s| {
+        let mut c = s.patch.apply(&a.controller);
+        for v in [
+            &mut c.kp,
+            &mut c.ki,
+            &mut c.kd,
+            &mut c.derivative_filter_s,
+            &mut c.min_duty_forward,
+            &mut c.min_duty_reverse,
+            &mut c.ff_velocity,
+            &mut c.ff_acceleration,
+            &mut c.ff_static,
+        ] {
+            *v = suggest::round_sig(*v, 4);
+        }
+        c
+    });
     Ok(Outcome {
         ok,
         text: text.trim_end().to_owned(),

@@ -285,3 +285,44 @@ fn screens_and_log_scrolling() {
     app.apply(now(), Action::Back);
     assert_eq!(app.screen, Screen::Overview);
 }
+
+#[test]
+fn a_commissioning_test_is_asked_for_run_and_its_gains_applied() {
+    use servotty::commission::{Outcome, TuneStep};
+    let mut app = s::normal();
+    app.apply(now(), Action::OpenDetail);
+    app.apply(now(), Action::Test);
+    let Overlay::Prompt(p) = &app.overlay else { panic!("no prompt") };
+    assert!(matches!(p.purpose, Purpose::Test { axis: 0 }));
+    type_text(&mut app, "q");
+    assert_eq!(app.apply(now(), Action::EntrySubmit), vec![], "an unknown letter is refused");
+    app.apply(now(), Action::EntryBackspace);
+    type_text(&mut app, "i");
+    let fx = app.apply(now(), Action::EntrySubmit);
+    let [Effect::Tune { axis: 0, step: TuneStep::Identify, .. }] = fx.as_slice() else {
+        panic!("{fx:?}")
+    };
+    // The result comes back; its gains wait for `a`.
+    let mut c = app.config.axes[0].controller.clone();
+    c.kp = 18.88;
+    app.on_notice(
+        now(),
+        Notice::Tuned {
+            axis: 0,
+            result: Ok(Outcome {
+                ok: true,
+                text: "x: velocity gain 2.5".to_owned(),
+                result: serde_json::Value::Null,
+                proposed: "kp = 18.88\n".to_owned(),
+                suggested: Some(c.clone()),
+            }),
+        },
+    );
+    assert!(log_texts(&app).iter().any(|t| t.contains("velocity gain 2.5")));
+    let fx = app.apply(now(), Action::ApplySuggested);
+    assert_eq!(fx, vec![Effect::Command { axis: 0, command: AxisCommand::SetController(c) }]);
+    assert_eq!(app.config.axes[0].controller.kp, 18.88);
+    assert!(app.unsaved());
+    // Nothing left to apply.
+    assert_eq!(app.apply(now(), Action::ApplySuggested), vec![]);
+}

@@ -72,6 +72,10 @@ pub enum Action {
     JogStep(Dir),
     /// Jog the selected axis continuously while the key is held (auto-repeat keeps it going).
     JogHold(Dir),
+    /// Run a commissioning test on the selected axis (asks which).
+    Test,
+    /// Apply the gains the last test suggested.
+    ApplySuggested,
     /// The held jog key was released (only terminals with the keyboard enhancement protocol
     /// report releases; elsewhere the engine's deadman ends the jog).
     JogRelease,
@@ -140,6 +144,15 @@ pub enum Effect {
     },
     /// Home every axis in the configured order (its end comes back as a notice).
     HomeAll,
+    /// Run a commissioning test (its result comes back as a notice).
+    Tune {
+        /// Axis index.
+        axis: usize,
+        /// Which test.
+        step: crate::commission::TuneStep,
+        /// The axis's live configuration.
+        config: Box<crate::config::AxisConfig>,
+    },
     /// Save the live controller parameters into an existing configuration file.
     SaveGains {
         /// The file.

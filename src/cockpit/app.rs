@@ -64,6 +64,11 @@ pub enum Purpose {
     },
     /// A file name for a copy of the configuration (the demo has no file).
     SaveCopy,
+    /// Which commissioning test to run on an axis (one letter).
+    Test {
+        /// Axis index.
+        axis: usize,
+    },
 }
 
 /// A prompt being typed.
@@ -105,6 +110,13 @@ pub enum Notice {
     /// Something the engine reported that snapshots do not show (a trip capture written, a
     /// notice such as a test's end).
     Engine(crate::engine::Event),
+    /// A commissioning test finished (or failed).
+    Tuned {
+        /// Axis index.
+        axis: usize,
+        /// What it found.
+        result: Result<crate::commission::Outcome, String>,
+    },
     /// Machine-wide homing finished (or stopped).
     HomeAll {
         /// `Err(reason)` when an axis failed.
@@ -199,6 +211,8 @@ pub struct App {
     pub layout: Columns,
     /// Where the log file is (shown in help), or why there is none.
     pub log_file: Result<PathBuf, String>,
+    /// Gains the last commissioning test suggested, for one axis, until applied.
+    pub suggested: Option<(usize, ControllerConfig)>,
     /// Where trip captures and the event log are written, shown in the help overlay.
     pub recorder: Option<crate::engine::recorder::RecorderPaths>,
     /// Set when the cockpit should end.
@@ -242,6 +256,7 @@ impl App {
             theme,
             log_file: Err("not set up".to_owned()),
             recorder: None,
+            suggested: None,
             quit: false,
         }
     }
@@ -378,6 +393,9 @@ impl App {
             }
             Action::GoTo if n > 0 => self.prompt(Purpose::GoTo { axis: sel }, String::new()),
             Action::GoTo => {}
+            Action::Test if n > 0 => self.prompt(Purpose::Test { axis: sel }, String::new()),
+            Action::Test => {}
+            Action::ApplySuggested => return self.apply_suggested(),
             Action::JogRelease if n > 0 => {
                 return vec![Effect::Command { axis: sel, command: AxisCommand::JogRelease }];
             }
@@ -508,6 +526,7 @@ impl App {
         let outcome: Result<Vec<Effect>, String> = match purpose {
             Purpose::GoTo { axis } => self.submit_goto(axis, &text),
             Purpose::Gain { axis, param } => self.submit_gain(axis, param, &text),
+            Purpose::Test { axis } => self.submit_test(axis, &text),
             Purpose::SaveCopy => {
                 if text.is_empty() {
                     Err("type a file name".to_owned())
@@ -530,6 +549,54 @@ impl App {
                 vec![]
             }
         }
+    }
+
+    fn submit_test(&mut self, axis: usize, text: &str) -> Result<Vec<Effect>, String> {
+        use crate::commission::TuneStep;
+        let step = match text {
+            "d" => TuneStep::Direction,
+            "b" => TuneStep::Breakaway,
+            "i" => TuneStep::Identify,
+            "r" => TuneStep::Relay,
+            "s" => TuneStep::Step,
+            _ => return Err("type d, b, i, r or s".to_owned()),
+        };
+        let a = self.config.axes.get(axis).ok_or("no such axis")?.clone();
+        let (_, bounds) = crate::commission::plan(&crate::commission::StepRequest::new(step), &a);
+        let words = format!(
+            "test {step:?}: moves up to {} {} for up to {} s (Space stops)",
+            bounds.travel, a.scale.unit, bounds.seconds
+        )
+        .to_lowercase();
+        let name = self.name(axis).to_owned();
+        self.note(Kind::Operator, format!("{name}: {words}"));
+        Ok(vec![Effect::Tune { axis, step, config: Box::new(a) }])
+    }
+
+    /// Puts the last suggested gains on their axis, live, and into the configuration the
+    /// cockpit would save.
+    fn apply_suggested(&mut self) -> Vec<Effect> {
+        let Some((axis, c)) = self.suggested.take() else {
+            self.note(
+                Kind::Info,
+                "no suggested gains: run an identify (i) or relay (r) test first",
+            );
+            return Vec::new();
+        };
+        let mut next = self.config.clone();
+        if let Some(a) = next.axes.get_mut(axis) {
+            a.controller = c.clone();
+        }
+        if let Some(bad) = next.validate().into_iter().next() {
+            self.note(Kind::Refused, format!("suggested gains refused: {}", bad.message));
+            return Vec::new();
+        }
+        self.config = next;
+        vec![self.command(
+            axis,
+            AxisCommand::SetController(c),
+            "suggested gains applied (live; w writes them)",
+        )]
     }
 
     fn submit_goto(&mut self, axis: usize, text: &str) -> Result<Vec<Effect>, String> {
@@ -598,6 +665,23 @@ impl App {
                     }
                     _ => {}
                 }
+            }
+            Notice::Tuned { axis, result: Ok(out) } => {
+                let name = self.name(axis).to_owned();
+                for line in out.text.lines().filter(|l| !l.trim().is_empty()) {
+                    self.note(Kind::Info, format!("{name}: {}", line.trim_end()));
+                }
+                if let Some(c) = out.suggested {
+                    self.suggested = Some((axis, c));
+                    self.note(
+                        Kind::Info,
+                        format!("{name}: a applies the suggested gains (w then writes them)"),
+                    );
+                }
+            }
+            Notice::Tuned { axis, result: Err(e) } => {
+                let name = self.name(axis).to_owned();
+                self.note(Kind::Refused, format!("{name}: test failed: {e}"));
             }
             Notice::HomeAll { result: Ok(()) } => self.note(Kind::Info, "all axes homed"),
             Notice::HomeAll { result: Err(e) } => {

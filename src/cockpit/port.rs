@@ -28,6 +28,16 @@ pub trait MachinePort: Send + Sync + 'static {
     ) -> impl Future<Output = Result<(), String>> + Send + 'static;
     /// Homes every axis in the configured order; resolves when done or stopped.
     fn home_all(&self) -> impl Future<Output = Result<(), String>> + Send + 'static;
+    /// Runs a commissioning test on an axis and analyses it.
+    fn tune(
+        &self,
+        axis: usize,
+        config: crate::config::AxisConfig,
+        step: crate::commission::TuneStep,
+    ) -> impl Future<Output = Result<crate::commission::Outcome, String>> + Send + 'static {
+        let _ = (axis, config, step);
+        async { Err("this machine cannot run tests".to_owned()) }
+    }
     /// The machine's event stream, when it has one (trip captures, notices).
     fn events(&self) -> Option<tokio::sync::broadcast::Receiver<crate::engine::Event>> {
         None
@@ -35,6 +45,18 @@ pub trait MachinePort: Send + Sync + 'static {
 }
 
 impl MachinePort for MachineHandle {
+    fn tune(
+        &self,
+        _axis: usize,
+        config: crate::config::AxisConfig,
+        step: crate::commission::TuneStep,
+    ) -> impl Future<Output = Result<crate::commission::Outcome, String>> + Send + 'static {
+        let h = self.clone();
+        async move {
+            crate::commission::run(&h, &config, &crate::commission::StepRequest::new(step)).await
+        }
+    }
+
     fn events(&self) -> Option<tokio::sync::broadcast::Receiver<crate::engine::Event>> {
         Some(MachineHandle::events(self))
     }

@@ -220,6 +220,14 @@ fn execute<P: MachinePort>(
             };
             app.on_notice(now, Notice::Reply { axis, what, result: Err(why.to_owned()) });
         }
+        Effect::Tune { axis, step, config } => {
+            let job = port.tune(axis, *config, step);
+            let notices = notices.clone();
+            tokio::spawn(async move {
+                let result = job.await;
+                let _ = notices.send(Notice::Tuned { axis, result }).await;
+            });
+        }
         Effect::HomeAll => {
             let job = port.home_all();
             let notices = notices.clone();

@@ -175,6 +175,10 @@ fn prompt(app: &App, p: &Prompt, area: Rect, buf: &mut Buffer) {
             "write a configuration file".to_owned(),
             "the built-in demo has no file; write a copy to:".to_owned(),
         ),
+        Purpose::Test { axis } => (
+            format!("{}: commissioning test (the axis moves)", app.config.axes[axis].name),
+            "d direction · b breakaway · i identify · r relay · s step".to_owned(),
+        ),
     };
     let mut lines = vec![
         Line::from(Span::styled(help, t.dim())),
