@@ -293,3 +293,25 @@ async fn following_error_trip_writes_a_parseable_capture() {
         serde_json::from_str::<serde_json::Value>(l).expect("each line is JSON");
     }
 }
+
+// A home position outside the soft range is common (the switch sits just beyond the working
+// travel). The axis must come out of homing holding, not tripped, and be able to move in; it
+// must not be jogged further out. (Common practice, no source.)
+#[tokio::test(start_paused = true)]
+async fn an_axis_homed_outside_its_soft_limits_can_come_back_in() {
+    let mut cfg = demo();
+    cfg.axes[0].limits.soft_min = 10.0;
+    let (m, h) = linked(&cfg).await;
+    h.home(Some(&["x".to_owned()])).await.expect("homes");
+    tokio::time::sleep(Duration::from_millis(300)).await;
+    let x = h.axis("x").expect("x");
+    let s = x.snapshot();
+    assert_eq!(s.state, AxisState::Holding, "{s:#?}");
+    assert!(s.position < 10.0);
+    let err = x.send(AxisCommand::JogStep { distance: -1.0, speed: 10.0 }).await.expect_err("out");
+    assert!(err.to_string().contains("soft limit"), "{err}");
+    x.send(AxisCommand::MoveTo(50.0)).await.expect("in");
+    let s = wait_for(&h, "x", Duration::from_secs(5), |s| s.moves_done > 0).await;
+    assert!(s.trip.is_none() && (s.position - 50.0).abs() < 0.2, "{s:#?}");
+    m.shutdown().await;
+}

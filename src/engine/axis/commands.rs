@@ -42,6 +42,7 @@ impl AxisTask {
                     self.profile = None;
                     self.hold_here();
                     self.state = AxisState::Holding;
+                    self.outside_limits = true;
                     (Ok(Reply::Done), false)
                 }
                 s if s.motor_on() => (Ok(Reply::Done), false),
@@ -235,7 +236,8 @@ impl AxisTask {
         } else {
             (from + distance).max(reach)
         };
-        if (goal - from).abs() < f64::EPSILON {
+        // Outside a limit, a step outwards would be clamped into a step inwards: refuse it.
+        if (goal - from).abs() < f64::EPSILON || (goal - from).signum() != distance.signum() {
             return Err(self.refuse("at the soft limit in that direction"));
         }
         self.plan_move(goal, self.jog_speed(speed));
@@ -298,7 +300,7 @@ impl AxisTask {
                     (self.goal + step).max(reach)
                 };
                 self.jog = Some(JogKeys { direction, first_at: now, deadman: None });
-                if (goal - self.goal).abs() > f64::EPSILON {
+                if (goal - self.goal) * dir > f64::EPSILON {
                     self.plan_move(goal, self.jog_speed(speed));
                 }
                 Ok(Reply::Done)

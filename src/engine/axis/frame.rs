@@ -73,6 +73,13 @@ impl AxisTask {
         // drive duty with no target: the following-error, stall and runaway rules would
         // fire on purpose, so only the encoder rule stays on (their own bounds apply).
         let pushing = self.homing.as_ref().is_some_and(|h| h.pushing()) || open_loop.is_some();
+        // An axis that starts outside its soft limits (home set beyond one, or enabled where
+        // it was pushed by hand) must be allowed back in: the limit rule waits until the
+        // position is inside once; moves and jogs can only head inwards meanwhile.
+        if self.outside_limits {
+            let l = &self.cfg.limits;
+            self.outside_limits = !(l.soft_min..=l.soft_max).contains(&self.position);
+        }
         let testing = self.state == AxisState::Testing;
         let obs = Observation {
             t: self.t,
@@ -86,6 +93,7 @@ impl AxisTask {
             ticks,
             motor_on: self.state.motor_on() && !pushing,
             limits_active: self.homed
+                && !self.outside_limits
                 && !matches!(self.state, AxisState::Homing | AxisState::Testing),
             following_active: !testing,
         };
@@ -301,6 +309,7 @@ impl AxisTask {
                     self.homing = None;
                     self.duty_limit = None;
                     self.homed = true;
+                    self.outside_limits = true;
                     self.state = AxisState::Holding;
                     self.profile = None;
                     self.hold_here_at_goal();

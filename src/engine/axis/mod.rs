@@ -123,6 +123,9 @@ pub struct AxisTask {
     /// position = count / counts_per_unit + offset; homing sets the offset.
     offset: f64,
     homed: bool,
+    /// Set when the motor comes on (or homing ends); cleared once the position is inside the
+    /// soft limits. While set, the soft-limit rule is off so the axis can be brought back in.
+    outside_limits: bool,
     homing: Option<HomingRun>,
     /// Extra |duty| limit while homing pushes into an end stop, %.
     duty_limit: Option<f64>,
@@ -181,6 +184,7 @@ impl AxisTask {
             count: 0,
             offset: 0.0,
             homed: false,
+            outside_limits: true,
             homing: None,
             duty_limit: None,
             jog: None,
