@@ -111,6 +111,23 @@ fn disabled_demo() -> Vec<AxisSnapshot> {
     f
 }
 
+/// Runs the real loop against `machine` while `script` types keys into `rx`'s channel; the
+/// script must end by quitting (it never returns on its own).
+async fn run_until_quit(
+    machine: &Arc<FakeMachine>,
+    app: &mut App,
+    rx: mpsc::Receiver<std::io::Result<Event>>,
+    script: impl std::future::Future<Output = ()>,
+) {
+    let mut term = Terminal::new(TestBackend::new(80, 24)).expect("terminal");
+    let run =
+        runner::run(&mut term, key_stream(rx), Arc::clone(machine), app, std::future::pending());
+    tokio::select! {
+        r = run => r.expect("runs until quit"),
+        () = script => unreachable!(),
+    }
+}
+
 /// Lets the loop run a few frames of simulated time.
 async fn frames(n: u64) {
     tokio::time::sleep(Duration::from_millis(50 * n)).await;
@@ -120,7 +137,6 @@ async fn frames(n: u64) {
 async fn keys_reach_the_machine_and_answers_reach_the_log() {
     let machine = FakeMachine::with(disabled_demo());
     let mut app = App::new(s::demo(), ConfigSource::BuiltInDemo, Theme::default());
-    let mut term = Terminal::new(TestBackend::new(80, 24)).expect("terminal");
     let (tx, rx) = mpsc::channel(16);
     let script = {
         let machine = Arc::clone(&machine);
@@ -148,17 +164,7 @@ async fn keys_reach_the_machine_and_answers_reach_the_log() {
             std::future::pending::<()>().await;
         }
     };
-    let run = runner::run(
-        &mut term,
-        key_stream(rx),
-        Arc::clone(&machine),
-        &mut app,
-        std::future::pending(),
-    );
-    tokio::select! {
-        r = run => r.expect("runs until quit"),
-        () = script => unreachable!(),
-    }
+    run_until_quit(&machine, &mut app, rx, script).await;
     assert!(app.quit);
     let texts: Vec<_> = app.log.entries().iter().map(|e| e.text.clone()).collect();
     assert!(
@@ -226,7 +232,6 @@ fn key_of_kind(c: char, kind: KeyEventKind) -> std::io::Result<Event> {
 async fn a_reported_key_release_ends_a_held_jog() {
     let machine = FakeMachine::with(s::frame(0));
     let mut app = App::new(s::demo(), ConfigSource::BuiltInDemo, Theme::default());
-    let mut term = Terminal::new(TestBackend::new(80, 24)).expect("terminal");
     let (tx, rx) = mpsc::channel(16);
     let script = {
         let machine = Arc::clone(&machine);
@@ -247,15 +252,5 @@ async fn a_reported_key_release_ends_a_held_jog() {
             std::future::pending::<()>().await;
         }
     };
-    let run = runner::run(
-        &mut term,
-        key_stream(rx),
-        Arc::clone(&machine),
-        &mut app,
-        std::future::pending(),
-    );
-    tokio::select! {
-        r = run => r.expect("runs until quit"),
-        () = script => unreachable!(),
-    }
+    run_until_quit(&machine, &mut app, rx, script).await;
 }

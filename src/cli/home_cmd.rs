@@ -31,12 +31,8 @@ pub struct HomeOutcome {
 
 /// Homes the machine and reports every axis; disables the axes afterwards.
 pub async fn home_all(h: &MachineHandle) -> HomeOutcome {
-    let offline = h.wait_linked(std::time::Duration::from_secs(3)).await;
-    let result = if offline.is_empty() {
-        h.home(None).await.map_err(|e| e.to_string())
-    } else {
-        Err(format!("no link to: {}", offline.join(", ")))
-    };
+    // `home` waits for the links itself and names an axis that did not link.
+    let result = h.home(None).await.map_err(|e| e.to_string());
     let axes: Vec<AxisHomed> = h
         .axes()
         .iter()

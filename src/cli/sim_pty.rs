@@ -11,9 +11,12 @@ pub fn run(args: &SimArgs) -> u8 {
         eprintln!("servotty: sim needs --pty (serve each simulated axis on a pseudo-terminal)");
         return EXIT_USAGE;
     }
-    let (cfg, _, _) = match crate::cli::prepare(args.config.as_deref()) {
-        Ok(p) => p,
-        Err(code) => return code,
+    let cfg = match crate::config::MachineConfig::load_or_demo(args.config.as_deref()) {
+        Ok((c, _)) => c,
+        Err(e) => {
+            eprintln!("servotty: {e}");
+            return EXIT_USAGE;
+        }
     };
     // Unlike the host, the simulated boards pay a PTY read and write per tick each, which on
     // a small VM costs most of a core for eight boards: spread them over two workers so the

@@ -166,17 +166,20 @@ pub async fn capture(
     let stamp = rfc3339_utc(std::time::SystemTime::now()).replace([':', '.'], "-");
     let name = format!("capture-{stamp}-{tripped_axis}-{:?}.csv", trip.cause).to_lowercase();
     let dir = dir.to_path_buf();
-    tokio::task::spawn_blocking(move || write_atomically(&dir, &name, text.as_bytes()))
-        .await
-        .map_err(std::io::Error::other)?
+    tokio::task::spawn_blocking(move || {
+        std::fs::create_dir_all(&dir)?;
+        write_atomically(&dir, &name, text.as_bytes())
+    })
+    .await
+    .map_err(std::io::Error::other)?
 }
 
-/// Writes `bytes` to `dir/name` via a temporary file and a rename.
+/// Writes `bytes` to `dir/name` via a synced temporary file in `dir` and a rename, so a reader
+/// never sees half a file. `dir` must exist.
 ///
 /// # Errors
 /// I/O errors.
 pub fn write_atomically(dir: &Path, name: &str, bytes: &[u8]) -> std::io::Result<PathBuf> {
-    std::fs::create_dir_all(dir)?;
     let mut tmp = tempfile::Builder::new().prefix(".servotty-").suffix(".tmp").tempfile_in(dir)?;
     tmp.write_all(bytes)?;
     tmp.as_file().sync_all()?;

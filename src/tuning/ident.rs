@@ -208,19 +208,10 @@ struct LinearFit {
     starts: Vec<(f64, f64)>,
 }
 
-/// Identifies the velocity model from an open-loop duty experiment (module docs).
-///
-/// The experiment that fits best: from rest, duty pulses of two or more sizes in each
-/// direction, each long enough for the speed to settle (≥ 4 τ), each followed by zero duty
-/// until the axis stands still.
-///
-/// # Errors
-/// Bad numbers, too short a record, no duty, no motion, nothing fittable, a gain that is
-/// negative (wiring) or a fit that explains too little ([`IdentError`]).
-pub fn identify(samples: &[DutySample], opts: &IdentOptions) -> Result<Identification, IdentError> {
-    let n = samples.len();
-    if n < 20 {
-        return Err(IdentError::TooShort(n));
+/// The checks every record must pass before any fit: long enough, finite, time increasing.
+fn check_record(samples: &[DutySample]) -> Result<(), IdentError> {
+    if samples.len() < 20 {
+        return Err(IdentError::TooShort(samples.len()));
     }
     if let Some(index) = samples
         .iter()
@@ -231,6 +222,20 @@ pub fn identify(samples: &[DutySample], opts: &IdentOptions) -> Result<Identific
     if let Some(w) = samples.windows(2).position(|w| w[1].t <= w[0].t) {
         return Err(IdentError::TimeNotIncreasing { index: w + 1 });
     }
+    Ok(())
+}
+
+/// Identifies the velocity model from an open-loop duty experiment (module docs).
+///
+/// The experiment that fits best: from rest, duty pulses of two or more sizes in each
+/// direction, each long enough for the speed to settle (≥ 4 τ), each followed by zero duty
+/// until the axis stands still.
+///
+/// # Errors
+/// Bad numbers, too short a record, no duty, no motion, nothing fittable, a gain that is
+/// negative (wiring) or a fit that explains too little ([`IdentError`]).
+pub fn identify(samples: &[DutySample], opts: &IdentOptions) -> Result<Identification, IdentError> {
+    check_record(samples)?;
     if samples.iter().all(|s| s.duty == 0.0) {
         return Err(IdentError::NoExcitation);
     }
@@ -357,18 +362,7 @@ pub struct Breakaway {
 /// # Errors
 /// Fewer than 20 samples, bad numbers, no motion, or motion against the duty.
 pub fn breakaway(samples: &[DutySample], resolution: Option<f64>) -> Result<Breakaway, IdentError> {
-    if samples.len() < 20 {
-        return Err(IdentError::TooShort(samples.len()));
-    }
-    if let Some(index) = samples
-        .iter()
-        .position(|s| !(s.t.is_finite() && s.duty.is_finite() && s.position.is_finite()))
-    {
-        return Err(IdentError::NotFinite { index });
-    }
-    if let Some(w) = samples.windows(2).position(|w| w[1].t <= w[0].t) {
-        return Err(IdentError::TimeNotIncreasing { index: w + 1 });
-    }
+    check_record(samples)?;
     let x0 = samples[0].position;
     let q = resolution
         .filter(|r| r.is_finite() && *r > 0.0)

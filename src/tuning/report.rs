@@ -23,7 +23,6 @@
 //! what is a `split(',')`.
 
 use std::fmt::Write as _;
-use std::io::Write as _;
 use std::path::Path;
 
 use plotters::prelude::*;
@@ -447,17 +446,17 @@ fn padded(values: impl Iterator<Item = f64>, pad: f64) -> std::ops::Range<f64> {
     lo - pad * span..hi + pad * span
 }
 
-/// Temporary file in the destination's folder, synced, then renamed over the destination.
+/// Temporary file in the destination's folder, synced, then renamed over the destination (the
+/// recorder's atomic write, which trip captures use too).
 fn write_atomically(path: &Path, bytes: &[u8]) -> std::io::Result<()> {
     let dir = match path.parent() {
         Some(d) if !d.as_os_str().is_empty() => d,
         _ => Path::new("."),
     };
-    let mut tmp = tempfile::NamedTempFile::new_in(dir)?;
-    tmp.write_all(bytes)?;
-    tmp.as_file().sync_all()?;
-    tmp.persist(path).map_err(|e| e.error)?;
-    Ok(())
+    let name = path.file_name().ok_or_else(|| {
+        std::io::Error::new(std::io::ErrorKind::InvalidInput, "the path names no file")
+    })?;
+    crate::engine::recorder::write_atomically(dir, &name.to_string_lossy(), bytes).map(|_| ())
 }
 
 #[cfg(test)]
