@@ -174,3 +174,11 @@ fn tune_direction_and_identify_on_the_demo() {
     assert!((k / k_true - 1.0).abs() < 0.05, "identified {k}, true {k_true}");
     assert!(v["proposed"].as_str().expect("lines").contains("kp = "), "{v}");
 }
+
+#[test]
+fn a_missing_serial_device_is_named_with_what_to_do() {
+    let out = servotty(&["home", "--port", "x=/dev/servotty-no-such-port"]);
+    assert_eq!(out.status.code(), Some(1));
+    let err = text(&out.stderr);
+    assert!(err.contains("/dev/servotty-no-such-port") && err.contains("no such device"), "{err}");
+}

@@ -64,6 +64,8 @@ async fn x_move_of_300_mm_settles_inside_band() {
     m.shutdown().await;
 }
 
+// The stall, runaway and link-loss rules are servotty's own supervision policy (brief.md);
+// the watchdog contract is docs/protocol.md's. Common practice, no outside source.
 #[tokio::test(start_paused = true)]
 async fn blocked_carriage_trips_stall() {
     let mut cfg = demo();
@@ -159,7 +161,9 @@ async fn stop_all_category_1_stops_within_braking_distance() {
     let a = cfg.axes[0].motion.max_acceleration;
     let tick = 1.0 / f64::from(cfg.axes[0].board.tick_hz);
     let (m, h, travel, v0) = stop_all_during_cruise(&cfg).await;
-    // Kinematics: stopping from v at constant deceleration a takes v²/(2a).
+    // Stopping from v at constant deceleration a takes v²/(2a) (the deceleration phase of a
+    // trapezoidal profile: Biagiotti & Melchiorri, Trajectory Planning for Automatic Machines
+    // and Robots, Springer 2008, §3.2); the bound itself is the engine issue's.
     let bound = v0 * v0 / (2.0 * a) + v0 * tick;
     assert!(travel <= bound, "travelled {travel} mm after stop-all, bound {bound} mm");
     assert!(travel > 0.5 * v0 * v0 / (2.0 * a), "a controlled stop, not a crash: {travel} mm");
@@ -224,6 +228,8 @@ async fn shutdown_leaves_every_motor_off() {
     }
 }
 
+// A CRC-16/IBM-3740 catches every single-bit error in a frame (tests/protocol.rs checks all
+// of them); here the point is that the loop survives bad frames. Common practice, no source.
 #[tokio::test(start_paused = true)]
 async fn corrupt_frames_are_counted_and_survived() {
     let cfg = demo();

@@ -46,7 +46,9 @@ pub struct LinkTestOutcome {
 pub async fn measure(m: &MachineHandle, seconds: f64) -> Result<LinkTestOutcome, String> {
     let offline = m.wait_linked(Duration::from_secs(3)).await;
     if !offline.is_empty() {
-        return Err(format!("no link to: {}", offline.join(", ")));
+        let why: Vec<String> =
+            offline.iter().map(|a| format!("{a}: {}", m.offline_reason(a))).collect();
+        return Err(why.join("; "));
     }
     for a in m.axes() {
         a.send(AxisCommand::LinkReport { reset: true }).await.map_err(|e| e.to_string())?;

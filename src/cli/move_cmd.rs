@@ -48,8 +48,8 @@ pub enum MoveError {
     #[error("--to {0}=…: no such axis")]
     UnknownAxis(String),
     /// An axis did not link.
-    #[error("{0}: no link to the board")]
-    Offline(String),
+    #[error("{0}: {1}")]
+    Offline(String, String),
     /// An axis refused.
     #[error(transparent)]
     Refused(#[from] crate::engine::CommandError),
@@ -78,7 +78,8 @@ pub async fn run_moves(m: &MachineHandle, targets: &[Target]) -> Result<MoveOutc
     if let Some(a) =
         m.wait_linked(LINK_WAIT).await.into_iter().find(|a| targets.iter().any(|t| &t.axis == a))
     {
-        return Err(MoveError::Offline(a));
+        let why = m.offline_reason(&a);
+        return Err(MoveError::Offline(a, why));
     }
     let result = start_and_wait(m, targets).await;
     for t in targets {

@@ -129,7 +129,7 @@ async fn tune(
     file: Option<PathBuf>,
 ) -> Result<serde_json::Value, String> {
     if let Some(axis) = h.wait_linked(Duration::from_secs(3)).await.into_iter().next() {
-        return Err(format!("{axis}: no link to the board"));
+        return Err(format!("{axis}: {}", h.offline_reason(&axis)));
     }
     if args.home {
         h.home(None).await.map_err(|e| format!("homing failed: {e}"))?;

@@ -246,7 +246,8 @@ impl MachineHandle {
     /// [`HomeError`] naming the axis that failed and why.
     pub async fn home(&self, only: Option<&[String]>) -> Result<(), HomeError> {
         if let Some(axis) = self.wait_linked(Duration::from_secs(3)).await.into_iter().next() {
-            return Err(HomeError { axis, reason: "no link to the board".to_owned() });
+            let reason = self.offline_reason(&axis);
+            return Err(HomeError { axis, reason });
         }
         for group in self.config.homing_groups() {
             let group: Vec<&String> =
@@ -301,6 +302,14 @@ impl MachineHandle {
     /// Every axis's latest snapshot.
     pub fn snapshots(&self) -> Vec<AxisSnapshot> {
         self.axes.iter().map(AxisHandle::snapshot).collect()
+    }
+
+    /// Why an axis has no link, in words: the open error if there was one.
+    pub fn offline_reason(&self, axis: &str) -> String {
+        match self.axis(axis).and_then(|a| a.snapshot().link_error) {
+            Some(e) => format!("no link to the board: {e}"),
+            None => "no link to the board (it did not answer)".to_owned(),
+        }
     }
 
     /// Waits until every axis has linked (left `offline`), or the timeout passes.

@@ -181,6 +181,8 @@ pub struct AxisSnapshot {
     pub trip: Option<Trip>,
     /// Link health.
     pub link: LinkStats,
+    /// Why the link could not be opened last time (missing device, permission…), while offline.
+    pub link_error: Option<Arc<str>>,
     /// Board time of the latest frame, s.
     pub board_time_s: f64,
     /// True while stop-all is latched for this axis.
@@ -212,6 +214,7 @@ impl AxisSnapshot {
             duty: 0.0,
             trip: None,
             link: LinkStats::default(),
+            link_error: None,
             board_time_s: 0.0,
             stop_latched: false,
             in_position: false,

@@ -139,6 +139,8 @@ pub struct AxisTask {
     last: Option<Telemetry>,
     last_frame_at: Option<Instant>,
     link_up: bool,
+    /// Why the last attempt to open the link failed; cleared when a link comes up.
+    link_error: Option<Arc<str>>,
     /// A Configure went out: frames still queued from before it (their seq did not restart)
     /// are stale and skipped until the first fresh one.
     awaiting_fresh: bool,
@@ -197,6 +199,7 @@ impl AxisTask {
             last: None,
             last_frame_at: None,
             link_up: false,
+            link_error: None,
             awaiting_fresh: false,
             duty: 0.0,
             host_seq: 0,
@@ -227,6 +230,8 @@ impl AxisTask {
                 },
                 Err(e) => {
                     tracing::warn!(axis = %self.cfg.name, error = %e, "cannot open link");
+                    self.link_error = Some(Arc::from(e.to_string()));
+                    self.publish();
                     self.event(EventKind::Link { up: false, detail: e.to_string() });
                     if !self.connector.can_reconnect() {
                         self.idle(None).await;
@@ -278,6 +283,7 @@ impl AxisTask {
             return why;
         }
         self.link_up = true;
+        self.link_error = None;
         self.meter.link_up();
         self.last = None;
         self.last_frame_at = Some(Instant::now());
@@ -552,6 +558,9 @@ impl AxisTask {
                 s.trip.clone_from(&this.trip);
             }
             s.link = link;
+            if s.link_error != this.link_error {
+                s.link_error.clone_from(&this.link_error);
+            }
             s.board_time_s = this.t;
             s.stop_latched = latched;
             s.in_position = this.in_position;
