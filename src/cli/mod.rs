@@ -184,9 +184,12 @@ pub fn prepare(
     Ok((cfg, source, rt))
 }
 
-/// Loads the configuration, starts the machine with its recorder on a current-thread
-/// runtime, runs `body`, and always shuts the machine down (motors off). Errors before the
-/// machine exists are printed and give [`EXIT_USAGE`].
+/// Loads the configuration, starts the machine with its recorder on the engine's own thread
+/// ([`crate::engine::EngineThread`]), runs `body` on this thread's runtime (so whatever the
+/// command does — waiting, analysis, printing, files — never holds up an axis loop), and
+/// always shuts the machine down (motors off). Errors before the machine exists are printed
+/// and give [`EXIT_USAGE`]; an axis task that ended, or one that did not stop at shutdown,
+/// is reported and gives [`EXIT_FAILED`].
 pub fn with_machine<F, Fut>(args: &MachineArgs, body: F) -> u8
 where
     F: FnOnce(crate::engine::MachineHandle) -> Fut,
@@ -196,35 +199,62 @@ where
         Ok(p) => p,
         Err(code) => return code,
     };
-    rt.block_on(async {
-        let paths = crate::engine::recorder::RecorderPaths::resolve(&cfg, &source);
-        let machine = match crate::engine::Machine::start_with(&cfg, &args.ports, Some(paths)) {
-            Ok(m) => m,
-            Err(e) => {
-                eprintln!("servotty: {e}");
-                return EXIT_USAGE;
-            }
-        };
-        let h = machine.handle();
-        let code = tokio::select! {
+    let paths = crate::engine::recorder::RecorderPaths::resolve(&cfg, &source);
+    let engine = match start_engine(cfg, args.ports.clone(), paths) {
+        Ok(e) => e,
+        Err(code) => return code,
+    };
+    let h = engine.handle().clone();
+    let mut code = rt.block_on(async {
+        tokio::select! {
             c = body(h) => c,
             _ = tokio::signal::ctrl_c() => {
                 eprintln!("servotty: interrupted; motors off");
                 EXIT_FAILED
             }
-        };
-        machine.shutdown().await;
-        code
+        }
+    });
+    let report = engine.shutdown();
+    if !report.is_clean() {
+        eprintln!("servotty: {report}");
+        code = EXIT_FAILED;
+    }
+    code
+}
+
+/// Starts the machine on the engine's thread; an error is printed and becomes the exit code
+/// ([`EXIT_USAGE`] for a bad `--port`, [`EXIT_FAILED`] when the OS refuses).
+///
+/// # Errors
+/// The exit code to return.
+pub fn start_engine(
+    cfg: MachineConfig,
+    ports: Vec<crate::engine::PortOverride>,
+    paths: crate::engine::recorder::RecorderPaths,
+) -> Result<crate::engine::EngineThread, u8> {
+    use crate::engine::EngineStartError;
+    crate::engine::EngineThread::start(cfg, ports, Some(paths)).map_err(|e| {
+        eprintln!("servotty: {e}");
+        match e {
+            EngineStartError::Start(_) => EXIT_USAGE,
+            EngineStartError::Os(_) => EXIT_FAILED,
+        }
     })
 }
 
 /// A current-thread runtime: one core is plenty for the host loop of several axes (measured,
 /// docs/performance.md) and it leaves the other core of a small computer to the UI and OS.
+/// Its blocking pool's threads (slow work: captures, analysis, files) run at a lower
+/// priority than the thread that drives the runtime, so on two cores they never take a core
+/// from the axis loops.
 ///
 /// # Errors
 /// When the OS refuses the runtime's resources.
 pub fn runtime() -> std::io::Result<tokio::runtime::Runtime> {
-    tokio::runtime::Builder::new_current_thread().enable_all().build()
+    tokio::runtime::Builder::new_current_thread()
+        .enable_all()
+        .on_thread_start(crate::engine::thread::background_priority)
+        .build()
 }
 
 #[cfg(test)]

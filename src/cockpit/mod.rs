@@ -10,14 +10,13 @@
 //! - [`gain_edit`], [`save`]: checking a typed gain; saving gains into the file atomically.
 //! - [`ui`]: drawing, a pure function of the state.
 //! - [`runner`]: the event loop; [`port`]: the trait the loop needs from a machine.
-//! - [`terminal`], [`logging`], [`engine_thread`]: terminal lifecycle, the log file, and
-//!   running the machine on its own thread.
+//! - [`terminal`], [`logging`]: terminal lifecycle and the log file (the machine runs on
+//!   the engine's own thread, `engine::thread`).
 //!
 //! [`run`] is what `servotty` and `servotty cockpit` call.
 
 pub mod action;
 pub mod app;
-pub mod engine_thread;
 pub mod event_log;
 pub mod format;
 pub mod gain_edit;
@@ -39,7 +38,6 @@ pub use app::App;
 pub use theme::Theme;
 
 use crate::cli::{MachineArgs, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
-use engine_thread::{EngineStartError, EngineThread};
 
 /// Opens the cockpit on the machine `args` name; returns the process exit code.
 ///
@@ -62,15 +60,9 @@ pub fn run(args: &MachineArgs) -> u8 {
     }
     let log_file = logging::init();
     let paths = crate::engine::recorder::RecorderPaths::resolve(&cfg, &source);
-    let engine = match EngineThread::start(cfg.clone(), args.ports.clone(), Some(paths.clone())) {
+    let engine = match crate::cli::start_engine(cfg.clone(), args.ports.clone(), paths.clone()) {
         Ok(e) => e,
-        Err(e) => {
-            eprintln!("servotty: {e}");
-            return match e {
-                EngineStartError::Start(_) => EXIT_USAGE,
-                EngineStartError::Os(_) => EXIT_FAILED,
-            };
-        }
+        Err(code) => return code,
     };
     let rt = match crate::cli::runtime() {
         Ok(rt) => rt,
