@@ -301,7 +301,7 @@ fn assert_no_long_silence((silences, os): &(Vec<(usize, f64, u64, f64)>, Duratio
 fn alone(case: impl std::future::Future<Output = ()>) {
     let _one = ONE_AT_A_TIME.lock().unwrap_or_else(std::sync::PoisonError::into_inner);
     // The front ends' runtime, blocking pool included.
-    servotty::cli::runtime().expect("front-end runtime").block_on(case);
+    servotty::process::runtime().expect("front-end runtime").block_on(case);
 }
 
 #[test]
