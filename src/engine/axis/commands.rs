@@ -5,7 +5,7 @@ use std::time::Duration;
 use tokio::time::Instant;
 
 use super::{ActiveProfile, AxisCommand, AxisTask, CommandError, JogKeys, Purpose, Reply};
-use crate::control::Trapezoid;
+use crate::control::{Limits, Profile};
 use crate::engine::events::EventKind;
 use crate::engine::experiment::{ExperimentBounds, ExperimentRun, ExperimentSpec};
 use crate::engine::homing::HomingRun;
@@ -153,8 +153,8 @@ impl AxisTask {
     /// velocity: a stop must cover the least ground, and the small step in the P term is the
     /// price of that.
     pub(super) fn begin_stop(&mut self, purpose: Purpose) {
-        let v0 = self.setpoint.velocity;
-        let profile = Trapezoid::stop(self.position, v0, self.cfg.motion.max_acceleration);
+        let from = crate::control::Setpoint { position: self.position, ..self.setpoint };
+        let profile = Profile::stop(from, Limits::of(&self.cfg.motion));
         self.profile = Some(ActiveProfile { profile, t0: self.t, purpose });
         self.goal = profile.goal();
         self.state = AxisState::Stopping;
@@ -189,13 +189,8 @@ impl AxisTask {
 
     /// A profiled move whose completion waits for the in-position dwell.
     fn plan_move(&mut self, goal: f64, velocity: f64) {
-        let profile = Trapezoid::plan(
-            self.setpoint.position,
-            self.setpoint.velocity,
-            goal,
-            velocity,
-            self.cfg.motion.max_acceleration,
-        );
+        let profile =
+            Profile::plan(self.setpoint, goal, Limits::of(&self.cfg.motion).slower(velocity));
         self.profile = Some(ActiveProfile { profile, t0: self.t, purpose: Purpose::Move });
         self.goal = goal;
         self.state = AxisState::Moving;
@@ -265,14 +260,8 @@ impl AxisTask {
                         self.jog = None;
                         return Err(self.refuse("at the soft limit in that direction"));
                     }
-                    let m = &self.cfg.motion;
-                    let profile = Trapezoid::plan(
-                        self.setpoint.position,
-                        self.setpoint.velocity,
-                        reach,
-                        self.jog_speed(speed),
-                        m.max_acceleration,
-                    );
+                    let lim = Limits::of(&self.cfg.motion).slower(self.jog_speed(speed));
+                    let profile = Profile::plan(self.setpoint, reach, lim);
                     self.profile =
                         Some(ActiveProfile { profile, t0: self.t, purpose: Purpose::Jog });
                     self.goal = reach;
