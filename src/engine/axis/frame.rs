@@ -346,6 +346,7 @@ impl AxisTask {
             target: self.setpoint.position,
             position: self.position,
             following_error: self.setpoint.position - self.position,
+            band: self.supervisor.following_error_band(self.setpoint.velocity),
             duty: self.duty,
             velocity: self.velocity,
             detail,
