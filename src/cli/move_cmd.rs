@@ -6,6 +6,7 @@ use serde::Serialize;
 
 use crate::cli::{MoveArgs, Target, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
 use crate::cockpit::format::num;
+use crate::config::MachineConfig;
 use crate::engine::{AxisCommand, AxisState, MachineHandle};
 
 /// How long the boards have to link.
@@ -139,16 +140,70 @@ async fn start_and_wait(m: &MachineHandle, targets: &[Target]) -> Result<MoveOut
     Ok(MoveOutcome { ok, axes: outcomes })
 }
 
-/// `servotty move`.
-pub fn run(args: &MoveArgs) -> u8 {
-    if let Ok((cfg, _)) = args.machine.load() {
-        if let Some(t) = args.to.iter().find(|t| cfg.axis(&t.axis).is_none()) {
-            let known: Vec<&str> = cfg.axes.iter().map(|a| a.name.as_str()).collect();
-            eprintln!("servotty: --to {}=…: no such axis (axes: {})", t.axis, known.join(", "));
-            return EXIT_USAGE;
+/// One `--to` item: `AXIS=POS`, or `@SPOT` for a named position of the configuration.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Destination {
+    /// One axis to a position.
+    Axis(Target),
+    /// Every axis the spot names to its position there.
+    Spot(String),
+}
+
+impl std::str::FromStr for Destination {
+    type Err = String;
+
+    fn from_str(s: &str) -> Result<Self, Self::Err> {
+        match s.trim().strip_prefix('@') {
+            Some(name) if crate::spots::valid_name(name) => Ok(Self::Spot(name.to_owned())),
+            Some(_) => Err(format!("expected @NAME with letters, digits, _ or -, found {s:?}")),
+            None => s.parse().map(Self::Axis),
         }
     }
+}
+
+/// The per-axis targets of `--to`, in the order given; a later item for the same axis
+/// replaces an earlier one (`--to @tray3,z=-20`).
+///
+/// # Errors
+/// Text naming the unknown axis or spot.
+pub fn resolve(cfg: &MachineConfig, to: &[Destination]) -> Result<Vec<Target>, String> {
+    let mut out: Vec<Target> = Vec::new();
+    for d in to {
+        let more = match d {
+            Destination::Axis(t) => vec![t.clone()],
+            Destination::Spot(name) => crate::spots::targets(cfg, name)?,
+        };
+        for t in more {
+            if cfg.axis(&t.axis).is_none() {
+                let known: Vec<&str> = cfg.axes.iter().map(|a| a.name.as_str()).collect();
+                return Err(format!(
+                    "--to {}=…: no such axis (axes: {})",
+                    t.axis,
+                    known.join(", ")
+                ));
+            }
+            out.retain(|o| o.axis != t.axis);
+            out.push(t);
+        }
+    }
+    Ok(out)
+}
+
+/// `servotty move`.
+pub fn run(args: &MoveArgs) -> u8 {
+    let targets = match args.machine.load() {
+        Ok((cfg, _)) => match resolve(&cfg, &args.to) {
+            Ok(t) => t,
+            Err(e) => {
+                eprintln!("servotty: {e}");
+                return EXIT_USAGE;
+            }
+        },
+        // The machine start below reports the configuration error.
+        Err(_) => Vec::new(),
+    };
     let (json, home) = (args.json, args.home);
+    let targets = &targets;
     crate::cli::with_machine(&args.machine, |h| async move {
         if home {
             if let Err(e) = h.home(None).await {
@@ -156,7 +211,7 @@ pub fn run(args: &MoveArgs) -> u8 {
                 return EXIT_FAILED;
             }
         }
-        match run_moves(&h, &args.to).await {
+        match run_moves(&h, targets).await {
             Err(e) => {
                 eprintln!("servotty: {e}");
                 e.exit_code()
