@@ -4,7 +4,7 @@ use std::time::Duration;
 
 use serde::Serialize;
 
-use crate::cli::{MoveArgs, Target, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
+use crate::cli::{emit, emit_json, Failure, MoveArgs, Target, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
 use crate::cockpit::format::num;
 use crate::config::MachineConfig;
 use crate::engine::{AxisCommand, AxisState, MachineHandle};
@@ -190,67 +190,55 @@ pub fn resolve(cfg: &MachineConfig, to: &[Destination]) -> Result<Vec<Target>, S
 }
 
 /// `servotty move`.
-pub fn run(args: &MoveArgs) -> u8 {
+///
+/// # Errors
+/// [`Failure`] when the moves cannot start; a trip during a move is in the outcome (exit 1).
+pub fn run(args: &MoveArgs) -> Result<u8, Failure> {
+    // A configuration that does not load is reported by the machine start below.
     let targets = match args.machine.load() {
-        Ok((cfg, _)) => match resolve(&cfg, &args.to) {
-            Ok(t) => t,
-            Err(e) => {
-                eprintln!("servotty: {e}");
-                return EXIT_USAGE;
-            }
-        },
-        // The machine start below reports the configuration error.
+        Ok((cfg, _)) => resolve(&cfg, &args.to).map_err(Failure::Usage)?,
         Err(_) => Vec::new(),
     };
     let (json, home) = (args.json, args.home);
     let targets = &targets;
     crate::cli::with_machine(&args.machine, |h| async move {
         if home {
-            if let Err(e) = h.home(None).await {
-                eprintln!("servotty: homing failed: {e}");
-                return EXIT_FAILED;
-            }
+            h.home(None).await?;
         }
-        match run_moves(&h, targets).await {
-            Err(e) => {
-                eprintln!("servotty: {e}");
-                e.exit_code()
-            }
-            Ok(out) => {
-                if json {
-                    println!("{}", serde_json::to_string(&out).unwrap_or_default());
-                } else {
-                    print_table(&h, &out);
-                }
-                if out.ok {
-                    EXIT_OK
-                } else {
-                    EXIT_FAILED
-                }
-            }
+        let out = run_moves(&h, targets).await.map_err(|e| match e {
+            MoveError::UnknownAxis(_) => Failure::Usage(e.to_string()),
+            MoveError::Refused(c) => Failure::Refused(c),
+            MoveError::Offline(..) => Failure::Machine(e.to_string()),
+        })?;
+        if json {
+            emit_json(&out)?;
+        } else {
+            emit(&table(&h, &out))?;
         }
+        Ok(if out.ok { EXIT_OK } else { EXIT_FAILED })
     })
 }
 
-fn print_table(h: &MachineHandle, out: &MoveOutcome) {
-    println!(
-        "{:<6} {:>10} {:>10} {:>9} {:>8}  {:<5} state",
+fn table(h: &MachineHandle, out: &MoveOutcome) -> String {
+    let mut s = format!(
+        "{:<6} {:>10} {:>10} {:>9} {:>8}  {:<5} state\n",
         "axis", "target", "final", "max fe", "settle", "unit"
     );
     for a in &out.axes {
         let (d, unit) = crate::cli::home_cmd::resolution(h, &a.axis);
         let settle = a.settle_s.map_or_else(|| "-".to_owned(), |s| format!("{s:.2} s"));
-        println!(
-            "{:<6} {} {} {} {:>8}  {unit:<5} {}",
+        s.push_str(&format!(
+            "{:<6} {} {} {} {:>8}  {unit:<5} {}\n",
             a.axis,
             num(a.target, d, 10),
             num(a.final_position, d, 10),
             num(a.max_following_error, d, 9),
             settle,
             a.state
-        );
+        ));
         if let Some(t) = &a.trip {
-            println!("       tripped: {t}");
+            s.push_str(&format!("       tripped: {t}\n"));
         }
     }
+    s
 }
