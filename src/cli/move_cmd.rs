@@ -4,6 +4,7 @@ use std::time::Duration;
 
 use serde::Serialize;
 
+use crate::cli::progress::{self, Progress};
 use crate::cli::{emit, emit_json, Failure, MoveArgs, Target, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
 use crate::cockpit::format::num;
 use crate::config::MachineConfig;
@@ -194,18 +195,32 @@ pub fn resolve(cfg: &MachineConfig, to: &[Destination]) -> Result<Vec<Target>, S
 /// # Errors
 /// [`Failure`] when the moves cannot start; a trip during a move is in the outcome (exit 1).
 pub fn run(args: &MoveArgs) -> Result<u8, Failure> {
-    // A configuration that does not load is reported by the machine start below.
-    let targets = match args.machine.load() {
-        Ok((cfg, _)) => resolve(&cfg, &args.to).map_err(Failure::Usage)?,
-        Err(_) => Vec::new(),
-    };
+    let (cfg, _) = args.machine.load()?;
+    let targets = resolve(&cfg, &args.to).map_err(Failure::Usage)?;
     let (json, home) = (args.json, args.home);
+    let words: Vec<String> =
+        targets.iter().map(|t| format!("{} to {}", t.axis, t.position)).collect();
+    crate::cli::ask::go_ahead(
+        args.yes,
+        &format!(
+            "move: {}enables and moves {}.",
+            if home { "homes every axis, then " } else { "" },
+            words.join(", ")
+        ),
+    )?;
     let targets = &targets;
     crate::cli::with_machine(&args.machine, |h| async move {
+        let show = progress::wanted(json);
         if home {
+            let p = Progress::axes(show, "homing", &h, &[]);
             h.home(None).await?;
+            p.finish();
         }
-        let out = run_moves(&h, targets).await.map_err(|e| match e {
+        let names: Vec<String> = targets.iter().map(|t| t.axis.clone()).collect();
+        let p = Progress::axes(show, "moving", &h, &names);
+        let out = run_moves(&h, targets).await;
+        p.finish();
+        let out = out.map_err(|e| match e {
             MoveError::UnknownAxis(_) => Failure::Usage(e.to_string()),
             MoveError::Refused(c) => Failure::Refused(c),
             MoveError::Offline(..) => Failure::Machine(e.to_string()),
