@@ -357,3 +357,16 @@ fn a_commissioning_test_is_asked_for_run_and_its_gains_applied() {
     let fx = app.apply(now(), Action::ApplySuggested);
     assert_eq!(fx, vec![Effect::Command { axis: 0, command: AxisCommand::SetController(worse) }]);
 }
+
+#[test]
+fn a_test_never_enables_an_axis_by_itself() {
+    let mut app = s::normal();
+    app.axes[0].snap.state = AxisState::Disabled;
+    app.apply(now(), Action::OpenDetail);
+    app.apply(now(), Action::Test);
+    type_text(&mut app, "i");
+    assert_eq!(app.apply(now(), Action::EntrySubmit), vec![], "no test starts");
+    let Overlay::Prompt(p) = &app.overlay else { panic!("the prompt stays open") };
+    let why = p.error.as_deref().unwrap_or_default();
+    assert!(why.contains("disabled") && why.contains("press e"), "{why}");
+}
