@@ -9,8 +9,8 @@
 //! # The window
 //! The trip row is the first row in state `tripped` (at or after the recorded trip time).
 //! The rules look at the [`WINDOW_S`] before it (and at the trip row itself for counts and
-//! lost frames); "just before" means the last [`RECENT_S`]. A record with no trip is read up
-//! to its end. The duty a row's motion answers is the duty commanded one row earlier.
+//! lost frames); "just before" means the last [`RECENT_S`]. A record with no trip (the
+//! history on screen) is read whole. The duty a row's motion answers is the duty commanded one row earlier.
 //!
 //! # The rules
 //! Each rule gives a score between 0 and 1 — a rule-based confidence, not a probability —
@@ -25,9 +25,9 @@
 //! | link trouble | recorded link loss; or a gap of ≥ 5 lost frames just before, or ≥ 5 % of frames lost in the window; or an encoder-jump trip whose frame followed lost frames | 0.55–0.85 (0.95 when recorded) |
 //! | encoder fault | one frame's count change departs from the count rate of the frame before by more than 20 counts and 10 × the window's 95th-percentile change (the motor cannot do that), with no lost frames at that frame | 0.85 (0.95 when recorded) |
 //! | wiring / polarity | in the last 0.1 s, ≥ 60 % of the driven rows move against the duty (duty above 10 % of its limit) and the speed grows | 0.85 (0.92 when recorded as runaway) |
-//! | jam / hard stop | the count stays within 2 counts for ≥ 30 ms up to the trip while the board drives the motor, the duty is above 10 % of its limit and the error grows | 0.6–0.9 with the duration (0.92 when recorded as stall) |
+//! | jam / hard stop | the count stays within 2 counts for ≥ 10 ms up to the trip while the board drives the motor, the duty is above 15 % of its limit and the error grows | 0.6–0.9 with the duration up to 0.1 s (0.92 when recorded as stall) |
 //! | saturation | the output at its limit in ≥ 30 % of the last 0.2 s and ≥ 50 % of the last 50 ms, while the axis moves the duty's way | 0.8 (0.75 when the duty swings limit to limit: gains too high) |
-//! | gain too low | during motion the axis follows the profile's direction and ≥ 30 % of its speed, the duty stays below 80 % of its limit, and the error at the trip is ≥ 70 % of its band; \|error\| correlating with profile speed (r ≥ 0.5) raises it | 0.5–0.7 |
+//! | gain too low | during motion the duty stays below 80 % of its limit (never saturated), the axis still moves the profile's way at the trip (≥ 3 counts in the last 20 ms), and the error has grown into the band (≥ 50 % of it the frame before, ≥ 70 % at the trip); \|error\| correlating with profile speed (r ≥ 0.5) raises it. Or: the target moved off but the axis never started, with the duty below 15 % of its limit | 0.5–0.7 (0.65) |
 //! | lighter load than tuned (belt slip?) | at cruise, the P + I parts take back ≥ 30 % of the feedforward | 0.45 |
 //! | out of travel, homing | the supervisor's record (their own rules) | 0.85 |
 //!

@@ -9,13 +9,22 @@ use crate::engine::history::Sample;
 use crate::engine::snapshot::AxisState;
 use crate::protocol::status;
 
+/// Shortest standstill up to the trip that reads as a jam, s. A stiff axis jammed at speed
+/// blows its band within a few tens of milliseconds, so the run is short.
+const JAM_MIN_S: f64 = 0.01;
+/// Fraction of the duty limit above which a standstill is a jam; below it the drive never
+/// pushed (the gain-too-low rule's second picture).
+const JAM_DUTY: f64 = 0.15;
+
 /// Frames the board's motor-on bit must be clear while the host drives, to count.
 const MOTOR_OFF_FRAMES: usize = 3;
 
 /// The record seen from its trip.
 pub struct View<'a> {
     rec: &'a TripRecord,
-    rows: &'a [Sample],
+    /// The record's rows, with `missed_frames` also counting gaps the board's clock shows
+    /// (a board whose sequence number stopped during a cut still has its clock running).
+    rows: Vec<Sample>,
     /// Index of the trip row (`rows.len()` when there is no trip).
     k: usize,
     /// First row of the window.
@@ -29,7 +38,7 @@ pub struct View<'a> {
 impl<'a> View<'a> {
     /// The view of `rec`.
     pub fn new(rec: &'a TripRecord) -> Self {
-        let rows = rec.rows.as_slice();
+        let rows = with_clock_gaps(&rec.rows, rec.has_evidence);
         let after = rec.trip.at_s.map_or(f64::NEG_INFINITY, |t| t - 1e-6);
         let k = rows
             .iter()
@@ -37,11 +46,16 @@ impl<'a> View<'a> {
             .or_else(|| rows.iter().position(|r| r.state == AxisState::Tripped))
             .unwrap_or(rows.len());
         let t_end = if k < rows.len() { rows[k].t } else { rows.last().map_or(0.0, |r| r.t) };
-        let w0 = rows[..k].iter().position(|r| r.t >= t_end - WINDOW_S).unwrap_or(k);
+        // A record with no trip is read whole: the question is what happened in it.
+        let w0 = if k < rows.len() {
+            rows[..k].iter().position(|r| r.t >= t_end - WINDOW_S).unwrap_or(k)
+        } else {
+            0
+        };
         let cpu = if rec.facts.counts_per_unit > 0.0 {
             rec.facts.counts_per_unit
         } else {
-            estimate_cpu(rows)
+            estimate_cpu(&rows)
         };
         let floor = if cpu > 0.0 { 200.0 / cpu } else { 0.0 };
         let v_noise = floor.max(0.02 * rec.facts.max_velocity).max(1e-9);
@@ -59,17 +73,17 @@ impl<'a> View<'a> {
     }
 
     /// Rows before the trip in the window.
-    fn before(&self) -> &'a [Sample] {
+    fn before(&self) -> &[Sample] {
         &self.rows[self.w0..self.k]
     }
 
     /// Window rows and the trip row.
-    fn through_trip(&self) -> &'a [Sample] {
+    fn through_trip(&self) -> &[Sample] {
         &self.rows[self.w0..(self.k + 1).min(self.rows.len())]
     }
 
     /// Rows before the trip within the last `s` seconds.
-    fn last(&self, s: f64) -> &'a [Sample] {
+    fn last(&self, s: f64) -> &[Sample] {
         let b = self.before();
         let from = b.iter().position(|r| r.t >= self.t_end() - s).unwrap_or(b.len());
         &b[from..]
@@ -94,6 +108,34 @@ impl<'a> View<'a> {
     fn ago(&self, t: f64) -> String {
         format!("{:.0} ms before the trip", (self.t_end() - t) * 1000.0)
     }
+}
+
+/// The rows with each one's lost frames taken as the larger of the sequence gap and the
+/// board clock's gap in ticks (the tick being the median clock step).
+fn with_clock_gaps(rows: &[Sample], has_clock: bool) -> Vec<Sample> {
+    let mut out = rows.to_vec();
+    if !has_clock || rows.len() < 3 {
+        return out;
+    }
+    let mut steps: Vec<u32> = rows
+        .windows(2)
+        .map(|w| w[1].board_time_us.wrapping_sub(w[0].board_time_us))
+        .filter(|&d| d > 0)
+        .collect();
+    if steps.is_empty() {
+        return out;
+    }
+    steps.sort_unstable();
+    let tick = f64::from(steps[steps.len() / 2]);
+    for j in 1..out.len() {
+        let d = f64::from(rows[j].board_time_us.wrapping_sub(rows[j - 1].board_time_us));
+        // Frames more than an hour apart are a new link-up, not a gap.
+        if d > 0.0 && d < 3.6e9 {
+            let by_clock = ((d / tick).round() as u32).saturating_sub(1);
+            out[j].missed_frames = out[j].missed_frames.max(by_clock);
+        }
+    }
+    out
 }
 
 /// Counts per unit from the rows: count change over position change.
@@ -401,7 +443,8 @@ pub fn jam(v: &View<'_>) -> Option<Candidate> {
     let driven = run.iter().all(|r| r.state.motor_on());
     let grows = last.following_error.abs() > first.following_error.abs() + 1e-9;
     let recorded = v.recorded("stall");
-    if !(recorded || (held_s >= 0.03 && driven && !board_off && peak > 0.1 * max && grows)) {
+    if !(recorded || (held_s >= JAM_MIN_S && driven && !board_off && peak > JAM_DUTY * max && grows))
+    {
         return None;
     }
     let u = v.unit();
@@ -434,7 +477,7 @@ pub fn jam(v: &View<'_>) -> Option<Candidate> {
             );
         }
     }
-    let conf = if recorded { 0.92 } else { 0.6 + 0.3 * (held_s / 0.2).min(1.0) };
+    let conf = if recorded { 0.92 } else { 0.6 + 0.3 * (held_s / 0.1).min(1.0) };
     Some(cand(Cause::Jam, conf, evidence, check))
 }
 
@@ -505,6 +548,9 @@ pub fn saturation(v: &View<'_>) -> Option<Candidate> {
 
 /// The axis follows, but lags more with speed, with duty to spare.
 pub fn gain_too_low(v: &View<'_>) -> Option<Candidate> {
+    if let Some(c) = too_weak_to_start(v) {
+        return Some(c);
+    }
     let rows: Vec<&Sample> = v
         .before()
         .iter()
@@ -535,7 +581,18 @@ pub fn gain_too_low(v: &View<'_>) -> Option<Candidate> {
     // Grown into the band over the move, not one frame's spike.
     let near_band =
         last.following_error.abs() >= 0.5 * band && at_trip.following_error.abs() >= 0.7 * band;
-    if follows < 0.7 || !near_band {
+    // Still moving the profile's way at the trip (at least 3 counts in the last 20 ms): a
+    // jam is not a lag, and motion against the profile is the wiring rule's.
+    let end = v.last(0.02);
+    let moving_at_end = match (end.first(), end.last()) {
+        (Some(a), Some(b)) => {
+            ((b.count - a.count) as f64) * b.target_velocity.signum() >= 3.0
+                || !v.rec.has_evidence
+                    && (b.position - a.position) * b.target_velocity.signum() > 0.0
+        }
+        _ => false,
+    };
+    if !near_band || !moving_at_end {
         return None;
     }
     let r = correlation(
@@ -544,8 +601,11 @@ pub fn gain_too_low(v: &View<'_>) -> Option<Candidate> {
     );
     let u = v.unit();
     let mut evidence = vec![format!(
-        "the axis followed the profile (at least 30 % of its speed, same direction) in {:.0} % \
-         of the moving frames, yet lagged {:.3} {u} at the trip (band {:.3} {u})",
+        "the axis moved the profile's way (at {:.1} of {:.1} {u}/s at the end) and kept up \
+         (at least 30 % of the profile's speed) in {:.0} % of the moving frames, yet lagged \
+         {:.3} {u} at the trip (band {:.3} {u})",
+        last.velocity,
+        last.target_velocity,
         follows * 100.0,
         last.following_error.abs(),
         last.band
@@ -575,6 +635,46 @@ pub fn gain_too_low(v: &View<'_>) -> Option<Candidate> {
     );
     let conf = if r >= 0.5 { 0.7 } else { 0.5 };
     Some(cand(Cause::GainTooLow, conf, evidence, check))
+}
+
+/// The other picture of a gain too low: the profile moved off, the error grew, yet the duty
+/// stayed too small to start the motor.
+fn too_weak_to_start(v: &View<'_>) -> Option<Candidate> {
+    let b = v.before();
+    let last = b.last()?;
+    let start = b.iter().rposition(|r| (r.count - last.count).abs() > 2).map_or(0, |i| i + 1);
+    let run = &b[start..];
+    let first = run.first()?;
+    let max = v.max_duty();
+    let peak = run.iter().map(|r| r.duty.abs()).fold(0.0, f64::max);
+    let target_moved = (last.target - first.target).abs() > last.band.max(1e-9) * 0.5;
+    let driven = run.iter().all(|r| r.state.motor_on());
+    if !(v.rec.has_evidence
+        && last.t - first.t >= JAM_MIN_S
+        && driven
+        && target_moved
+        && peak <= JAM_DUTY * max
+        && last.following_error.abs() > first.following_error.abs())
+    {
+        return None;
+    }
+    let u = v.unit();
+    Some(cand(
+        Cause::GainTooLow,
+        0.65,
+        vec![
+            format!(
+                "the target moved {:.3} {u} away but the axis never started: the duty reached                  only {peak:.1} % (limit {max:.0} %)",
+                (last.target - first.target).abs()
+            ),
+            format!("following error grew to {:.3} {u} at {:.1} % duty", last.following_error, last.duty),
+        ],
+        vec![
+            "raise kp (and ff_velocity, ff_static): the output stays below the motor's breakaway              duty, or run `servotty tune` on this axis"
+                .to_owned(),
+            "set the minimum duty (breakaway) from commissioning".to_owned(),
+        ],
+    ))
 }
 
 /// At cruise the P and I parts take back a good part of the feedforward: the load is lighter
