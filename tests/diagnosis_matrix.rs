@@ -60,8 +60,18 @@ struct Variant {
 
 const VARIANTS: [Variant; 3] = [
     Variant { name: "demo", mass_kg: 1.5, friction_scale: 1.0, gain_scale: 1.0 },
-    Variant { name: "heavy, sticky, soft gains", mass_kg: 4.0, friction_scale: 1.8, gain_scale: 0.6 },
-    Variant { name: "light, slick, stiff gains", mass_kg: 0.6, friction_scale: 0.5, gain_scale: 1.5 },
+    Variant {
+        name: "heavy, sticky, soft gains",
+        mass_kg: 4.0,
+        friction_scale: 1.8,
+        gain_scale: 0.6,
+    },
+    Variant {
+        name: "light, slick, stiff gains",
+        mass_kg: 0.6,
+        friction_scale: 0.5,
+        gain_scale: 1.5,
+    },
 ];
 
 /// The X axis alone, homed by declaration (the matrix is about moves, not homing).
@@ -133,22 +143,19 @@ async fn run(v: Variant, speed: f64, fault: Fault) -> Outcome {
     .await;
     match fault {
         Fault::Jam => sim.set_plant_faults(PlantFaults { blocked: true, ..Default::default() }),
-        Fault::EncoderGlitch => sim.set_plant_faults(PlantFaults {
-            encoder_offset_counts: 150,
-            ..Default::default()
-        }),
-        Fault::EncoderJump => sim.set_plant_faults(PlantFaults {
-            encoder_offset_counts: 1000,
-            ..Default::default()
-        }),
+        Fault::EncoderGlitch => {
+            sim.set_plant_faults(PlantFaults { encoder_offset_counts: 150, ..Default::default() })
+        }
+        Fault::EncoderJump => {
+            sim.set_plant_faults(PlantFaults { encoder_offset_counts: 1000, ..Default::default() })
+        }
         Fault::BeltSlip => {
             sim.set_plant_faults(PlantFaults { belt_slip: 0.3, ..Default::default() })
         }
         Fault::CutLink => sim.set_link_faults(LinkFaults { cut: true, ..Default::default() }),
-        Fault::LossyLink => sim.set_link_faults(LinkFaults {
-            drop_probability: 0.3,
-            ..Default::default()
-        }),
+        Fault::LossyLink => {
+            sim.set_link_faults(LinkFaults { drop_probability: 0.3, ..Default::default() })
+        }
         Fault::LinkBlackout => {
             // 70 ms dark: longer than the board's 50 ms watchdog, shorter than the host's
             // 100 ms link timeout.
@@ -246,10 +253,7 @@ async fn every_injected_fault_is_named() {
         c.dedup();
         c
     };
-    println!(
-        "| injected | {} |",
-        named.iter().map(|c| c.words()).collect::<Vec<_>>().join(" | ")
-    );
+    println!("| injected | {} |", named.iter().map(|c| c.words()).collect::<Vec<_>>().join(" | "));
     println!("|---|{}", "---|".repeat(named.len()));
     for &f in &faults {
         let cells: Vec<String> = named

@@ -443,7 +443,8 @@ pub fn jam(v: &View<'_>) -> Option<Candidate> {
     let driven = run.iter().all(|r| r.state.motor_on());
     let grows = last.following_error.abs() > first.following_error.abs() + 1e-9;
     let recorded = v.recorded("stall");
-    if !(recorded || (held_s >= JAM_MIN_S && driven && !board_off && peak > JAM_DUTY * max && grows))
+    if !(recorded
+        || (held_s >= JAM_MIN_S && driven && !board_off && peak > JAM_DUTY * max && grows))
     {
         return None;
     }
