@@ -242,16 +242,20 @@ async fn serve(
     }
 }
 
-/// Waits for readiness and reads once. The readiness is then cleared (unless a new event came
-/// meanwhile), so the next call waits for new bytes instead of reading into "would block".
+/// Waits for readiness and reads once. The readiness is then cleared (tokio keeps it if a new
+/// event came meanwhile), so the next call waits for new bytes instead of reading again only
+/// to hear "would block": one read system call per frame instead of two.
 async fn read_once(
     port: &AsyncFd<mio_serial::SerialStream>,
     buf: &mut [u8],
 ) -> std::io::Result<usize> {
     loop {
         let mut ready = port.readable().await?;
-        let got = (&*ready.get_inner()).read(buf);
-        ready.clear_ready();
+        let got = ready.get_inner().read(buf);
+        // A full buffer may have left bytes behind: then stay ready and read again.
+        if !matches!(got, Ok(n) if n == buf.len()) {
+            ready.clear_ready();
+        }
         match got {
             Ok(0) => return Err(std::io::ErrorKind::UnexpectedEof.into()),
             Ok(n) => return Ok(n),
@@ -271,7 +275,7 @@ async fn send(
     protocol::write_frame(msg, tx);
     let mut rest = &tx[..];
     while !rest.is_empty() {
-        match (&*port.get_ref()).write(rest) {
+        match port.get_ref().write(rest) {
             Ok(n) => rest = &rest[n..],
             Err(e) if e.kind() == std::io::ErrorKind::WouldBlock => {
                 port.writable().await?.clear_ready();

@@ -68,6 +68,9 @@ struct SimFigures {
     rushed_ticks: u64,
     ticks: u64,
     longest_tick_gap_ms: f64,
+    /// The simulator's CPU over its life, % of one core, and its ticks per second per axis.
+    cpu_pct: f64,
+    ticks_per_s: f64,
 }
 
 fn main() -> std::process::ExitCode {
@@ -119,7 +122,9 @@ fn run(args: &Args) -> Result<(), String> {
                 }
             }
             .map_err(|e| format!("{host}: {e}"))?;
-            let sim_lines = sim.stop()?;
+            let sim_started = sim.started;
+            let (sim_lines, sim_cpu) = sim.stop()?;
+            let sim_wall = sim_started.elapsed().as_secs_f64();
             if !out.status.success() {
                 return Err(format!("{host}: {}", String::from_utf8_lossy(&out.stderr).trim()));
             }
@@ -134,7 +139,10 @@ fn run(args: &Args) -> Result<(), String> {
                     serde_json::json!({"round": round, "host": host, "result": v, "sim": sim_lines})
                 );
             }
-            runs.push(summarise(host, round, &v, &sim_lines)?);
+            let mut r = summarise(host, round, &v, &sim_lines)?;
+            r.sim.cpu_pct = sim_cpu;
+            r.sim.ticks_per_s = r.sim.ticks as f64 / f64::from(args.axes) / sim_wall;
+            runs.push(r);
             eprintln!("host_cost: round {round}, {host} done");
         }
     }
@@ -178,6 +186,7 @@ struct Sim {
     child: Child,
     lines: std::io::Lines<BufReader<ChildStdout>>,
     ports: Vec<(String, String)>,
+    started: std::time::Instant,
 }
 
 impl Sim {
@@ -192,7 +201,12 @@ impl Sim {
             .spawn()
             .map_err(|e| format!("sim: {e}"))?;
         let stdout = child.stdout.take().ok_or("sim: no stdout")?;
-        let mut sim = Self { child, lines: BufReader::new(stdout).lines(), ports: Vec::new() };
+        let mut sim = Self {
+            child,
+            lines: BufReader::new(stdout).lines(),
+            ports: Vec::new(),
+            started: std::time::Instant::now(),
+        };
         for _ in 0..axes {
             let line = match sim.lines.next() {
                 Some(Ok(l)) => l,
@@ -204,9 +218,14 @@ impl Sim {
         Ok(sim)
     }
 
-    /// SIGTERM, then its closing report, one JSON value per axis.
-    fn stop(mut self) -> Result<Vec<Value>, String> {
+    /// SIGTERM, then its closing report, one JSON value per axis, and its CPU use over its
+    /// life (% of one core).
+    fn stop(mut self) -> Result<(Vec<Value>, f64), String> {
         let pid = self.child.id().to_string();
+        let cpu_pct = match (cpu_seconds(self.child.id()), self.started.elapsed().as_secs_f64()) {
+            (Some(c), wall) if wall > 0.0 => 100.0 * c / wall,
+            _ => 0.0,
+        };
         let sent = Command::new("kill").args(["-TERM", &pid]).status();
         if !sent.is_ok_and(|s| s.success()) {
             let _ = self.child.kill();
@@ -218,8 +237,16 @@ impl Sim {
             out.push(serde_json::from_str(&line).map_err(|e| format!("sim report: {e}"))?);
         }
         let _ = self.child.wait();
-        Ok(out)
+        Ok((out, cpu_pct))
     }
+}
+
+/// User plus system CPU time of process `pid`, s (proc(5): fields 14 and 15, USER_HZ 100).
+fn cpu_seconds(pid: u32) -> Option<f64> {
+    let stat = std::fs::read_to_string(format!("/proc/{pid}/stat")).ok()?;
+    let rest = &stat[stat.rfind(')')? + 2..];
+    let f: Vec<&str> = rest.split_whitespace().collect();
+    Some((f.get(11)?.parse::<f64>().ok()? + f.get(12)?.parse::<f64>().ok()?) / 100.0)
 }
 
 fn summarise(host: &str, round: u32, v: &Value, sim: &[Value]) -> Result<Run, String> {
@@ -253,11 +280,13 @@ fn summarise(host: &str, round: u32, v: &Value, sim: &[Value]) -> Result<Run, St
 
 fn print_table(args: &Args, runs: &[Run]) {
     println!(
-        "{} axes at 1 kHz, {} s per host; turnaround µs (worst axis); sim: whole run",
+        "{} axes at 1 kHz, {} s per host; turnaround µs (worst axis); sim: its whole run \
+         (late replies, watchdog trips, longest reply gap, rushed ticks, longest stall ms, CPU, \
+         ticks/s per axis)",
         args.axes, args.seconds
     );
     println!(
-        "{:<5} {:<8} {:>6} {:>5} {:>5} {:>6} {:>6} {:>8} | {:>7} {:>5} {:>7} {:>7} {:>7}",
+        "{:<5} {:<8} {:>6} {:>5} {:>5} {:>6} {:>6} {:>8} | {:>7} {:>5} {:>7} {:>7} {:>7} {:>7} {:>7}",
         "round",
         "host",
         "cpu %",
@@ -270,12 +299,14 @@ fn print_table(args: &Args, runs: &[Run]) {
         "wdog",
         "gap ms",
         "rush %",
-        "stall"
+        "stall",
+        "cpu %",
+        "ticks/s"
     );
     for r in runs {
         let pct = |n: u64, d: u64| if d == 0 { 0.0 } else { 100.0 * n as f64 / d as f64 };
         println!(
-            "{:<5} {:<8} {:>6.2} {:>5} {:>5} {:>6} {:>6} {:>8.0} | {:>7.2} {:>5} {:>7.1} {:>7.1} {:>7.1}",
+            "{:<5} {:<8} {:>6.2} {:>5} {:>5} {:>6} {:>6} {:>8.0} | {:>7.2} {:>5} {:>7.1} {:>7.1} {:>7.1} {:>7.1} {:>7.1}",
             r.round,
             r.host,
             r.cpu_pct,
@@ -289,6 +320,8 @@ fn print_table(args: &Args, runs: &[Run]) {
             r.sim.longest_reply_gap_ms,
             pct(r.sim.rushed_ticks, r.sim.ticks),
             r.sim.longest_tick_gap_ms,
+            r.sim.cpu_pct,
+            r.sim.ticks_per_s,
         );
     }
     let ratios: Vec<String> = (1..=args.rounds)
