@@ -20,6 +20,7 @@ pub mod home_cmd;
 pub mod linktest;
 pub mod manual;
 pub mod move_cmd;
+pub mod progress;
 pub mod sim_pty;
 pub mod tune;
 
@@ -156,12 +157,16 @@ pub struct MoveArgs {
     /// Which machine.
     #[command(flatten)]
     pub machine: MachineArgs,
-    /// Targets in axis units: AXIS=POS, comma-separated or repeated (e.g. --to x=300,y=150).
-    #[arg(long, value_name = "AXIS=POS[,AXIS=POS...]", required = true, value_delimiter = ',')]
-    pub to: Vec<Target>,
+    /// Targets in axis units: AXIS=POS, or @SPOT for a named position of the configuration's
+    /// [spots] table; comma-separated or repeated (e.g. --to x=300,y=150 or --to @tray3).
+    #[arg(long, value_name = "AXIS=POS|@SPOT[,...]", required = true, value_delimiter = ',')]
+    pub to: Vec<move_cmd::Destination>,
     /// Home the axes (in the configured order) before moving.
     #[arg(long)]
     pub home: bool,
+    /// Confirm that the axes may move (asked on a terminal; required without one).
+    #[arg(long)]
+    pub yes: bool,
     /// Print one JSON object instead of a table.
     #[arg(long)]
     pub json: bool,
@@ -173,6 +178,9 @@ pub struct HomeArgs {
     /// Which machine.
     #[command(flatten)]
     pub machine: MachineArgs,
+    /// Confirm that the axes may move (asked on a terminal; required without one).
+    #[arg(long)]
+    pub yes: bool,
     /// Print one JSON object instead of a table.
     #[arg(long)]
     pub json: bool,
