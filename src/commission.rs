@@ -466,7 +466,8 @@ pub async fn run(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
             let csv = base.with_extension("csv");
             let svg = base.with_extension("svg");
             std::fs::create_dir_all(&dir).map_err(|e| format!("{}: {e}", dir.display()))?;
-            report::write_step_csv(&csv, &rows).map_err(|e| format!("{}: {e}", csv.display()))?;
+            report::write_step_csv(&csv, &rows, &u)
+                .map_err(|e| format!("{}: {e}", csv.display()))?;
             report::write_step_svg(&svg, &rows, &format!("{} step", a.name), &u)
                 .map_err(|e| e.to_string())?;
             let text =

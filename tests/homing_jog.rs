@@ -266,33 +266,47 @@ async fn following_error_trip_writes_a_parseable_capture() {
         }
     };
     m.shutdown().await;
-    let text = std::fs::read_to_string(&path).expect("capture readable");
-    let (meta, body): (Vec<&str>, Vec<&str>) = text.lines().partition(|l| l.starts_with('#'));
-    assert!(meta.iter().any(|l| l.contains("trip cause: following error")), "{meta:?}");
-    assert!(meta.iter().any(|l| l.starts_with("# software: servotty")), "{meta:?}");
-    assert!(
-        body[0].starts_with("axis,t,target,position,following_error,duty,velocity,state,"),
-        "{}",
-        body[0]
-    );
-    assert_eq!(body[0], servotty::engine::recorder::CAPTURE_COLUMNS.join(","));
-    let x_rows: Vec<Vec<&str>> = body[1..]
-        .iter()
-        .map(|l| l.split(',').collect::<Vec<_>>())
-        .filter(|r| r[0] == "x")
-        .collect();
-    assert!(x_rows.len() > 1000, "{} rows", x_rows.len());
-    for r in &x_rows {
-        assert_eq!(r.len(), servotty::engine::recorder::CAPTURE_COLUMNS.len());
-        for v in &r[1..7] {
-            v.parse::<f64>().expect("numeric column");
+    // One header row, then one row per instant with every axis's columns, read back with a
+    // general CSV reader (as pandas or a spreadsheet would: no options, no comment lines).
+    let path = std::path::PathBuf::from(path);
+    let mut rdr = csv::Reader::from_path(&path).expect("capture readable");
+    let header: Vec<String> = rdr.headers().expect("header").iter().map(str::to_owned).collect();
+    assert_eq!(header[0], "t_s");
+    for axis in ["x", "y", "z"] {
+        for col in ["position_mm", "target_mm", "duty_pct", "following_error_mm", "state"] {
+            assert!(header.contains(&format!("{axis}_{col}")), "{axis}_{col} in {header:?}");
         }
     }
-    let last = x_rows.last().expect("rows");
-    assert_eq!(last[7], "tripped");
-    let tripped_at = x_rows.iter().position(|r| r[7] == "tripped").expect("trip row");
-    let before = &x_rows[tripped_at - 1];
-    assert_eq!(before[7], "moving", "the row before the trip shows the move");
+    let col = |name: &str| header.iter().position(|h| h == name).expect(name);
+    let (t, pos, state) = (col("t_s"), col("x_position_mm"), col("x_state"));
+    let rows: Vec<csv::StringRecord> = rdr.records().map(|r| r.expect("row")).collect();
+    assert!(rows.len() > 1000, "{} rows", rows.len());
+    for r in &rows {
+        assert_eq!(r.len(), header.len());
+        r[t].parse::<f64>().expect("time");
+        r[pos].parse::<f64>().expect("position");
+    }
+    let last = rows.last().expect("rows");
+    assert_eq!(&last[state], "tripped");
+    assert!(last[t].parse::<f64>().expect("t") >= 0.0, "the time base is the trip");
+    let tripped_at = rows.iter().position(|r| &r[state] == "tripped").expect("trip row");
+    assert_eq!(&rows[tripped_at - 1][state], "moving", "the row before the trip shows the move");
+    // The metadata is beside it, as JSON.
+    let meta: serde_json::Value = serde_json::from_str(
+        &std::fs::read_to_string(path.with_extension("json")).expect("sidecar"),
+    )
+    .expect("sidecar is JSON");
+    assert_eq!(meta["trip"]["cause"], "following error", "{meta}");
+    assert!(meta["software"].as_str().expect("software").starts_with("servotty"), "{meta}");
+    // Readable by everyone: records are for sharing.
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::PermissionsExt as _;
+        for p in [path.clone(), path.with_extension("json")] {
+            let mode = std::fs::metadata(&p).expect("stat").permissions().mode() & 0o777;
+            assert_eq!(mode, 0o644, "{}", p.display());
+        }
+    }
     // The event log has the trip as a JSON line.
     let log = std::fs::read_to_string(&paths.event_log).expect("event log");
     assert!(log.lines().any(|l| l.contains("\"event\":\"trip\"")), "{log}");
