@@ -520,6 +520,12 @@ pub struct MotionConfig {
     /// … for this long, s.
     #[serde(default = "default_in_position_dwell")]
     pub in_position_dwell_s: f64,
+    /// Shape of moves, jogs and stops: trapezoid (default) or jerk-limited.
+    #[serde(default)]
+    pub profile: crate::control::ProfileShape,
+    /// Jerk limit for `profile = "jerk_limited"`, unit/s³.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub max_jerk: Option<f64>,
 }
 
 fn default_in_position_band() -> f64 {
@@ -662,7 +668,7 @@ impl MachineConfig {
                 source_name: source_name.to_owned(),
                 line,
                 column,
-                message: e.message().trim().to_owned(),
+                message: plain_words(e.message().trim()),
             }
         })?;
         if let Some(bad) = cfg.validate().into_iter().next() {
@@ -756,6 +762,9 @@ impl MachineConfig {
                 if !(v.is_finite() && v > 0.0) {
                     out_push(&mut out, at(key), format!("expected a number > 0, found {v}"));
                 }
+            }
+            if let Some(why) = crate::control::profile::check_jerk(m) {
+                out_push(&mut out, at(&["motion", "max_jerk"]), why);
             }
             if c.mode == ControlMode::OnOff && !(c.tolerance.is_finite() && c.tolerance > 0.0) {
                 out_push(
@@ -1075,6 +1084,23 @@ fn line_col(text: &str, offset: usize) -> (usize, usize) {
 
 /// Line and column of the key at `path` (or of the nearest parent that exists); numeric
 /// parts index arrays of tables.
+/// The parser's type names in words a person reads ("expected f64" → "expected a number").
+fn plain_words(message: &str) -> String {
+    [
+        ("expected f64", "expected a number"),
+        ("expected u64", "expected a whole number"),
+        ("expected u32", "expected a whole number"),
+        ("expected u16", "expected a whole number"),
+        ("expected u8", "expected a whole number"),
+        ("expected i64", "expected a whole number"),
+        ("expected a boolean", "expected true or false"),
+        ("expected struct ", "expected a table "),
+        ("expected a sequence", "expected a list [ … ]"),
+    ]
+    .iter()
+    .fold(message.to_owned(), |m, (from, to)| m.replace(from, to))
+}
+
 fn locate(text: &str, path: &[String]) -> Option<(usize, usize)> {
     let doc = toml_edit::Document::parse(text).ok()?;
     let mut best = None;

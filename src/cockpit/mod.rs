@@ -10,14 +10,13 @@
 //! - [`gain_edit`], [`save`]: checking a typed gain; saving gains into the file atomically.
 //! - [`ui`]: drawing, a pure function of the state.
 //! - [`runner`]: the event loop; [`port`]: the trait the loop needs from a machine.
-//! - [`terminal`], [`logging`], [`engine_thread`]: terminal lifecycle, the log file, and
-//!   running the machine on its own thread.
+//! - [`terminal`], [`logging`]: terminal lifecycle and the log file (the machine runs on
+//!   the engine's own thread, `engine::thread`).
 //!
 //! [`run`] is what `servotty` and `servotty cockpit` call.
 
 pub mod action;
 pub mod app;
-pub mod engine_thread;
 pub mod event_log;
 pub mod format;
 pub mod gain_edit;
@@ -38,15 +37,17 @@ use std::sync::Arc;
 pub use app::App;
 pub use theme::Theme;
 
-use crate::cli::{MachineArgs, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
-use engine_thread::{EngineStartError, EngineThread};
+use crate::config::MachineConfig;
+use crate::engine::{EngineStartError, EngineThread, PortOverride};
+use crate::process::{EXIT_FAILED, EXIT_OK, EXIT_USAGE};
 
-/// Opens the cockpit on the machine `args` name; returns the process exit code.
+/// Opens the cockpit on the machine in `config` (the built-in demo when `None`), with the
+/// axes in `ports` on serial devices; returns the process exit code.
 ///
 /// Configuration errors are reported on stderr before the terminal is touched. Whatever
 /// happens after, every motor is off when this returns.
-pub fn run(args: &MachineArgs) -> u8 {
-    let (cfg, source) = match args.load() {
+pub fn run(config: Option<&std::path::Path>, ports: &[PortOverride]) -> u8 {
+    let (cfg, source) = match MachineConfig::load_or_demo(config) {
         Ok(c) => c,
         Err(e) => {
             eprintln!("servotty: {e}");
@@ -62,7 +63,7 @@ pub fn run(args: &MachineArgs) -> u8 {
     }
     let log_file = logging::init();
     let paths = crate::engine::recorder::RecorderPaths::resolve(&cfg, &source);
-    let engine = match EngineThread::start(cfg.clone(), args.ports.clone(), Some(paths.clone())) {
+    let engine = match EngineThread::start(cfg.clone(), ports.to_vec(), Some(paths.clone())) {
         Ok(e) => e,
         Err(e) => {
             eprintln!("servotty: {e}");
@@ -72,7 +73,7 @@ pub fn run(args: &MachineArgs) -> u8 {
             };
         }
     };
-    let rt = match crate::cli::runtime() {
+    let rt = match crate::process::runtime() {
         Ok(rt) => rt,
         Err(e) => {
             eprintln!("servotty: cannot start the runtime: {e}");

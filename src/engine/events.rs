@@ -77,6 +77,12 @@ pub enum EventKind {
         /// Where.
         path: String,
     },
+    /// An axis task ended (returned or panicked) while the machine was running: the axis is
+    /// offline until the machine restarts, and its board's watchdog turns its motor off.
+    AxisEnded {
+        /// Why, in words.
+        reason: String,
+    },
 }
 
 impl Event {
@@ -101,6 +107,7 @@ impl Event {
             EventKind::Homed { position, method } => format!("homed ({method}) at {position:.3}"),
             EventKind::Notice { text } => text.clone(),
             EventKind::Capture { path } => format!("capture written: {path}"),
+            EventKind::AxisEnded { reason } => format!("AXIS TASK ENDED: {reason}"),
         };
         let clock = self.time.get(11..19).unwrap_or("");
         format!("{clock} {who}: {what}")
