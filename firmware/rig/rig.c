@@ -3,16 +3,21 @@
  * a belt axis and a quadrature encoder modelled at the chip's pins, and USART0 bridged to
  * a pseudo-terminal that servotty opens like any serial port.
  *
- *   trellis-rig FIRMWARE.elf [START_MM]
+ *   trellis-rig FIRMWARE.elf [START_MM] [--spin EDGES_PER_S]
+ *
+ * --spin replaces the motor by encoder edges at a fixed rate (counting up), to measure the
+ * highest edge rate the firmware decodes without losing counts.
  *
  * stdout, one line each, flushed at once (tests read it):
  *   pty PATH                                  the serial port to give servotty
  *   drive on|off t_us=T last_rx_us=R          the bridge enable changed (emulated time T;
  *                                             R = when the last byte from the host arrived)
- *   stats sim_s=S wall_s=W behind_ms=B busy_pct=P pos_mm=X count=C enc_edges=E
+ *   stats sim_s=S wall_s=W behind_ms=B busy_pct=P fw_cpu_pct=F pos_mm=X count=C enc_edges=E
  *                                             once a second: emulated and wall time, how
  *                                             far emulation lags real time, the share of
- *                                             real time the emulator spent computing
+ *                                             real time the emulator spent computing, the
+ *                                             share of the chip's cycles the firmware spent
+ *                                             awake (not in sleep) over the last second
  *
  * Emulated time is held to wall time: the rig sleeps whenever the emulated chip is ahead
  * (simavr alone would run as fast as the host computer allows), so the firmware's ticks
@@ -90,6 +95,9 @@ static size_t in_len, in_pos;
 static uint8_t out_buf[1 << 16];
 static size_t out_len;
 static uint64_t last_rx_us;
+
+static avr_cycle_count_t asleep_cycles, asleep_mark, cycle_mark;
+static double spin_rate;
 
 static struct timespec wall0;
 static double slept_s;
@@ -213,6 +221,22 @@ static void step_plant(double dt)
     show_inputs();
 }
 
+static void print_stats(void)
+{
+    double sim = (double)avr->cycle / F_CPU;
+    double wall = wall_s();
+    double busy = wall > 0 ? 100.0 * (1.0 - slept_s / wall) : 100.0;
+    avr_cycle_count_t span = avr->cycle - cycle_mark;
+    double fw_cpu = span > 0 ? 100.0 * (1.0 - (double)(asleep_cycles - asleep_mark) / (double)span)
+                             : 0.0;
+    cycle_mark = avr->cycle;
+    asleep_mark = asleep_cycles;
+    printf("stats sim_s=%.3f wall_s=%.3f behind_ms=%.1f busy_pct=%.1f fw_cpu_pct=%.2f "
+           "pos_mm=%.3f count=%ld enc_edges=%lu\n",
+           sim, wall, (wall - sim) * 1000.0, busy, fw_cpu, axis.pos_mm, axis.count, axis.edges);
+    fflush(stdout);
+}
+
 static void throttle(void)
 {
     double sim = (double)avr->cycle / F_CPU;
@@ -227,11 +251,7 @@ static void throttle(void)
     }
     if (wall >= next_stats_s) {
         next_stats_s += 1.0;
-        double busy = wall > 0 ? 100.0 * (1.0 - slept_s / wall) : 100.0;
-        printf("stats sim_s=%.3f wall_s=%.3f behind_ms=%.1f busy_pct=%.1f pos_mm=%.3f "
-               "count=%ld enc_edges=%lu\n",
-               sim, wall, (wall - sim) * 1000.0, busy, axis.pos_mm, axis.count, axis.edges);
-        fflush(stdout);
+        print_stats();
     }
 }
 
@@ -240,11 +260,28 @@ static avr_cycle_count_t on_step(avr_t *a, avr_cycle_count_t when, void *param)
     (void)a;
     (void)param;
     static unsigned n;
-    step_plant(STEP_US * 1e-6);
+    if (spin_rate <= 0.0) {
+        step_plant(STEP_US * 1e-6);
+    }
     if (++n % (1000u / STEP_US) == 0) {
         throttle();
     }
     return when + STEP_US * (F_CPU / 1000000u);
+}
+
+/* --spin: one forward edge per call, at a fixed rate. */
+static avr_cycle_count_t on_spin(avr_t *a, avr_cycle_count_t when, void *param)
+{
+    (void)a;
+    (void)param;
+    static double due;
+    axis.count++;
+    axis.edges++;
+    show_count(axis.count);
+    due += (double)F_CPU / spin_rate;
+    avr_cycle_count_t step = (avr_cycle_count_t)due;
+    due -= (double)step;
+    return when + (step > 0 ? step : 1);
 }
 
 /* ---- UART <-> PTY ---- */
@@ -332,7 +369,7 @@ static int open_pty(char *path, size_t cap)
 static void no_sleep(avr_t *a, avr_cycle_count_t how_long)
 {
     (void)a;
-    (void)how_long;
+    asleep_cycles += how_long + 1; /* simavr then advances the clock by how_long + 1 */
 }
 
 static void on_signal(int sig)
@@ -344,10 +381,21 @@ static void on_signal(int sig)
 int main(int argc, char **argv)
 {
     if (argc < 2) {
-        fprintf(stderr, "usage: trellis-rig FIRMWARE.elf [START_MM]\n");
+        fprintf(stderr, "usage: trellis-rig FIRMWARE.elf [START_MM] [--spin EDGES_PER_S]\n");
         return 2;
     }
-    axis.pos_mm = argc > 2 ? atof(argv[2]) : 60.0;
+    axis.pos_mm = 60.0;
+    for (int k = 2; k < argc; k++) {
+        if (strcmp(argv[k], "--spin") == 0 && k + 1 < argc) {
+            spin_rate = atof(argv[++k]);
+            if (!(spin_rate > 0.0 && spin_rate <= 1e6)) {
+                fprintf(stderr, "trellis-rig: --spin wants 0 < EDGES_PER_S <= 1000000\n");
+                return 2;
+            }
+        } else {
+            axis.pos_mm = atof(argv[k]);
+        }
+    }
     if (!(axis.pos_mm >= 0.0 && axis.pos_mm <= TRAVEL_MM)) {
         fprintf(stderr, "trellis-rig: START_MM must be within 0...%.0f\n", TRAVEL_MM);
         return 2;
@@ -395,6 +443,9 @@ int main(int argc, char **argv)
     show_inputs();
     avr_cycle_timer_register_usec(avr, STEP_US, on_step, NULL);
     avr_cycle_timer_register_usec(avr, PUMP_US, on_pump, NULL);
+    if (spin_rate > 0.0) {
+        avr_cycle_timer_register_usec(avr, 1000, on_spin, NULL);
+    }
 
     printf("pty %s\n", path);
     fflush(stdout);
@@ -403,12 +454,7 @@ int main(int argc, char **argv)
     while (!stop && state != cpu_Done && state != cpu_Crashed) {
         state = avr_run(avr);
     }
-    double sim = (double)avr->cycle / F_CPU;
-    double wall = wall_s();
-    printf("stats sim_s=%.3f wall_s=%.3f behind_ms=%.1f busy_pct=%.1f pos_mm=%.3f count=%ld "
-           "enc_edges=%lu\n",
-           sim, wall, (wall - sim) * 1000.0, wall > 0 ? 100.0 * (1.0 - slept_s / wall) : 100.0,
-           axis.pos_mm, axis.count, axis.edges);
+    print_stats();
     if (state == cpu_Crashed) {
         fprintf(stderr, "trellis-rig: the emulated chip crashed\n");
         return 1;
