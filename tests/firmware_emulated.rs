@@ -334,7 +334,10 @@ fn firmware_on_an_emulated_board_serves_servotty() {
     for target in [150.0, 20.0] {
         let to = format!("x={target}");
         let out = servotty(
-            &["move", "--config", &cfg_arg, "--port", &port_arg, "--home", "--to", &to, "--json"],
+            &[
+                "move", "--config", &cfg_arg, "--port", &port_arg, "--home", "--to", &to, "--json",
+                "--yes",
+            ],
             state,
         );
         let v = json(&out);
@@ -348,6 +351,7 @@ fn firmware_on_an_emulated_board_serves_servotty() {
     let mut host = KillOnDrop(
         Command::new(env!("CARGO_BIN_EXE_servotty"))
             .args(["move", "--config", &cfg_arg, "--port", &port_arg, "--home", "--to", "x=200"])
+            .arg("--yes")
             .env("XDG_STATE_HOME", state)
             .stdin(Stdio::null())
             .stdout(Stdio::null())
