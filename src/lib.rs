@@ -26,5 +26,6 @@ pub mod engine;
 pub mod process;
 pub mod protocol;
 pub mod sim;
+pub mod spots;
 pub mod transport;
 pub mod tuning;
