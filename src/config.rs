@@ -694,8 +694,8 @@ impl MachineConfig {
     /// [`ConfigError`] naming the file, line, column and key.
     pub fn load(path: &Path) -> Result<Self, ConfigError> {
         let name = path.display().to_string();
-        let bytes =
-            std::fs::read(path).map_err(|err| ConfigError::Read { source_name: name.clone(), err })?;
+        let bytes = std::fs::read(path)
+            .map_err(|err| ConfigError::Read { source_name: name.clone(), err })?;
         let text = String::from_utf8(bytes).map_err(|e| {
             let good = e.utf8_error().valid_up_to();
             let bytes = e.as_bytes();
@@ -1079,23 +1079,67 @@ fn validate_derived(a: &AxisConfig, at: &dyn Fn(&[&str]) -> Vec<String>, out: &m
     // rate), at most an upper bound that still makes the rule mean something.
     let durations: [(&[&str], f64, f64, f64, &str); 11] = [
         (&["limits", "stall_timeout_s"], l.stall_timeout_s, 10.0 * tick_s, 10.0, "0.2…1 s"),
-        (&["limits", "link_timeout_s"], l.link_timeout_s, 3.0 * tick_s, 5.0, "about 2 × the watchdog, e.g. 0.1 s"),
+        (
+            &["limits", "link_timeout_s"],
+            l.link_timeout_s,
+            3.0 * tick_s,
+            5.0,
+            "about 2 × the watchdog, e.g. 0.1 s",
+        ),
         (&["limits", "runaway_timeout_s"], l.runaway_timeout_s, 3.0 * tick_s, 5.0, "0.02…0.1 s"),
         (&["limits", "settle_timeout_s"], l.settle_timeout_s, 10.0 * tick_s, 600.0, "1…5 s"),
-        (&["limits", "thermal_time_s"], l.thermal_time_s, 1.0, MAX_DURATION_S, "the winding's thermal time constant, typically 10…120 s"),
-        (&["homing", "timeout_s"], a.homing.timeout_s, 1.0, MAX_DURATION_S, "a few times the slowest search over max_travel"),
-        (&["jog", "deadman_s"], j.deadman_s, 5.0 * tick_s, 5.0, "a few key-repeat intervals, 0.1…0.3 s"),
-        (&["jog", "repeat_window_s"], j.repeat_window_s, 5.0 * tick_s, 10.0, "longer than the terminal's repeat delay, 0.5…1 s"),
+        (
+            &["limits", "thermal_time_s"],
+            l.thermal_time_s,
+            1.0,
+            MAX_DURATION_S,
+            "the winding's thermal time constant, typically 10…120 s",
+        ),
+        (
+            &["homing", "timeout_s"],
+            a.homing.timeout_s,
+            1.0,
+            MAX_DURATION_S,
+            "a few times the slowest search over max_travel",
+        ),
+        (
+            &["jog", "deadman_s"],
+            j.deadman_s,
+            5.0 * tick_s,
+            5.0,
+            "a few key-repeat intervals, 0.1…0.3 s",
+        ),
+        (
+            &["jog", "repeat_window_s"],
+            j.repeat_window_s,
+            5.0 * tick_s,
+            10.0,
+            "longer than the terminal's repeat delay, 0.5…1 s",
+        ),
         (&["motion", "in_position_dwell_s"], m.in_position_dwell_s, 0.0, 60.0, "0.05…0.5 s"),
-        (&["controller", "derivative_filter_s"], a.controller.derivative_filter_s, tick_s, 10.0, "a few ticks, e.g. 0.002…0.01 s"),
-        (&["controller", "tracking_time_s"], a.controller.tracking_time_s, tick_s, 100.0, "√(Ti·Td), e.g. 0.05 s"),
+        (
+            &["controller", "derivative_filter_s"],
+            a.controller.derivative_filter_s,
+            tick_s,
+            10.0,
+            "a few ticks, e.g. 0.002…0.01 s",
+        ),
+        (
+            &["controller", "tracking_time_s"],
+            a.controller.tracking_time_s,
+            tick_s,
+            100.0,
+            "√(Ti·Td), e.g. 0.05 s",
+        ),
     ];
     for (key, v, lo, hi, hint) in durations {
         if !(v.is_finite() && v >= lo && v <= hi) {
             out_push(
                 out,
                 at(key),
-                format!("expected {lo:.3}…{hi} s (tick {tick_ms:.3} ms), found {v}; sensible: {hint}"),
+                format!(
+                    "expected {lo:.3}…{hi} s (tick {tick_ms:.3} ms), found {v}; sensible: {hint}"
+                ),
             );
         }
     }
@@ -1184,7 +1228,9 @@ fn validate_derived(a: &AxisConfig, at: &dyn Fn(&[&str]) -> Vec<String>, out: &m
             format!("expected 0…100 %, found {}; sensible: 5…15 %", l.stall_margin_duty),
         );
     }
-    if !(l.continuous_duty.is_finite() && l.continuous_duty > breakaway && l.continuous_duty <= 100.0)
+    if !(l.continuous_duty.is_finite()
+        && l.continuous_duty > breakaway
+        && l.continuous_duty <= 100.0)
     {
         out_push(
             out,
@@ -1209,7 +1255,9 @@ fn validate_derived(a: &AxisConfig, at: &dyn Fn(&[&str]) -> Vec<String>, out: &m
                 out_push(
                     out,
                     at(&["transport", "baud"]),
-                    format!("expected 1200…12000000 bit/s, found {baud}; sensible: 115200 or 921600"),
+                    format!(
+                        "expected 1200…12000000 bit/s, found {baud}; sensible: 115200 or 921600"
+                    ),
                 );
             }
         }
@@ -1261,8 +1309,7 @@ fn validate_rail(
                     format!(
                         "the soft travel ({span} {u}) is longer than the simulated rail \
                          ({rail:.3} {u} = {} mm); sensible: at most {:.3} {u}",
-                        p.rail_length_mm,
-                        rail
+                        p.rail_length_mm, rail
                     ),
                 );
             }
@@ -1483,7 +1530,8 @@ mod tests {
         ];
         for (from, to, key) in cases {
             let p = problems_with(from, to);
-            let hit = p.iter().find(|p| p.key.contains(key)).unwrap_or_else(|| panic!("{to}: {p:?}"));
+            let hit =
+                p.iter().find(|p| p.key.contains(key)).unwrap_or_else(|| panic!("{to}: {p:?}"));
             assert!(hit.line > 1, "{to}: located {hit:?}");
             assert!(hit.message.contains("sensible") || hit.message.contains("e.g."), "{hit:?}");
         }

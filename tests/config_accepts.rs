@@ -45,7 +45,9 @@ fn setters() -> Vec<(&'static str, Setter)> {
         ("limits.stall_margin_duty", |a, v| a.limits.stall_margin_duty = v),
         ("limits.soft_min", |a, v| a.limits.soft_min = v),
         ("limits.soft_max", |a, v| a.limits.soft_max = v),
-        ("limits.encoder_jump_counts", |a, v| a.limits.encoder_jump_counts = v.clamp(0.0, 4e9) as u32),
+        ("limits.encoder_jump_counts", |a, v| {
+            a.limits.encoder_jump_counts = v.clamp(0.0, 4e9) as u32
+        }),
         ("motion.max_velocity", |a, v| a.motion.max_velocity = v),
         ("motion.max_acceleration", |a, v| a.motion.max_acceleration = v),
         ("motion.in_position_band", |a, v| a.motion.in_position_band = v),
@@ -98,7 +100,8 @@ fn value() -> impl Strategy<Value = Value> {
             f64::INFINITY
         ])
         .prop_map(Value::Fixed),
-        prop::sample::select(vec![0.01, 0.1, 0.5, 0.9, 1.1, 2.0, 10.0, 1000.0]).prop_map(Value::Scaled),
+        prop::sample::select(vec![0.01, 0.1, 0.5, 0.9, 1.1, 2.0, 10.0, 1000.0])
+            .prop_map(Value::Scaled),
     ]
 }
 
