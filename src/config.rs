@@ -364,6 +364,16 @@ pub struct SimFaults {
     /// Probability (0…1) that a telemetry frame arrives with a flipped bit.
     #[serde(default)]
     pub corrupt_frame_probability: f64,
+    /// Bursty loss: the link goes dark both ways for this long, ms, every `burst_every_ms`.
+    /// 0 = off.
+    #[serde(default)]
+    pub burst_ms: u32,
+    /// Period of the bursts, ms.
+    #[serde(default)]
+    pub burst_every_ms: u32,
+    /// Host messages take effect at the board this much later, ms (host jitter). 0 = off.
+    #[serde(default)]
+    pub reply_delay_ms: u32,
 }
 
 /// `[axis.scale]`: counts to units, and which way is positive.
@@ -1341,6 +1351,25 @@ fn validate_sim_faults(f: &SimFaults, base: &[String], out: &mut Vec<Invalid>) {
             path.push(k.to_owned());
             out_push(out, path, format!("expected a probability 0…1, found {v}; e.g. 0.01"));
         }
+    }
+    for (k, v) in [("burst_ms", f.burst_ms), ("reply_delay_ms", f.reply_delay_ms)] {
+        if v > 10_000 {
+            let mut path = base.to_vec();
+            path.push(k.to_owned());
+            out_push(out, path, format!("expected 0…10000 ms, found {v}; e.g. 70"));
+        }
+    }
+    if f.burst_ms > 0 && f.burst_every_ms <= f.burst_ms {
+        let mut path = base.to_vec();
+        path.push("burst_every_ms".to_owned());
+        out_push(
+            out,
+            path,
+            format!(
+                "expected a period longer than burst_ms ({}), found {}; e.g. 1000",
+                f.burst_ms, f.burst_every_ms
+            ),
+        );
     }
 }
 
