@@ -23,6 +23,7 @@ pub mod config;
 pub mod control;
 pub mod engine;
 pub mod protocol;
+pub mod signals;
 pub mod sim;
 pub mod transport;
 pub mod tuning;

@@ -197,6 +197,14 @@ where
         Err(code) => return code,
     };
     rt.block_on(async {
+        // Before the machine starts: a signal during link-up must not kill the process.
+        let mut signals = match crate::signals::Signals::install() {
+            Ok(s) => s,
+            Err(e) => {
+                eprintln!("servotty: cannot watch for signals: {e}");
+                return EXIT_FAILED;
+            }
+        };
         let paths = crate::engine::recorder::RecorderPaths::resolve(&cfg, &source);
         let machine = match crate::engine::Machine::start_with(&cfg, &args.ports, Some(paths)) {
             Ok(m) => m,
@@ -207,10 +215,13 @@ where
         };
         let h = machine.handle();
         let code = tokio::select! {
-            c = body(h) => c,
-            _ = tokio::signal::ctrl_c() => {
-                eprintln!("servotty: interrupted; motors off");
-                EXIT_FAILED
+            c = body(h.clone()) => c,
+            sig = signals.recv() => {
+                eprintln!("servotty: interrupted by {}; motors off", sig.name());
+                h.emit(crate::engine::events::EventKind::Interrupted {
+                    signal: sig.name().to_owned(),
+                });
+                sig.exit_code()
             }
         };
         machine.shutdown().await;

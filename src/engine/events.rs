@@ -77,6 +77,11 @@ pub enum EventKind {
         /// Where.
         path: String,
     },
+    /// A signal from outside ended the command; every motor is being turned off.
+    Interrupted {
+        /// `SIGINT`, `SIGTERM` or `SIGHUP`.
+        signal: String,
+    },
 }
 
 impl Event {
@@ -101,6 +106,7 @@ impl Event {
             EventKind::Homed { position, method } => format!("homed ({method}) at {position:.3}"),
             EventKind::Notice { text } => text.clone(),
             EventKind::Capture { path } => format!("capture written: {path}"),
+            EventKind::Interrupted { signal } => format!("interrupted by {signal}: motors off"),
         };
         let clock = self.time.get(11..19).unwrap_or("");
         format!("{clock} {who}: {what}")

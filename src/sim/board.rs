@@ -148,7 +148,8 @@ impl SimBoard {
             count: plant.encoder_count(),
             ..BoardView::default()
         };
-        let shared = Arc::new(Mutex::new(Shared { plant_faults, link_faults, blackout_ms: 0, view }));
+        let shared =
+            Arc::new(Mutex::new(Shared { plant_faults, link_faults, blackout_ms: 0, view }));
         Self {
             plant,
             plant_params: params.clone(),
@@ -199,7 +200,8 @@ impl SimBoard {
                                 continue;
                             }
                             b.decoder.extend(&rx[..n]);
-                            let delay = b.ms_to_ticks(self.handle.lock().link_faults.reply_delay_ms);
+                            let delay =
+                                b.ms_to_ticks(self.handle.lock().link_faults.reply_delay_ms);
                             while let Some(msg) = b.decoder.next_message::<HostMessage>() {
                                 // Bad frames are dropped and, per the contract, never feed
                                 // the watchdog.
