@@ -747,7 +747,7 @@ impl MachineConfig {
                 source_name: source_name.to_owned(),
                 line,
                 column,
-                message: e.message().trim().to_owned(),
+                message: plain_words(e.message().trim()),
             }
         })?;
         let mut problems: Vec<Problem> = cfg
@@ -1467,6 +1467,23 @@ fn line_col(text: &str, offset: usize) -> (usize, usize) {
 
 /// Line and column of the key at `path` (or of the nearest parent that exists); numeric
 /// parts index arrays of tables.
+/// The parser's type names in words a person reads ("expected f64" → "expected a number").
+fn plain_words(message: &str) -> String {
+    [
+        ("expected f64", "expected a number"),
+        ("expected u64", "expected a whole number"),
+        ("expected u32", "expected a whole number"),
+        ("expected u16", "expected a whole number"),
+        ("expected u8", "expected a whole number"),
+        ("expected i64", "expected a whole number"),
+        ("expected a boolean", "expected true or false"),
+        ("expected struct ", "expected a table "),
+        ("expected a sequence", "expected a list [ … ]"),
+    ]
+    .iter()
+    .fold(message.to_owned(), |m, (from, to)| m.replace(from, to))
+}
+
 fn locate(text: &str, path: &[String]) -> Option<(usize, usize)> {
     let doc = toml_edit::Document::parse(text).ok()?;
     let mut best = None;

@@ -14,6 +14,7 @@
 //! - [`tuning`]: commissioning analysis (identification, relay autotuning, tuning rules, gain
 //!   suggestions, step-test reports); pure functions on recorded samples.
 //! - [`commission`]: commissioning steps on a live machine (experiment, then analysis).
+//! - [`process`]: exit codes and the runtime every front end shares.
 //! - [`cli`]: the headless subcommands and argument parsing; `main.rs` only dispatches.
 
 pub mod cli;
@@ -22,6 +23,7 @@ pub mod commission;
 pub mod config;
 pub mod control;
 pub mod engine;
+pub mod process;
 pub mod protocol;
 pub mod signals;
 pub mod sim;

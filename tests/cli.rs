@@ -75,6 +75,8 @@ fn wrong_type_is_located() {
     assert_eq!(out.status.code(), Some(2));
     let err = text(&out.stderr);
     assert!(err.contains(&format!("{path}:{line}:")), "{err}");
+    // Words, not the parser's type names.
+    assert!(err.contains("expected a number") && !err.contains("f64"), "{err}");
 }
 
 #[test]

@@ -25,6 +25,7 @@ pub struct AnalyzeArgs {
 pub enum AnalyzeWhat {
     /// Step-response metrics of a recorded step: rise 10–90 %, overshoot, settling, steady-state
     /// error, peak time (times from the step instant).
+    #[command(after_help = "Example:\n  servotty analyze step x-step.csv --band 2 --json")]
     Step(StepArgs),
 }
 

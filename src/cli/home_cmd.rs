@@ -3,6 +3,7 @@
 use serde::Serialize;
 
 use crate::cli::{HomeArgs, EXIT_FAILED, EXIT_OK};
+use crate::cockpit::format::{decimals_for, num};
 use crate::engine::{AxisCommand, MachineHandle};
 
 /// One axis's result, as printed in JSON.
@@ -52,6 +53,13 @@ pub async fn home_all(h: &MachineHandle) -> HomeOutcome {
     HomeOutcome { ok: result.is_ok(), axes, error: result.err() }
 }
 
+/// Decimals that show one encoder count on `axis`, and its unit.
+pub(crate) fn resolution(h: &MachineHandle, axis: &str) -> (usize, String) {
+    h.config().axis(axis).map_or((3, String::new()), |a| {
+        (decimals_for(a.scale.counts_per_unit), a.scale.unit.clone())
+    })
+}
+
 /// `servotty home`.
 pub fn run(args: &HomeArgs) -> u8 {
     let json = args.json;
@@ -61,13 +69,16 @@ pub fn run(args: &HomeArgs) -> u8 {
             println!("{}", serde_json::to_string(&out).unwrap_or_default());
         } else {
             for a in &out.axes {
+                let (d, unit) = resolution(&h, &a.axis);
                 println!(
-                    "{:<6} {:<8} {:>10.3}{}",
+                    "{:<6} {:<9} {} {unit}",
                     a.axis,
                     if a.homed { "homed" } else { "not homed" },
-                    a.position,
-                    a.trip.as_ref().map(|t| format!("  tripped: {t}")).unwrap_or_default()
+                    num(a.position, d, 10),
                 );
+                if let Some(t) = &a.trip {
+                    println!("       tripped: {t}");
+                }
             }
             if let Some(e) = &out.error {
                 eprintln!("servotty: {e}");

@@ -13,31 +13,46 @@ use crate::config::{ConfigSource, MachineConfig};
 use crate::engine::PortOverride;
 
 pub mod analyze;
+pub mod ask;
 pub mod check;
 pub mod home_cmd;
 pub mod linktest;
+pub mod manual;
 pub mod move_cmd;
 pub mod sim_pty;
 pub mod tune;
 
-/// Exit code: done.
-pub const EXIT_OK: u8 = 0;
-/// Exit code: the machine could not do it (trip, refusal, link failure).
-pub const EXIT_FAILED: u8 = 1;
-/// Exit code: bad arguments or configuration.
-pub const EXIT_USAGE: u8 = 2;
+pub use crate::process::{runtime, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
 
 /// servotty: bring up, tune and run small DC-servo machines from a terminal.
 ///
 /// With no subcommand it opens the cockpit on the configured machine (the built-in simulated
-/// demo machine when no --config is given).
+/// demo machine when no --config is given). --config and --port may stand before or after
+/// the subcommand.
+///
+/// The software stop-all is not a safety function: wire a hardware emergency stop that
+/// removes motor power.
 #[derive(Debug, Parser)]
-#[command(name = "servotty", version, about, long_about = None)]
+#[command(
+    name = "servotty",
+    version,
+    about,
+    // Wrapped to the terminal, at most 80 columns (also when piped): help is read on small
+    // screens and over SSH.
+    max_term_width = 80,
+    after_help = "Examples:\n  \
+    servotty                            cockpit on the simulated demo gantry\n  \
+    servotty -c gantry.toml check       check a configuration\n  \
+    servotty -c gantry.toml home        home every axis in the configured order\n  \
+    servotty -c gantry.toml --port x=/dev/serial/by-id/usb-X move --to x=300\n\n\
+    Shell completions and the manual page: servotty completions SHELL, servotty man\n\
+    (see README.md)."
+)]
 pub struct Cli {
     /// What to do; the cockpit when omitted.
     #[command(subcommand)]
     pub command: Option<Command>,
-    /// Machine options for the cockpit when no subcommand is given.
+    /// Which machine (for the cockpit, and handed down to the subcommand).
     #[command(flatten)]
     pub machine: MachineArgs,
 }
@@ -46,34 +61,69 @@ pub struct Cli {
 #[derive(Debug, Subcommand)]
 pub enum Command {
     /// Open the cockpit (the default).
+    #[command(after_help = "Example:\n  servotty cockpit -c gantry.toml")]
     Cockpit(MachineArgs),
     /// Check a configuration file and print a summary of its axes.
+    #[command(
+        after_help = "Examples:\n  servotty check gantry.toml\n  servotty -c gantry.toml check"
+    )]
     Check {
-        /// The TOML file to check.
-        file: PathBuf,
+        /// The TOML file to check (or give it with --config).
+        file: Option<PathBuf>,
+        /// Which machine (only --config applies).
+        #[command(flatten)]
+        machine: MachineArgs,
     },
     /// Serve each simulated axis of a configuration on a pseudo-terminal.
+    #[command(after_help = "Example:\n  servotty sim --pty -c gantry.toml > ptys.txt")]
     Sim(SimArgs),
     /// Link, enable, move axes with profiles, wait until settled, disable.
+    #[command(after_help = "Examples:\n  servotty move --to x=300,y=150\n  \
+        servotty -c gantry.toml move --home --to z=20 --json")]
     Move(MoveArgs),
     /// Link and home every axis in the configured order.
+    #[command(after_help = "Example:\n  servotty -c gantry.toml home")]
     Home(HomeArgs),
     /// Commissioning steps on one axis: direction, breakaway, identify, relay, step.
+    #[command(after_help = "Examples:\n  servotty tune direction x --travel 10\n  \
+        servotty -c gantry.toml tune identify z --apply --save")]
     Tune(tune::TuneArgs),
     /// Measure each link: frame rate, host turnaround, bad and missed frames, CPU share.
+    #[command(after_help = "Example:\n  servotty -c gantry.toml linktest --seconds 10")]
     Linktest(LinktestArgs),
     /// Analyse a recorded file (no machine needed), e.g. the metrics of a step test.
+    #[command(after_help = "Example:\n  servotty analyze step x-step.csv --band 2")]
     Analyze(analyze::AnalyzeArgs),
+    /// Print a shell completion script to stdout (bash, zsh, fish, elvish, powershell).
+    #[command(
+        hide = true,
+        after_help = "Example:\n  \
+        servotty completions bash > ~/.local/share/bash-completion/completions/servotty"
+    )]
+    Completions {
+        /// The shell.
+        #[arg(value_enum)]
+        shell: clap_complete::Shell,
+    },
+    /// Print the manual page (roff) to stdout.
+    #[command(
+        hide = true,
+        after_help = "Example:\n  \
+        servotty man > ~/.local/share/man/man1/servotty.1"
+    )]
+    Man,
 }
 
 /// Which machine to talk to.
 #[derive(Debug, Args, Clone, Default)]
 pub struct MachineArgs {
     /// Machine configuration (TOML); the built-in simulated demo machine when omitted.
-    #[arg(long, short = 'c', value_name = "FILE")]
+    // Global: accepted before or after the subcommand; clap hands a value given before the
+    // subcommand down to it, so every command sees the same machine.
+    #[arg(long, short = 'c', value_name = "FILE", global = true)]
     pub config: Option<PathBuf>,
     /// Put AXIS on a serial device instead of its configured transport (repeatable).
-    #[arg(long = "port", value_name = "AXIS=PATH")]
+    #[arg(long = "port", value_name = "AXIS=PATH", global = true)]
     pub ports: Vec<PortOverride>,
 }
 
@@ -90,9 +140,9 @@ impl MachineArgs {
 /// `servotty sim`.
 #[derive(Debug, Args)]
 pub struct SimArgs {
-    /// Machine configuration; the built-in demo when omitted.
-    #[arg(long, short = 'c', value_name = "FILE")]
-    pub config: Option<PathBuf>,
+    /// Which machine (only --config applies).
+    #[command(flatten)]
+    pub machine: MachineArgs,
     /// Serve each simulated axis on a new pseudo-terminal (the only way for now).
     #[arg(long)]
     pub pty: bool,
@@ -165,6 +215,64 @@ impl std::str::FromStr for Target {
     }
 }
 
+/// Runs what the command line asks for; returns the exit code.
+pub fn dispatch(cli: &Cli) -> u8 {
+    match &cli.command {
+        Some(Command::Check { file, machine }) => {
+            if let Some(code) = refuse_ports("check", machine) {
+                return code;
+            }
+            match (file, &machine.config) {
+                (Some(f), Some(c)) if f != c => {
+                    eprintln!(
+                        "servotty: check: two files given ({} and --config {}); give one",
+                        f.display(),
+                        c.display()
+                    );
+                    EXIT_USAGE
+                }
+                (Some(f), _) | (None, Some(f)) => check::run(f),
+                (None, None) => {
+                    eprintln!("servotty: check needs a file: servotty check FILE");
+                    EXIT_USAGE
+                }
+            }
+        }
+        Some(Command::Sim(a)) => sim_pty::run(a),
+        Some(Command::Move(a)) => move_cmd::run(a),
+        Some(Command::Home(a)) => home_cmd::run(a),
+        Some(Command::Tune(a)) => tune::run(a),
+        Some(Command::Linktest(a)) => linktest::run(a),
+        Some(Command::Analyze(a)) => {
+            refuse_machine("analyze", &cli.machine).unwrap_or_else(|| analyze::run(a))
+        }
+        Some(Command::Completions { shell }) => refuse_machine("completions", &cli.machine)
+            .unwrap_or_else(|| manual::completions(*shell)),
+        Some(Command::Man) => refuse_machine("man", &cli.machine).unwrap_or_else(manual::man_page),
+        Some(Command::Cockpit(m)) => crate::cockpit::run(m.config.as_deref(), &m.ports),
+        None => crate::cockpit::run(cli.machine.config.as_deref(), &cli.machine.ports),
+    }
+}
+
+/// Refuses `--port` for a command that opens no machine.
+fn refuse_ports(what: &str, m: &MachineArgs) -> Option<u8> {
+    let p = m.ports.first()?;
+    eprintln!("servotty: --port {}=… does not apply to {what} (it opens no machine)", p.axis);
+    Some(EXIT_USAGE)
+}
+
+/// Refuses `--config` and `--port` for a command that reads no machine configuration.
+fn refuse_machine(what: &str, m: &MachineArgs) -> Option<u8> {
+    if let Some(c) = &m.config {
+        eprintln!(
+            "servotty: --config {} does not apply to {what} (it reads no machine configuration)",
+            c.display()
+        );
+        return Some(EXIT_USAGE);
+    }
+    refuse_ports(what, m)
+}
+
 /// Loads the configuration and builds the runtime; errors are printed and become the exit
 /// code (2 for configuration, 1 for the runtime).
 ///
@@ -229,15 +337,6 @@ where
     })
 }
 
-/// A current-thread runtime: one core is plenty for the host loop of several axes (measured,
-/// docs/performance.md) and it leaves the other core of a small computer to the UI and OS.
-///
-/// # Errors
-/// When the OS refuses the runtime's resources.
-pub fn runtime() -> std::io::Result<tokio::runtime::Runtime> {
-    tokio::runtime::Builder::new_current_thread().enable_all().build()
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -256,6 +355,23 @@ mod tests {
     fn cli_is_well_formed() {
         use clap::CommandFactory;
         Cli::command().debug_assert();
+    }
+
+    #[test]
+    fn machine_options_reach_the_subcommand_from_either_side() {
+        for args in [
+            &["servotty", "-c", "m.toml", "--port", "x=/dev/a", "home"][..],
+            &["servotty", "home", "-c", "m.toml", "--port", "x=/dev/a"][..],
+        ] {
+            let cli = Cli::try_parse_from(args).expect("parses");
+            let Some(Command::Home(h)) = cli.command else { panic!("not home") };
+            assert_eq!(
+                h.machine.config.as_deref(),
+                Some(std::path::Path::new("m.toml")),
+                "{args:?}"
+            );
+            assert_eq!(h.machine.ports.len(), 1, "{args:?}");
+        }
     }
 
     #[test]

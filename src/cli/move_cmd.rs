@@ -5,6 +5,7 @@ use std::time::Duration;
 use serde::Serialize;
 
 use crate::cli::{MoveArgs, Target, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
+use crate::cockpit::format::num;
 use crate::engine::{AxisCommand, AxisState, MachineHandle};
 
 /// How long the boards have to link.
@@ -164,7 +165,7 @@ pub fn run(args: &MoveArgs) -> u8 {
                 if json {
                     println!("{}", serde_json::to_string(&out).unwrap_or_default());
                 } else {
-                    print_table(&out);
+                    print_table(&h, &out);
                 }
                 if out.ok {
                     EXIT_OK
@@ -176,16 +177,22 @@ pub fn run(args: &MoveArgs) -> u8 {
     })
 }
 
-fn print_table(out: &MoveOutcome) {
+fn print_table(h: &MachineHandle, out: &MoveOutcome) {
     println!(
-        "{:<6} {:>10} {:>10} {:>9} {:>8}  state",
-        "axis", "target", "final", "max fe", "settle"
+        "{:<6} {:>10} {:>10} {:>9} {:>8}  {:<5} state",
+        "axis", "target", "final", "max fe", "settle", "unit"
     );
     for a in &out.axes {
+        let (d, unit) = crate::cli::home_cmd::resolution(h, &a.axis);
         let settle = a.settle_s.map_or_else(|| "-".to_owned(), |s| format!("{s:.2} s"));
         println!(
-            "{:<6} {:>10.3} {:>10.3} {:>9.3} {:>8}  {}",
-            a.axis, a.target, a.final_position, a.max_following_error, settle, a.state
+            "{:<6} {} {} {} {:>8}  {unit:<5} {}",
+            a.axis,
+            num(a.target, d, 10),
+            num(a.final_position, d, 10),
+            num(a.max_following_error, d, 9),
+            settle,
+            a.state
         );
         if let Some(t) = &a.trip {
             println!("       tripped: {t}");

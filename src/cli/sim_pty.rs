@@ -11,7 +11,15 @@ pub fn run(args: &SimArgs) -> u8 {
         eprintln!("servotty: sim needs --pty (serve each simulated axis on a pseudo-terminal)");
         return EXIT_USAGE;
     }
-    let cfg = match crate::config::MachineConfig::load_or_demo(args.config.as_deref()) {
+    if let Some(p) = args.machine.ports.first() {
+        eprintln!(
+            "servotty: --port {}=… does not apply to sim (it serves simulated axes; give the \
+             printed devices to the other command's --port)",
+            p.axis
+        );
+        return EXIT_USAGE;
+    }
+    let cfg = match crate::config::MachineConfig::load_or_demo(args.machine.config.as_deref()) {
         Ok((c, _)) => c,
         Err(e) => {
             eprintln!("servotty: {e}");

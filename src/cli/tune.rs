@@ -7,7 +7,7 @@
 use std::path::PathBuf;
 use std::time::Duration;
 
-use clap::Args;
+use clap::{Args, ValueEnum as _};
 
 use crate::cli::{MachineArgs, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
 use crate::commission::{self, StepRequest, TuneStep};
@@ -82,19 +82,28 @@ pub fn run(args: &TuneArgs) -> u8 {
     }
     let (spec, bounds) = commission::plan(&args.request(), &axis_cfg);
     let u = &axis_cfg.scale.unit;
+    let step = args.step.to_possible_value().map(|v| v.get_name().to_owned()).unwrap_or_default();
     eprintln!(
-        "servotty: tune {:?}: axis {} will move up to {} {u} for up to {} s (open loop: {}). \
-         Stop-all, Ctrl-C, a trip or a bound ends it. The software stop is not a safety \
-         function: keep the hardware emergency stop at hand.",
-        args.step,
+        "servotty: tune {step}: axis {} will move up to {} {u} for up to {} s, {}.\n\
+         Stop-all, Ctrl-C, a trip or a bound ends it. The software stop is not a\n\
+         safety function: keep the hardware emergency stop at hand.",
         axis_cfg.name,
         bounds.travel,
         bounds.seconds,
-        if spec.closed_loop() { "no" } else { "yes" },
+        if spec.closed_loop() { "closed loop" } else { "open loop" },
     );
     if !args.yes {
-        eprintln!("servotty: nothing moved; add --yes to go ahead");
-        return EXIT_USAGE;
+        match crate::cli::ask::confirm("Move the axis?") {
+            crate::cli::ask::Answer::Yes => {}
+            crate::cli::ask::Answer::No => {
+                eprintln!("servotty: nothing moved");
+                return EXIT_USAGE;
+            }
+            crate::cli::ask::Answer::NoTerminal => {
+                eprintln!("servotty: nothing moved; no terminal to ask on: add --yes to go ahead");
+                return EXIT_USAGE;
+            }
+        }
     }
     let file = match &source {
         crate::config::ConfigSource::File(p) => Some(p.clone()),

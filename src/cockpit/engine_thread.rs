@@ -55,7 +55,7 @@ impl EngineThread {
         let thread = std::thread::Builder::new()
             .name("servotty-engine".into())
             .spawn(move || {
-                let rt = match crate::cli::runtime() {
+                let rt = match crate::process::runtime() {
                     Ok(rt) => rt,
                     Err(e) => {
                         let _ = ready_tx.send(Err(EngineStartError::Os(e.to_string())));

@@ -38,18 +38,20 @@ use std::sync::Arc;
 pub use app::App;
 pub use theme::Theme;
 
-use crate::cli::{MachineArgs, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
+use crate::config::MachineConfig;
 use crate::engine::events::EventKind;
-use crate::engine::MachineHandle;
+use crate::engine::{MachineHandle, PortOverride};
+use crate::process::{EXIT_FAILED, EXIT_OK, EXIT_USAGE};
 use crate::signals::{Interrupt, Signals};
 use engine_thread::{EngineStartError, EngineThread};
 
-/// Opens the cockpit on the machine `args` name; returns the process exit code.
+/// Opens the cockpit on the machine in `config` (the built-in demo when `None`), with the
+/// axes in `ports` on serial devices; returns the process exit code.
 ///
 /// Configuration errors are reported on stderr before the terminal is touched. Whatever
 /// happens after, every motor is off when this returns.
-pub fn run(args: &MachineArgs) -> u8 {
-    let (cfg, source) = match args.load() {
+pub fn run(config: Option<&std::path::Path>, ports: &[PortOverride]) -> u8 {
+    let (cfg, source) = match MachineConfig::load_or_demo(config) {
         Ok(c) => c,
         Err(e) => {
             eprintln!("servotty: {e}");
@@ -65,7 +67,7 @@ pub fn run(args: &MachineArgs) -> u8 {
     }
     let log_file = logging::init();
     let paths = crate::engine::recorder::RecorderPaths::resolve(&cfg, &source);
-    let engine = match EngineThread::start(cfg.clone(), args.ports.clone(), Some(paths.clone())) {
+    let engine = match EngineThread::start(cfg.clone(), ports.to_vec(), Some(paths.clone())) {
         Ok(e) => e,
         Err(e) => {
             eprintln!("servotty: {e}");
@@ -75,7 +77,7 @@ pub fn run(args: &MachineArgs) -> u8 {
             };
         }
     };
-    let rt = match crate::cli::runtime() {
+    let rt = match crate::process::runtime() {
         Ok(rt) => rt,
         Err(e) => {
             eprintln!("servotty: cannot start the runtime: {e}");
