@@ -248,7 +248,7 @@ impl SimBoard {
             }
             if lf.burst_ms > 0 && lf.burst_every_ms > 0 {
                 let every = b.ms_to_ticks(lf.burst_every_ms).max(1);
-                if b.ticks % every == 0 {
+                if b.ticks.is_multiple_of(every) {
                     b.dark_ticks = b.dark_ticks.max(b.ms_to_ticks(lf.burst_ms));
                 }
             }
