@@ -530,6 +530,12 @@ pub struct MotionConfig {
     /// … for this long, s.
     #[serde(default = "default_in_position_dwell")]
     pub in_position_dwell_s: f64,
+    /// Shape of moves, jogs and stops: trapezoid (default) or jerk-limited.
+    #[serde(default)]
+    pub profile: crate::control::ProfileShape,
+    /// Jerk limit for `profile = "jerk_limited"`, unit/s³.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub max_jerk: Option<f64>,
 }
 
 fn default_in_position_band() -> f64 {
@@ -843,6 +849,9 @@ impl MachineConfig {
                 if !(v.is_finite() && v > 0.0) {
                     out_push(&mut out, at(key), format!("expected a number > 0, found {v}"));
                 }
+            }
+            if let Some(why) = crate::control::profile::check_jerk(m) {
+                out_push(&mut out, at(&["motion", "max_jerk"]), why);
             }
             if c.mode == ControlMode::OnOff && !(c.tolerance.is_finite() && c.tolerance > 0.0) {
                 out_push(

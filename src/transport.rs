@@ -19,7 +19,7 @@ pub type BoxStream = Box<dyn BoardStream>;
 #[derive(Debug, thiserror::Error)]
 pub enum TransportError {
     /// The device path does not exist (unplugged, or a different name).
-    #[error("{device}: no such device (is the board plugged in? list ports with `ls /dev/ttyACM* /dev/ttyUSB*`)")]
+    #[error("{device}: no such device (is the board plugged in? its stable name is under /dev/serial/by-id/: `ls -l /dev/serial/by-id/`)")]
     NotFound {
         /// Device path.
         device: String,
@@ -33,6 +33,12 @@ pub enum TransportError {
     /// Another program holds the device.
     #[error("{device}: in use by another program (servotty opens ports exclusively so that two programs never drive one axis)")]
     Busy {
+        /// Device path.
+        device: String,
+    },
+    /// The path exists but is not a serial device (`/dev/null`, a file, a directory).
+    #[error("{device}: not a serial device (give the board's port, e.g. one listed by `ls -l /dev/serial/by-id/`)")]
+    NotSerial {
         /// Device path.
         device: String,
     },
@@ -108,6 +114,11 @@ fn classify(device: &str, e: &tokio_serial::Error) -> TransportError {
     // serialport reports a held lock as NoDevice; its words are the only way to tell.
     if msg.contains("exclusive") || msg.contains("busy") || msg.contains("EBUSY") {
         return TransportError::Busy { device };
+    }
+    // ENOTTY ("Not a typewriter"): the path is no terminal device at all.
+    let not_a_tty = ["typewriter", "Inappropriate ioctl", "ENOTTY", "Is a directory"];
+    if not_a_tty.iter().any(|w| msg.contains(w)) {
+        return TransportError::NotSerial { device };
     }
     match e.kind {
         tokio_serial::ErrorKind::NoDevice => TransportError::NotFound { device },

@@ -184,3 +184,67 @@ fn a_missing_serial_device_is_named_with_what_to_do() {
     let err = text(&out.stderr);
     assert!(err.contains("/dev/servotty-no-such-port") && err.contains("no such device"), "{err}");
 }
+
+#[test]
+fn devices_that_are_not_serial_ports_say_where_to_look() {
+    for dev in ["/dev/null", "/tmp"] {
+        let out = servotty(&["home", "--port", &format!("x={dev}")]);
+        assert_eq!(out.status.code(), Some(1));
+        let err = text(&out.stderr);
+        assert!(err.contains("not a serial device") && err.contains("/dev/serial/by-id/"), "{err}");
+        assert!(!err.contains("typewriter") && !err.contains("x: x:"), "{err}");
+    }
+    let out = servotty(&["home", "--port", "x=/dev/servotty-no-such-port"]);
+    assert!(text(&out.stderr).contains("/dev/serial/by-id/"), "{}", text(&out.stderr));
+}
+
+#[test]
+fn every_json_command_prints_an_object_on_failure() {
+    for args in [
+        &["move", "--to", "x=50", "--json"][..],
+        &["move", "--to", "w=50", "--json"][..],
+        &["linktest", "--seconds", "0.2", "--json", "--port", "x=/dev/null"][..],
+        &["tune", "direction", "x", "--json"][..],
+        &["home", "--json", "--port", "x=/dev/null"][..],
+        &["analyze", "step", "/nonexistent/step.csv", "--json"][..],
+    ] {
+        let out = servotty(args);
+        assert_ne!(out.status.code(), Some(0), "{args:?}");
+        let v: serde_json::Value = serde_json::from_slice(&out.stdout)
+            .unwrap_or_else(|e| panic!("{args:?}: {e}: {:?}", text(&out.stdout)));
+        assert_eq!(v["ok"], false, "{args:?}: {v}");
+        assert!(v["error"].is_string(), "{args:?}: {v}");
+    }
+}
+
+#[test]
+fn a_closed_output_pipe_is_a_quiet_exit() {
+    use std::io::Read as _;
+    use std::process::Stdio;
+    let mut child = Command::new(env!("CARGO_BIN_EXE_servotty"))
+        .args(["man"])
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .expect("runs");
+    // Close our end before it writes: its write then fails with a broken pipe.
+    drop(child.stdout.take());
+    let status = child.wait().expect("waits");
+    let mut err = String::new();
+    child.stderr.take().expect("stderr").read_to_string(&mut err).expect("reads");
+    assert_eq!(status.code(), Some(0), "{err}");
+    assert!(err.is_empty(), "{err}");
+}
+
+#[test]
+fn linktest_json_keys_are_the_table_words() {
+    let out = servotty(&["linktest", "--seconds", "0.3", "--json"]);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).expect("json");
+    let a = &v["axes"][0];
+    assert!(a["bad"].is_u64() && a["missed"].is_u64(), "{v}");
+    let out = servotty(&["linktest", "--seconds", "0.3"]);
+    let table = text(&out.stdout);
+    let header = table.lines().next().expect("header");
+    assert!(header.contains("bad") && header.contains("missed"), "{table}");
+}

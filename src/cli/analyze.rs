@@ -9,7 +9,7 @@ use std::path::{Path, PathBuf};
 
 use clap::{Args, Subcommand};
 
-use super::{EXIT_OK, EXIT_USAGE};
+use super::{emit, Failure, EXIT_OK};
 use crate::tuning::report::{parse_step_csv, summarize_step};
 
 /// `servotty analyze`.
@@ -43,19 +43,25 @@ pub struct StepArgs {
     pub json: bool,
 }
 
-/// Runs `servotty analyze …`; returns the exit code.
-pub fn run(args: &AnalyzeArgs) -> u8 {
+impl AnalyzeArgs {
+    /// Whether the analysis asked for JSON.
+    pub fn json(&self) -> bool {
+        match &self.what {
+            AnalyzeWhat::Step(a) => a.json,
+        }
+    }
+}
+
+/// Runs `servotty analyze …`.
+///
+/// # Errors
+/// [`Failure::Usage`] naming the file (and line) for a file that cannot be analysed.
+pub fn run(args: &AnalyzeArgs) -> Result<u8, Failure> {
     match &args.what {
-        AnalyzeWhat::Step(a) => match step(a) {
-            Ok(out) => {
-                print!("{out}");
-                EXIT_OK
-            }
-            Err(msg) => {
-                eprintln!("servotty: {msg}");
-                EXIT_USAGE
-            }
-        },
+        AnalyzeWhat::Step(a) => {
+            emit(&step(a).map_err(Failure::Usage)?)?;
+            Ok(EXIT_OK)
+        }
     }
 }
 

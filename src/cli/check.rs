@@ -3,21 +3,17 @@
 use std::fmt::Write as _;
 use std::path::Path;
 
-use crate::cli::{EXIT_OK, EXIT_USAGE};
+use crate::cli::{emit, Failure, EXIT_OK};
 use crate::config::{AxisConfig, ControlMode, MachineConfig, TransportConfig};
 
-/// Runs the check; prints the summary to stdout or the error to stderr.
-pub fn run(file: &Path) -> u8 {
-    match MachineConfig::load(file) {
-        Ok(cfg) => {
-            print!("{}", summary(&cfg));
-            EXIT_OK
-        }
-        Err(e) => {
-            eprintln!("servotty: {e}");
-            EXIT_USAGE
-        }
-    }
+/// Runs the check and prints the summary.
+///
+/// # Errors
+/// [`Failure::Config`] naming file, line, column and key.
+pub fn run(file: &Path) -> Result<u8, Failure> {
+    let cfg = MachineConfig::load(file)?;
+    emit(&summary(&cfg))?;
+    Ok(EXIT_OK)
 }
 
 /// The text `check` prints for a valid configuration.

@@ -2,7 +2,7 @@
 
 use serde::Serialize;
 
-use crate::cli::{HomeArgs, EXIT_FAILED, EXIT_OK};
+use crate::cli::{emit, emit_json, Failure, HomeArgs, EXIT_FAILED, EXIT_OK};
 use crate::cockpit::format::{decimals_for, num};
 use crate::engine::{AxisCommand, MachineHandle};
 
@@ -61,33 +61,34 @@ pub(crate) fn resolution(h: &MachineHandle, axis: &str) -> (usize, String) {
 }
 
 /// `servotty home`.
-pub fn run(args: &HomeArgs) -> u8 {
+///
+/// # Errors
+/// [`Failure`] when the machine cannot start; a homing failure is in the outcome (exit 1).
+pub fn run(args: &HomeArgs) -> Result<u8, Failure> {
     let json = args.json;
     crate::cli::with_machine(&args.machine, |h| async move {
         let out = home_all(&h).await;
         if json {
-            println!("{}", serde_json::to_string(&out).unwrap_or_default());
+            emit_json(&out)?;
         } else {
+            let mut text = String::new();
             for a in &out.axes {
                 let (d, unit) = resolution(&h, &a.axis);
-                println!(
-                    "{:<6} {:<9} {} {unit}",
+                let state = if a.homed { "homed" } else { "not homed" };
+                text.push_str(&format!(
+                    "{:<6} {state:<9} {} {unit}\n",
                     a.axis,
-                    if a.homed { "homed" } else { "not homed" },
-                    num(a.position, d, 10),
-                );
+                    num(a.position, d, 10)
+                ));
                 if let Some(t) = &a.trip {
-                    println!("       tripped: {t}");
+                    text.push_str(&format!("       tripped: {t}\n"));
                 }
             }
+            emit(&text)?;
             if let Some(e) = &out.error {
-                eprintln!("servotty: {e}");
+                eprintln!("servotty: homing failed: {e}");
             }
         }
-        if out.ok {
-            EXIT_OK
-        } else {
-            EXIT_FAILED
-        }
+        Ok(if out.ok { EXIT_OK } else { EXIT_FAILED })
     })
 }

@@ -7,7 +7,7 @@ use std::time::Duration;
 
 use serde::Serialize;
 
-use crate::cli::{LinktestArgs, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
+use crate::cli::{emit, emit_json, Failure, LinktestArgs, EXIT_OK};
 use crate::engine::link_meter::Turnaround;
 use crate::engine::{AxisCommand, MachineHandle, Reply};
 
@@ -20,8 +20,8 @@ pub struct AxisLink {
     pub frames_per_s: f64,
     /// Host turnaround (frame read → command written), µs.
     pub turnaround_us: Turnaround,
-    /// Frames rejected by the decoder (CRC, framing, version).
-    pub crc_errors: u64,
+    /// Frames rejected by the decoder (CRC, framing, version): the table's `bad`.
+    pub bad: u64,
     /// Telemetry sequence numbers skipped.
     pub missed: u64,
     /// Board time covered by the frames, s (compare with the wall time to judge the board's
@@ -34,6 +34,8 @@ pub struct AxisLink {
 /// The whole result.
 #[derive(Debug, Clone, Serialize, PartialEq)]
 pub struct LinkTestOutcome {
+    /// True: every axis linked and was measured (a failure prints `"ok": false`).
+    pub ok: bool,
     /// Per axis.
     pub axes: Vec<AxisLink>,
     /// This process's CPU use over the measurement, % of one core.
@@ -69,7 +71,7 @@ pub async fn measure(m: &MachineHandle, seconds: f64) -> Result<LinkTestOutcome,
             axis: a.name().to_owned(),
             frames_per_s: r.frames as f64 / wall,
             turnaround_us: r.turnaround_us,
-            crc_errors: r.bad_frames,
+            bad: r.bad_frames,
             missed: r.missed,
             board_s: r.board_seconds,
             frames: r.frames,
@@ -79,7 +81,7 @@ pub async fn measure(m: &MachineHandle, seconds: f64) -> Result<LinkTestOutcome,
         (Some(a), Some(b)) if wall > 0.0 => 100.0 * (b - a) / wall,
         _ => 0.0,
     };
-    Ok(LinkTestOutcome { axes, cpu_pct, wall_s: wall })
+    Ok(LinkTestOutcome { ok: true, axes, cpu_pct, wall_s: wall })
 }
 
 /// User plus system CPU time of this process, s, from /proc (Linux only; None elsewhere).
@@ -95,42 +97,46 @@ fn process_cpu_seconds() -> Option<f64> {
 }
 
 /// `servotty linktest`.
-pub fn run(args: &LinktestArgs) -> u8 {
+///
+/// # Errors
+/// [`Failure`]: a bad `--seconds`, or a link that does not come up.
+pub fn run(args: &LinktestArgs) -> Result<u8, Failure> {
     if !(args.seconds.is_finite() && args.seconds > 0.0 && args.seconds <= 3600.0) {
-        eprintln!("servotty: --seconds must be between 0 and 3600, found {}", args.seconds);
-        return EXIT_USAGE;
+        return Err(Failure::Usage(format!(
+            "--seconds must be between 0 and 3600, found {}",
+            args.seconds
+        )));
     }
     let (json, seconds) = (args.json, args.seconds);
     crate::cli::with_machine(&args.machine, |h| async move {
-        match measure(&h, seconds).await {
-            Err(e) => {
-                eprintln!("servotty: {e}");
-                EXIT_FAILED
-            }
-            Ok(out) => {
-                if json {
-                    println!("{}", serde_json::to_string(&out).unwrap_or_default());
-                } else {
-                    println!(
-                        "{:<6} {:>9} {:>8} {:>8} {:>8} {:>6} {:>7}",
-                        "axis", "frames/s", "p50 µs", "p99 µs", "max µs", "bad", "missed"
-                    );
-                    for a in &out.axes {
-                        println!(
-                            "{:<6} {:>9.1} {:>8} {:>8} {:>8} {:>6} {:>7}",
-                            a.axis,
-                            a.frames_per_s,
-                            a.turnaround_us.p50,
-                            a.turnaround_us.p99,
-                            a.turnaround_us.max,
-                            a.crc_errors,
-                            a.missed
-                        );
-                    }
-                    println!("cpu {:.1} % of one core", out.cpu_pct);
-                }
-                EXIT_OK
-            }
+        let out = measure(&h, seconds).await.map_err(Failure::Machine)?;
+        if json {
+            emit_json(&out)?;
+        } else {
+            emit(&table(&out))?;
         }
+        Ok(EXIT_OK)
     })
+}
+
+/// The human table; its column words are the JSON keys.
+fn table(out: &LinkTestOutcome) -> String {
+    let mut s = format!(
+        "{:<6} {:>9} {:>8} {:>8} {:>8} {:>6} {:>7}\n",
+        "axis", "frames/s", "p50 µs", "p99 µs", "max µs", "bad", "missed"
+    );
+    for a in &out.axes {
+        s.push_str(&format!(
+            "{:<6} {:>9.1} {:>8} {:>8} {:>8} {:>6} {:>7}\n",
+            a.axis,
+            a.frames_per_s,
+            a.turnaround_us.p50,
+            a.turnaround_us.p99,
+            a.turnaround_us.max,
+            a.bad,
+            a.missed
+        ));
+    }
+    s.push_str(&format!("cpu {:.1} % of one core\n", out.cpu_pct));
+    s
 }

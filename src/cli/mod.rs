@@ -15,6 +15,7 @@ use crate::engine::PortOverride;
 pub mod analyze;
 pub mod ask;
 pub mod check;
+pub mod failure;
 pub mod home_cmd;
 pub mod linktest;
 pub mod manual;
@@ -23,6 +24,7 @@ pub mod sim_pty;
 pub mod tune;
 
 pub use crate::process::{runtime, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
+pub use failure::{emit, emit_json, Failure};
 
 /// servotty: bring up, tune and run small DC-servo machines from a terminal.
 ///
@@ -215,125 +217,132 @@ impl std::str::FromStr for Target {
     }
 }
 
-/// Runs what the command line asks for; returns the exit code.
-pub fn dispatch(cli: &Cli) -> u8 {
+/// Runs what the command line asks for; returns the exit code, or the failure for the
+/// binary to print (once) and turn into the exit code.
+///
+/// # Errors
+/// [`Failure`].
+pub fn dispatch(cli: &Cli) -> Result<u8, Failure> {
     match &cli.command {
         Some(Command::Check { file, machine }) => {
-            if let Some(code) = refuse_ports("check", machine) {
-                return code;
-            }
+            refuse_ports("check", machine)?;
             match (file, &machine.config) {
-                (Some(f), Some(c)) if f != c => {
-                    eprintln!(
-                        "servotty: check: two files given ({} and --config {}); give one",
-                        f.display(),
-                        c.display()
-                    );
-                    EXIT_USAGE
-                }
+                (Some(f), Some(c)) if f != c => Err(Failure::Usage(format!(
+                    "check: two files given ({} and --config {}); give one",
+                    f.display(),
+                    c.display()
+                ))),
                 (Some(f), _) | (None, Some(f)) => check::run(f),
                 (None, None) => {
-                    eprintln!("servotty: check needs a file: servotty check FILE");
-                    EXIT_USAGE
+                    Err(Failure::Usage("check needs a file: servotty check FILE".to_owned()))
                 }
             }
         }
-        Some(Command::Sim(a)) => sim_pty::run(a),
+        Some(Command::Sim(a)) => Ok(sim_pty::run(a)),
         Some(Command::Move(a)) => move_cmd::run(a),
         Some(Command::Home(a)) => home_cmd::run(a),
         Some(Command::Tune(a)) => tune::run(a),
         Some(Command::Linktest(a)) => linktest::run(a),
         Some(Command::Analyze(a)) => {
-            refuse_machine("analyze", &cli.machine).unwrap_or_else(|| analyze::run(a))
+            refuse_machine("analyze", &cli.machine)?;
+            analyze::run(a)
         }
-        Some(Command::Completions { shell }) => refuse_machine("completions", &cli.machine)
-            .unwrap_or_else(|| manual::completions(*shell)),
-        Some(Command::Man) => refuse_machine("man", &cli.machine).unwrap_or_else(manual::man_page),
-        Some(Command::Cockpit(m)) => crate::cockpit::run(m.config.as_deref(), &m.ports),
-        None => crate::cockpit::run(cli.machine.config.as_deref(), &cli.machine.ports),
+        Some(Command::Completions { shell }) => {
+            refuse_machine("completions", &cli.machine)?;
+            manual::completions(*shell)
+        }
+        Some(Command::Man) => {
+            refuse_machine("man", &cli.machine)?;
+            manual::man_page()
+        }
+        Some(Command::Cockpit(m)) => Ok(crate::cockpit::run(m.config.as_deref(), &m.ports)),
+        None => Ok(crate::cockpit::run(cli.machine.config.as_deref(), &cli.machine.ports)),
     }
 }
 
+impl Cli {
+    /// Whether the command asked for JSON, so that a failure is a JSON object too.
+    pub fn json(&self) -> bool {
+        match &self.command {
+            Some(Command::Move(a)) => a.json,
+            Some(Command::Home(a)) => a.json,
+            Some(Command::Linktest(a)) => a.json,
+            Some(Command::Tune(a)) => a.json,
+            Some(Command::Analyze(a)) => a.json(),
+            _ => false,
+        }
+    }
+}
+
+/// The JSON object a `--json` command prints when it fails: the same `ok` and `error` keys
+/// its success object has, plus the exit code.
+pub fn failure_json(message: &str, exit_code: u8) -> serde_json::Value {
+    serde_json::json!({ "ok": false, "error": message, "exit_code": exit_code })
+}
+
 /// Refuses `--port` for a command that opens no machine.
-fn refuse_ports(what: &str, m: &MachineArgs) -> Option<u8> {
-    let p = m.ports.first()?;
-    eprintln!("servotty: --port {}=… does not apply to {what} (it opens no machine)", p.axis);
-    Some(EXIT_USAGE)
+fn refuse_ports(what: &str, m: &MachineArgs) -> Result<(), Failure> {
+    match m.ports.first() {
+        Some(p) => Err(Failure::Usage(format!(
+            "--port {}=… does not apply to {what} (it opens no machine)",
+            p.axis
+        ))),
+        None => Ok(()),
+    }
 }
 
 /// Refuses `--config` and `--port` for a command that reads no machine configuration.
-fn refuse_machine(what: &str, m: &MachineArgs) -> Option<u8> {
+fn refuse_machine(what: &str, m: &MachineArgs) -> Result<(), Failure> {
     if let Some(c) = &m.config {
-        eprintln!(
-            "servotty: --config {} does not apply to {what} (it reads no machine configuration)",
+        return Err(Failure::Usage(format!(
+            "--config {} does not apply to {what} (it reads no machine configuration)",
             c.display()
-        );
-        return Some(EXIT_USAGE);
+        )));
     }
     refuse_ports(what, m)
 }
 
-/// Loads the configuration and builds the runtime; errors are printed and become the exit
-/// code (2 for configuration, 1 for the runtime).
+/// Loads the configuration and builds the runtime.
 ///
 /// # Errors
-/// The exit code to return.
+/// [`Failure::Config`], or [`Failure::Machine`] when the OS refuses the runtime.
 pub fn prepare(
     config: Option<&std::path::Path>,
-) -> Result<(MachineConfig, ConfigSource, tokio::runtime::Runtime), u8> {
-    let (cfg, source) = MachineConfig::load_or_demo(config).map_err(|e| {
-        eprintln!("servotty: {e}");
-        EXIT_USAGE
-    })?;
-    let rt = runtime().map_err(|e| {
-        eprintln!("servotty: cannot start the runtime: {e}");
-        EXIT_FAILED
-    })?;
+) -> Result<(MachineConfig, ConfigSource, tokio::runtime::Runtime), Failure> {
+    let (cfg, source) = MachineConfig::load_or_demo(config)?;
+    let rt = runtime().map_err(|e| Failure::Machine(format!("cannot start the runtime: {e}")))?;
     Ok((cfg, source, rt))
 }
 
 /// Loads the configuration, starts the machine with its recorder on a current-thread
-/// runtime, runs `body`, and always shuts the machine down (motors off). Errors before the
-/// machine exists are printed and give [`EXIT_USAGE`].
-pub fn with_machine<F, Fut>(args: &MachineArgs, body: F) -> u8
+/// runtime, runs `body`, and always shuts the machine down (motors off).
+///
+/// # Errors
+/// [`Failure`] from loading, starting, or `body`.
+pub fn with_machine<F, Fut>(args: &MachineArgs, body: F) -> Result<u8, Failure>
 where
     F: FnOnce(crate::engine::MachineHandle) -> Fut,
-    Fut: std::future::Future<Output = u8>,
+    Fut: std::future::Future<Output = Result<u8, Failure>>,
 {
-    let (cfg, source, rt) = match prepare(args.config.as_deref()) {
-        Ok(p) => p,
-        Err(code) => return code,
-    };
+    let (cfg, source, rt) = prepare(args.config.as_deref())?;
     rt.block_on(async {
         // Before the machine starts: a signal during link-up must not kill the process.
-        let mut signals = match crate::signals::Signals::install() {
-            Ok(s) => s,
-            Err(e) => {
-                eprintln!("servotty: cannot watch for signals: {e}");
-                return EXIT_FAILED;
-            }
-        };
+        let mut signals = crate::signals::Signals::install()
+            .map_err(|e| Failure::Machine(format!("cannot watch for signals: {e}")))?;
         let paths = crate::engine::recorder::RecorderPaths::resolve(&cfg, &source);
-        let machine = match crate::engine::Machine::start_with(&cfg, &args.ports, Some(paths)) {
-            Ok(m) => m,
-            Err(e) => {
-                eprintln!("servotty: {e}");
-                return EXIT_USAGE;
-            }
-        };
+        let machine = crate::engine::Machine::start_with(&cfg, &args.ports, Some(paths))?;
         let h = machine.handle();
-        let code = tokio::select! {
-            c = body(h.clone()) => c,
+        let result = tokio::select! {
+            r = body(h.clone()) => r,
             sig = signals.recv() => {
-                eprintln!("servotty: interrupted by {}; motors off", sig.name());
                 h.emit(crate::engine::events::EventKind::Interrupted {
                     signal: sig.name().to_owned(),
                 });
-                sig.exit_code()
+                Err(Failure::Interrupted(sig))
             }
         };
         machine.shutdown().await;
-        code
+        result
     })
 }
 

@@ -4,7 +4,7 @@ use std::time::Duration;
 
 use serde::Serialize;
 
-use crate::cli::{MoveArgs, Target, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
+use crate::cli::{emit, emit_json, Failure, MoveArgs, Target, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
 use crate::cockpit::format::num;
 use crate::engine::{AxisCommand, AxisState, MachineHandle};
 
@@ -140,62 +140,59 @@ async fn start_and_wait(m: &MachineHandle, targets: &[Target]) -> Result<MoveOut
 }
 
 /// `servotty move`.
-pub fn run(args: &MoveArgs) -> u8 {
+///
+/// # Errors
+/// [`Failure`] when the moves cannot start; a trip during a move is in the outcome (exit 1).
+pub fn run(args: &MoveArgs) -> Result<u8, Failure> {
     if let Ok((cfg, _)) = args.machine.load() {
         if let Some(t) = args.to.iter().find(|t| cfg.axis(&t.axis).is_none()) {
             let known: Vec<&str> = cfg.axes.iter().map(|a| a.name.as_str()).collect();
-            eprintln!("servotty: --to {}=…: no such axis (axes: {})", t.axis, known.join(", "));
-            return EXIT_USAGE;
+            return Err(Failure::Usage(format!(
+                "--to {}=…: no such axis (axes: {})",
+                t.axis,
+                known.join(", ")
+            )));
         }
     }
     let (json, home) = (args.json, args.home);
     crate::cli::with_machine(&args.machine, |h| async move {
         if home {
-            if let Err(e) = h.home(None).await {
-                eprintln!("servotty: homing failed: {e}");
-                return EXIT_FAILED;
-            }
+            h.home(None).await?;
         }
-        match run_moves(&h, &args.to).await {
-            Err(e) => {
-                eprintln!("servotty: {e}");
-                e.exit_code()
-            }
-            Ok(out) => {
-                if json {
-                    println!("{}", serde_json::to_string(&out).unwrap_or_default());
-                } else {
-                    print_table(&h, &out);
-                }
-                if out.ok {
-                    EXIT_OK
-                } else {
-                    EXIT_FAILED
-                }
-            }
+        let out = run_moves(&h, &args.to).await.map_err(|e| match e {
+            MoveError::UnknownAxis(_) => Failure::Usage(e.to_string()),
+            MoveError::Refused(c) => Failure::Refused(c),
+            MoveError::Offline(..) => Failure::Machine(e.to_string()),
+        })?;
+        if json {
+            emit_json(&out)?;
+        } else {
+            emit(&table(&h, &out))?;
         }
+        Ok(if out.ok { EXIT_OK } else { EXIT_FAILED })
     })
 }
 
-fn print_table(h: &MachineHandle, out: &MoveOutcome) {
-    println!(
-        "{:<6} {:>10} {:>10} {:>9} {:>8}  {:<5} state",
+fn table(h: &MachineHandle, out: &MoveOutcome) -> String {
+    let mut s = format!(
+        "{:<6} {:>10} {:>10} {:>9} {:>8}  {:<5} state\n",
         "axis", "target", "final", "max fe", "settle", "unit"
     );
     for a in &out.axes {
         let (d, unit) = crate::cli::home_cmd::resolution(h, &a.axis);
         let settle = a.settle_s.map_or_else(|| "-".to_owned(), |s| format!("{s:.2} s"));
-        println!(
-            "{:<6} {} {} {} {:>8}  {unit:<5} {}",
+        s.push_str(&format!(
+            "{:<6} {} {} {} {:>8}  {unit:<5} {}\n",
             a.axis,
             num(a.target, d, 10),
             num(a.final_position, d, 10),
             num(a.max_following_error, d, 9),
             settle,
             a.state
-        );
+        ));
         if let Some(t) = &a.trip {
-            println!("       tripped: {t}");
+            s.push_str(&format!("       tripped: {t}\n"));
         }
     }
+    s
 }

@@ -1,9 +1,92 @@
 //! `servotty sim --pty`: serve each simulated axis on a pseudo-terminal so that the engine
 //! (or any other program) talks to it over a real tty device.
+//!
+//! Stdout carries two things for the programs that drive it: first one `AXIS PATH` line per
+//! served axis; then, when SIGINT or SIGTERM ends it, one JSON line per axis with what the
+//! board counted about its host (see [`AxisReport`]).
+
+use serde::Serialize;
 
 use crate::cli::{SimArgs, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
 use crate::config::TransportConfig;
-use crate::sim::board::SimBoard;
+use crate::sim::board::{SimBoard, SimBoardHandle};
+
+/// One axis's closing report, printed as a JSON line.
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct AxisReport {
+    /// Axis name.
+    pub axis: String,
+    /// Board ticks since the simulator started.
+    pub ticks: u64,
+    /// Valid Duty or Stop messages received while streaming.
+    pub host_replies: u64,
+    /// Replies not there by the tick after the frame they answer.
+    pub late_replies: u64,
+    /// Times the board's watchdog switched the motor off.
+    pub watchdog_trips: u64,
+    /// Longest board time between two replies of one host, ms.
+    pub longest_reply_gap_ms: f64,
+    /// Ticks run less than half a period after the one before (the simulator catching up
+    /// after falling behind; when not 0, some late replies may be its doing, not the host's).
+    pub rushed_ticks: u64,
+    /// Longest time between two of the simulator's own ticks, ms: its longest stall (a reply
+    /// gap or watchdog trip no longer than this may be the simulator's, not the host's).
+    pub longest_tick_gap_ms: f64,
+}
+
+impl AxisReport {
+    fn of(axis: &str, board: &SimBoardHandle) -> Self {
+        let v = board.view();
+        let r = v.replies;
+        Self {
+            axis: axis.to_owned(),
+            ticks: v.ticks,
+            host_replies: r.host_replies,
+            late_replies: r.late_replies,
+            watchdog_trips: r.watchdog_trips,
+            longest_reply_gap_ms: r.longest_reply_gap_us as f64 / 1000.0,
+            rushed_ticks: r.rushed_ticks,
+            longest_tick_gap_ms: r.longest_tick_gap_us as f64 / 1000.0,
+        }
+    }
+}
+
+/// SIGINT and SIGTERM, listened for from creation on (a signal that arrives before the
+/// handler is installed would end the process without its report).
+struct Interrupt {
+    #[cfg(unix)]
+    signals: Option<(tokio::signal::unix::Signal, tokio::signal::unix::Signal)>,
+}
+
+impl Interrupt {
+    /// Installs the handlers (inside the runtime).
+    fn listen() -> Self {
+        #[cfg(unix)]
+        {
+            use tokio::signal::unix::{signal, SignalKind};
+            let signals = match (signal(SignalKind::interrupt()), signal(SignalKind::terminate())) {
+                (Ok(int), Ok(term)) => Some((int, term)),
+                _ => None,
+            };
+            Self { signals }
+        }
+        #[cfg(not(unix))]
+        Self {}
+    }
+
+    /// Resolves at the first SIGINT or SIGTERM.
+    async fn wait(&mut self) {
+        #[cfg(unix)]
+        if let Some((int, term)) = &mut self.signals {
+            tokio::select! {
+                _ = int.recv() => {}
+                _ = term.recv() => {}
+            }
+            return;
+        }
+        let _ = tokio::signal::ctrl_c().await;
+    }
+}
 
 /// `servotty sim`.
 pub fn run(args: &SimArgs) -> u8 {
@@ -38,7 +121,8 @@ pub fn run(args: &SimArgs) -> u8 {
             }
         };
     rt.block_on(async {
-        let mut served = 0;
+        let mut interrupt = Interrupt::listen();
+        let mut served = Vec::new();
         for (i, axis) in cfg.axes.iter().enumerate() {
             let TransportConfig::Sim(sim) = &axis.transport else {
                 eprintln!("servotty: axis {} is not simulated; skipped", axis.name);
@@ -59,17 +143,23 @@ pub fn run(args: &SimArgs) -> u8 {
             drop(host_end);
             println!("{} {}", axis.name, path);
             let board = SimBoard::new(&sim.plant, &sim.faults, 0x5E12_0770 + i as u64).persistent();
+            served.push((axis.name.clone(), board.handle()));
             tokio::spawn(board.run(board_end));
-            served += 1;
         }
-        if served == 0 {
+        if served.is_empty() {
             eprintln!("servotty: no simulated axes to serve");
             return EXIT_USAGE;
         }
         // Others read these lines from a pipe to find the devices.
         use std::io::Write as _;
         let _ = std::io::stdout().flush();
-        let _ = tokio::signal::ctrl_c().await;
+        interrupt.wait().await;
+        let mut out = std::io::stdout().lock();
+        for (name, board) in &served {
+            let line = serde_json::to_string(&AxisReport::of(name, board)).unwrap_or_default();
+            let _ = writeln!(out, "{line}");
+        }
+        let _ = out.flush();
         EXIT_OK
     })
 }

@@ -9,7 +9,7 @@ use std::time::Duration;
 
 use clap::{Args, ValueEnum as _};
 
-use crate::cli::{MachineArgs, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
+use crate::cli::{emit, emit_json, Failure, MachineArgs, EXIT_FAILED, EXIT_OK};
 use crate::commission::{self, StepRequest, TuneStep};
 use crate::config::AxisConfig;
 use crate::engine::{AxisCommand, MachineHandle};
@@ -67,18 +67,23 @@ impl TuneArgs {
 }
 
 /// `servotty tune`.
-pub fn run(args: &TuneArgs) -> u8 {
-    let Ok((cfg, source)) = args.machine.load().map_err(|e| eprintln!("servotty: {e}")) else {
-        return EXIT_USAGE;
-    };
+///
+/// # Errors
+/// [`Failure`]: bad arguments, no confirmation, or the step could not run.
+pub fn run(args: &TuneArgs) -> Result<u8, Failure> {
+    let (cfg, source) = args.machine.load()?;
     let Some(axis_cfg) = cfg.axis(&args.axis).cloned() else {
         let known: Vec<&str> = cfg.axes.iter().map(|a| a.name.as_str()).collect();
-        eprintln!("servotty: no axis called {:?} (axes: {})", args.axis, known.join(", "));
-        return EXIT_USAGE;
+        return Err(Failure::Usage(format!(
+            "no axis called {:?} (axes: {})",
+            args.axis,
+            known.join(", ")
+        )));
     };
     if args.save && !matches!(source, crate::config::ConfigSource::File(_)) {
-        eprintln!("servotty: --save needs --config FILE (the built-in demo has no file to write)");
-        return EXIT_USAGE;
+        return Err(Failure::Usage(
+            "--save needs --config FILE (the built-in demo has no file to write)".to_owned(),
+        ));
     }
     let (spec, bounds) = commission::plan(&args.request(), &axis_cfg);
     let u = &axis_cfg.scale.unit;
@@ -96,12 +101,12 @@ pub fn run(args: &TuneArgs) -> u8 {
         match crate::cli::ask::confirm("Move the axis?") {
             crate::cli::ask::Answer::Yes => {}
             crate::cli::ask::Answer::No => {
-                eprintln!("servotty: nothing moved");
-                return EXIT_USAGE;
+                return Err(Failure::Usage("nothing moved".to_owned()));
             }
             crate::cli::ask::Answer::NoTerminal => {
-                eprintln!("servotty: nothing moved; no terminal to ask on: add --yes to go ahead");
-                return EXIT_USAGE;
+                return Err(Failure::Usage(
+                    "nothing moved; no terminal to ask on: add --yes to go ahead".to_owned(),
+                ));
             }
         }
     }
@@ -110,24 +115,13 @@ pub fn run(args: &TuneArgs) -> u8 {
         crate::config::ConfigSource::BuiltInDemo => None,
     };
     crate::cli::with_machine(&args.machine, |h| async move {
-        match tune(&h, args, &axis_cfg, file).await {
-            Ok(out) => {
-                if args.json {
-                    println!("{}", serde_json::to_string(&out).unwrap_or_default());
-                } else {
-                    println!("{}", out["text"].as_str().unwrap_or_default());
-                }
-                if out["ok"] == true {
-                    EXIT_OK
-                } else {
-                    EXIT_FAILED
-                }
-            }
-            Err(e) => {
-                eprintln!("servotty: {e}");
-                EXIT_FAILED
-            }
+        let out = tune(&h, args, &axis_cfg, file).await.map_err(Failure::Machine)?;
+        if args.json {
+            emit_json(&out)?;
+        } else {
+            emit(&format!("{}\n", out["text"].as_str().unwrap_or_default()))?;
         }
+        Ok(if out["ok"] == true { EXIT_OK } else { EXIT_FAILED })
     })
 }
 

@@ -93,7 +93,7 @@ impl MachinePort for MachineHandle {
             let Some(h) = handle else { return Err(format!("no axis number {axis}")) };
             match h.send(command).await {
                 Ok(_) => Ok(()),
-                Err(CommandError::Refused { reason, .. }) => Err(reason),
+                Err(CommandError::Refused { reason, .. }) => Err(reason.to_string()),
                 Err(CommandError::Gone(_)) => Err("the axis task has stopped".to_owned()),
             }
         }

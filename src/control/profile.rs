@@ -36,8 +36,17 @@
 //! Springer 2008, §3.2 (trapezoidal velocity profile with preassigned velocity and
 //! acceleration). The moving-start cases (steps 1–2) are our own composition of the same
 //! constant-acceleration pieces.
+//!
+//! # One interface for both shapes
+//! [`Profile`] is what the axis plans and samples: a trapezoid or a jerk-limited profile
+//! ([`super::jerk_limited`]), chosen per axis by `motion.profile` ([`ProfileShape`]) through
+//! [`Limits`], so the axis code does not care which shape it follows.
 
+use serde::{Deserialize, Serialize};
+
+use super::jerk_limited::JerkLimited;
 use super::Setpoint;
+use crate::config::MotionConfig;
 
 /// Most segments a plan needs: slow to v_max, brake, accelerate, cruise, brake.
 const MAX_SEGMENTS: usize = 5;
@@ -242,4 +251,129 @@ impl Trapezoid {
 /// Signed distance to stop from velocity `v` at deceleration `a` (> 0): `v·|v|/(2a)`.
 pub fn stopping_distance(v: f64, a: f64) -> f64 {
     v * v.abs() / (2.0 * a)
+}
+
+/// `motion.profile`: the shape of an axis's moves, jogs and stops.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum ProfileShape {
+    /// Bounded velocity and acceleration; the acceleration steps.
+    #[default]
+    Trapezoid,
+    /// Bounded velocity, acceleration and jerk (`motion.max_jerk`): the double S.
+    JerkLimited,
+}
+
+/// The limits one profile is planned with.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Limits {
+    /// |v| limit, units/s.
+    pub velocity: f64,
+    /// |a| limit, units/s².
+    pub acceleration: f64,
+    /// |jerk| limit, units/s³; None plans a trapezoid.
+    pub jerk: Option<f64>,
+}
+
+impl Limits {
+    /// The axis's own limits from its `[axis.motion]` table.
+    pub fn of(m: &MotionConfig) -> Self {
+        let jerk = match m.profile {
+            ProfileShape::Trapezoid => None,
+            ProfileShape::JerkLimited => Some(m.max_jerk.unwrap_or(f64::NAN)),
+        };
+        Self { velocity: m.max_velocity, acceleration: m.max_acceleration, jerk }
+    }
+
+    /// The same limits with the velocity limit lowered to `velocity` (jog speeds, homing
+    /// speeds, a move list's speed limit); never raised.
+    #[must_use]
+    pub fn slower(self, velocity: f64) -> Self {
+        Self { velocity: velocity.min(self.velocity), ..self }
+    }
+
+    /// Every limit multiplied by `k` (> 0): from rest, the profile over `k·D` with limits
+    /// `k·(v, a, j)` is `k` times the profile over `D`, in the same time.
+    #[must_use]
+    pub fn scaled(self, k: f64) -> Self {
+        Self {
+            velocity: self.velocity * k,
+            acceleration: self.acceleration * k,
+            jerk: self.jerk.map(|j| j * k),
+        }
+    }
+}
+
+/// A planned move of either shape; what the axis follows.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Profile {
+    /// Velocity and acceleration bounded.
+    Trapezoid(Trapezoid),
+    /// Velocity, acceleration and jerk bounded.
+    JerkLimited(JerkLimited),
+}
+
+impl Profile {
+    /// From the setpoint being followed now to rest at `goal`.
+    pub fn plan(from: Setpoint, goal: f64, lim: Limits) -> Self {
+        match lim.jerk {
+            None => Self::Trapezoid(Trapezoid::plan(
+                from.position,
+                from.velocity,
+                goal,
+                lim.velocity,
+                lim.acceleration,
+            )),
+            Some(j) => {
+                Self::JerkLimited(JerkLimited::plan(from, goal, lim.velocity, lim.acceleration, j))
+            }
+        }
+    }
+
+    /// Decelerate from `from` to rest as fast as the limits allow.
+    pub fn stop(from: Setpoint, lim: Limits) -> Self {
+        match lim.jerk {
+            None => {
+                Self::Trapezoid(Trapezoid::stop(from.position, from.velocity, lim.acceleration))
+            }
+            Some(j) => Self::JerkLimited(JerkLimited::stop(from, lim.acceleration, j)),
+        }
+    }
+
+    /// The setpoint `t` seconds after the start.
+    pub fn sample(&self, t: f64) -> Setpoint {
+        match self {
+            Self::Trapezoid(p) => p.sample(t),
+            Self::JerkLimited(p) => p.sample(t),
+        }
+    }
+
+    /// Total time to rest at the goal, s.
+    pub fn duration(&self) -> f64 {
+        match self {
+            Self::Trapezoid(p) => p.duration(),
+            Self::JerkLimited(p) => p.duration(),
+        }
+    }
+
+    /// Where the profile ends, at rest.
+    pub fn goal(&self) -> f64 {
+        match self {
+            Self::Trapezoid(p) => p.goal(),
+            Self::JerkLimited(p) => p.goal(),
+        }
+    }
+}
+
+/// Why `motion.max_jerk` does not fit `motion.profile`, if it does not (config validation).
+pub fn check_jerk(m: &MotionConfig) -> Option<String> {
+    match (m.profile, m.max_jerk) {
+        (ProfileShape::JerkLimited, None) => {
+            Some("profile = \"jerk_limited\" needs max_jerk (unit/s³)".to_owned())
+        }
+        (_, Some(j)) if !(j.is_finite() && j > 0.0) => {
+            Some(format!("expected a number > 0, found {j}"))
+        }
+        _ => None,
+    }
 }

@@ -1,17 +1,22 @@
 //! Link measurements for one axis: frame counts, lost and bad frames, frame rate, and the
 //! host's turnaround (frame read → command written).
 //!
-//! Turnaround samples go into a bounded buffer so that a long run cannot grow memory; the
-//! percentiles are computed when a report is asked for, off the per-frame path.
+//! Turnaround goes into a streaming histogram (`hdrhistogram`): a fixed ~90 KB per axis
+//! whatever the run's length, one counter increment per frame, and percentiles read off the
+//! buckets when a report is asked for. Nothing is stored per sample and nothing is sorted.
 
 use std::time::Duration;
 
+use hdrhistogram::Histogram;
 use serde::Serialize;
 
 use crate::engine::snapshot::LinkStats;
 
-/// At most this many turnaround samples are kept per report window (≈ 2 min at 1 kHz).
-const MAX_SAMPLES: usize = 120_000;
+/// Largest turnaround the histogram resolves, µs; longer ones count as this (a reply a second
+/// late is a lost link anyway). The exact maximum is kept beside the histogram.
+const HIGHEST_US: u64 = 1_000_000;
+/// Significant decimal digits kept: values up to 2047 µs are exact, above that within 0.1 %.
+const SIGNIFICANT_DIGITS: u8 = 3;
 
 /// Percentiles of host turnaround, µs.
 #[derive(Debug, Clone, Copy, Default, PartialEq, Serialize)]
@@ -42,7 +47,7 @@ pub struct LinkReport {
 }
 
 /// Running counters.
-#[derive(Debug, Default)]
+#[derive(Debug)]
 pub struct LinkMeter {
     total: LinkStats,
     window_frames: u64,
@@ -50,8 +55,33 @@ pub struct LinkMeter {
     window_missed: u64,
     window_start_t: Option<f64>,
     last_t: f64,
-    samples: Vec<u32>,
+    turnaround: Option<Histogram<u64>>,
+    window_max_us: u32,
     rate_mark: Option<(f64, u64)>,
+}
+
+impl Default for LinkMeter {
+    fn default() -> Self {
+        Self {
+            total: LinkStats::default(),
+            window_frames: 0,
+            window_bad: 0,
+            window_missed: 0,
+            window_start_t: None,
+            last_t: 0.0,
+            turnaround: turnaround_histogram(),
+            window_max_us: 0,
+            rate_mark: None,
+        }
+    }
+}
+
+/// An empty turnaround histogram, 0…[`HIGHEST_US`] µs.
+///
+/// The bounds are constants the crate accepts (a unit test holds it to that); `None` would
+/// only mean empty reports, never a panic on the frame path.
+fn turnaround_histogram() -> Option<Histogram<u64>> {
+    Histogram::new_with_bounds(1, HIGHEST_US, SIGNIFICANT_DIGITS).ok()
 }
 
 impl LinkMeter {
@@ -89,9 +119,11 @@ impl LinkMeter {
 
     /// Time from a read completing to the answer being written.
     pub fn turnaround(&mut self, d: Duration) {
-        if self.samples.len() < MAX_SAMPLES {
-            self.samples.push(u32::try_from(d.as_micros()).unwrap_or(u32::MAX));
+        let us = u64::try_from(d.as_micros()).unwrap_or(u64::MAX);
+        if let Some(h) = &mut self.turnaround {
+            h.saturating_record(us.min(HIGHEST_US));
         }
+        self.window_max_us = self.window_max_us.max(u32::try_from(us).unwrap_or(u32::MAX));
     }
 
     /// Counters for the snapshot.
@@ -101,34 +133,34 @@ impl LinkMeter {
 
     /// The window's report; `reset` starts a new window.
     pub fn report(&mut self, reset: bool) -> LinkReport {
-        let mut sorted = self.samples.clone();
-        sorted.sort_unstable();
+        let h = self.turnaround.as_ref();
+        // Nearest rank (common practice, no source): the crate walks the buckets to the
+        // ceil(q·n)-th sample and reports the top of that sample's bucket: exact up to 2047 µs.
         let pick = |q: f64| -> u32 {
-            if sorted.is_empty() {
-                return 0;
+            match h {
+                Some(h) if !h.is_empty() => {
+                    u32::try_from(h.value_at_quantile(q)).unwrap_or(u32::MAX)
+                }
+                _ => 0,
             }
-            // Nearest-rank percentile (common practice, no source).
-            let rank = ((q * sorted.len() as f64).ceil() as usize).clamp(1, sorted.len());
-            sorted[rank - 1]
         };
         let report = LinkReport {
             frames: self.window_frames,
             board_seconds: self.window_start_t.map_or(0.0, |t0| self.last_t - t0),
             bad_frames: self.window_bad,
             missed: self.window_missed,
-            turnaround_us: Turnaround {
-                p50: pick(0.50),
-                p99: pick(0.99),
-                max: sorted.last().copied().unwrap_or(0),
-            },
-            samples: sorted.len(),
+            turnaround_us: Turnaround { p50: pick(0.50), p99: pick(0.99), max: self.window_max_us },
+            samples: h.map_or(0, |h| usize::try_from(h.len()).unwrap_or(usize::MAX)),
         };
         if reset {
             self.window_frames = 0;
             self.window_bad = 0;
             self.window_missed = 0;
             self.window_start_t = None;
-            self.samples.clear();
+            if let Some(h) = &mut self.turnaround {
+                h.reset();
+            }
+            self.window_max_us = 0;
         }
         report
     }
@@ -147,6 +179,34 @@ mod tests {
         let r = m.report(true);
         assert_eq!(r.turnaround_us, Turnaround { p50: 50, p99: 99, max: 100 });
         assert_eq!(m.report(false).samples, 0);
+    }
+
+    #[test]
+    fn the_histogram_bounds_are_accepted() {
+        assert!(turnaround_histogram().is_some());
+    }
+
+    #[test]
+    fn long_runs_keep_every_sample_and_the_exact_maximum() {
+        // Far beyond the 120 000 samples the meter once kept: nothing is dropped.
+        let mut m = LinkMeter::default();
+        for i in 0..300_000u64 {
+            m.turnaround(Duration::from_micros(if i % 100 == 99 { 40 } else { 8 }));
+        }
+        m.turnaround(Duration::from_micros(1_234_567));
+        let r = m.report(false);
+        assert_eq!(r.samples, 300_001);
+        assert_eq!(r.turnaround_us, Turnaround { p50: 8, p99: 40, max: 1_234_567 });
+    }
+
+    #[test]
+    fn above_2047_us_percentiles_are_within_a_tenth_of_a_percent() {
+        let mut m = LinkMeter::default();
+        for _ in 0..10 {
+            m.turnaround(Duration::from_micros(5_000));
+        }
+        let p50 = m.report(true).turnaround_us.p50;
+        assert!((5_000..=5_005).contains(&p50), "{p50}");
     }
 
     #[test]

@@ -262,9 +262,13 @@ impl MachineHandle {
                     axis: (*name).clone(),
                     reason: "no such axis".to_owned(),
                 })?;
+                // The axis is named once, by the HomeError.
                 let err = |e: crate::engine::CommandError| HomeError {
                     axis: (*name).clone(),
-                    reason: e.to_string(),
+                    reason: match e {
+                        crate::engine::CommandError::Refused { reason, .. } => reason.to_string(),
+                        e @ crate::engine::CommandError::Gone(_) => e.to_string(),
+                    },
                 };
                 if a.snapshot().state == AxisState::Disabled {
                     a.send(AxisCommand::Enable).await.map_err(err)?;

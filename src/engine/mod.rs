@@ -20,10 +20,12 @@ pub mod homing;
 pub mod link_meter;
 pub mod machine;
 pub mod recorder;
+pub mod refusal;
 pub mod snapshot;
 pub mod supervisor;
 
 pub use axis::{AxisCommand, AxisHandle, CommandError, Reply, StopAll};
 pub use events::{Event, EventKind};
 pub use machine::{Machine, MachineHandle, PortOverride, StartError};
+pub use refusal::{Asked, Refusal};
 pub use snapshot::{AxisSnapshot, AxisState, LinkStats, Trip, TripCause};

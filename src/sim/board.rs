@@ -85,6 +85,33 @@ pub struct BoardView {
     pub commands_received: u64,
     /// Tick count when the bridge last went from on to off (Stop, or watchdog).
     pub motor_off_at_tick: Option<u64>,
+    /// What the board counted about the host's replies, as firmware would.
+    pub replies: ReplyCounters,
+}
+
+/// The board's account of how the host kept up, in board ticks: what `sim --pty` reports
+/// when it stops. A reply is a valid Duty or Stop received while streaming; its `seq` names
+/// the telemetry frame it answers (docs/protocol.md section 8).
+#[derive(Debug, Clone, Copy, Default, PartialEq, serde::Serialize)]
+pub struct ReplyCounters {
+    /// Host replies received.
+    pub host_replies: u64,
+    /// Replies that were not there by the tick after the frame they answer (the board reads
+    /// once per tick, so "on time" means within one tick period).
+    pub late_replies: u64,
+    /// Times the watchdog switched the motor off.
+    pub watchdog_trips: u64,
+    /// Longest board time between two replies from the same host, µs (a new host's Hello
+    /// starts afresh, so the pause between two programs does not count).
+    pub longest_reply_gap_us: u64,
+    /// Ticks run less than half a period after the one before: the simulator catching up
+    /// after it fell behind (its own share of the machine, not the host's). The host had
+    /// less than a tick to answer the frames before these, so when this is not 0 some late
+    /// replies may be the simulator's doing. Firmware on a hardware timer has none.
+    pub rushed_ticks: u64,
+    /// Longest time between two of the simulator's own ticks, µs: its longest stall. A reply
+    /// gap or watchdog trip no longer than this may be the simulator's, not the host's.
+    pub longest_tick_gap_us: u64,
 }
 
 impl SimBoardHandle {
@@ -186,10 +213,20 @@ impl SimBoard {
         let mut interval = make_interval(b.tick_hz);
         let mut rx = vec![0u8; 4096];
         let mut retry_read_at: Option<tokio::time::Instant> = None;
+        let mut last_tick_at: Option<tokio::time::Instant> = None;
         loop {
             interval.tick().await;
             // 1. What the host sent since the last tick.
             let now = tokio::time::Instant::now();
+            if let Some(t) = last_tick_at {
+                let r = &mut b.replies;
+                if (now - t) * 2 < interval.period() {
+                    r.rushed_ticks += 1;
+                }
+                let gap = u64::try_from((now - t).as_micros()).unwrap_or(u64::MAX);
+                r.longest_tick_gap_us = r.longest_tick_gap_us.max(gap);
+            }
+            last_tick_at = Some(now);
             if retry_read_at.is_none_or(|t| now >= t) {
                 retry_read_at = None;
                 loop {
@@ -257,6 +294,7 @@ impl SimBoard {
             if b.motor_on && b.ticks.saturating_sub(b.last_command_tick) > b.watchdog_ticks {
                 b.motor_on = false;
                 b.watchdog_tripped = true;
+                b.replies.watchdog_trips += 1;
                 b.motor_off_at_tick = Some(b.ticks);
             }
             let period = 1.0 / f64::from(b.tick_hz);
@@ -301,6 +339,7 @@ impl SimBoard {
             frames_sent: b.frames_sent,
             commands_received: b.commands_received,
             motor_off_at_tick: b.motor_off_at_tick,
+            replies: b.replies,
         };
         self.handle.lock().view = view;
     }
@@ -330,6 +369,9 @@ struct BoardState {
     inbox: std::collections::VecDeque<(u64, HostMessage)>,
     /// Ticks the link stays dark (injected blackout).
     dark_ticks: u64,
+    replies: ReplyCounters,
+    /// Board time of the last reply from the current host, µs, for the longest gap.
+    last_reply_us: Option<u64>,
 }
 
 impl BoardState {
@@ -359,12 +401,36 @@ impl BoardState {
             },
             inbox: std::collections::VecDeque::new(),
             dark_ticks: 0,
+            replies: ReplyCounters::default(),
+            last_reply_us: None,
         }
     }
 
     /// Whole ticks (rounded up) in `ms` at the present rate.
     fn ms_to_ticks(&self, ms: u32) -> u64 {
         (u64::from(ms) * u64::from(self.tick_hz)).div_ceil(1000)
+    }
+
+    /// Counts a Duty or Stop answering telemetry `answered` (its echoed seq), read at the
+    /// start of tick `ticks + 1`, i.e. before frame `self.seq` goes out.
+    fn count_reply(&mut self, answered: u16) {
+        let now_us = self.board_time_us();
+        let r = &mut self.replies;
+        r.host_replies += 1;
+        // The frame read at this tick answers `self.seq - 1` when on time; wrapping seq
+        // arithmetic as in docs/protocol.md section 8.
+        if self.seq.wrapping_sub(answered) > 1 {
+            r.late_replies += 1;
+        }
+        if let Some(prev) = self.last_reply_us {
+            r.longest_reply_gap_us = r.longest_reply_gap_us.max(now_us.saturating_sub(prev));
+        }
+        self.last_reply_us = Some(now_us);
+    }
+
+    /// Board time since power-up, µs (ticks × period; continuous across rate changes).
+    fn board_time_us(&self) -> u64 {
+        self.ticks * 1_000_000 / u64::from(self.tick_hz)
     }
 
     fn motor_off(&mut self) {
@@ -383,6 +449,7 @@ impl BoardState {
             HostMessage::Hello => {
                 // Contract: Hello switches the motor off first.
                 self.motor_off();
+                self.last_reply_us = None;
                 let caps = BoardMessage::Hello(Capabilities {
                     protocol_version: protocol::PROTOCOL_VERSION,
                     max_tick_hz: MAX_TICK_HZ,
@@ -414,6 +481,7 @@ impl BoardState {
             // Contract: a Duty before Configure is ignored (no watchdog is armed yet).
             HostMessage::Duty { .. } if !self.streaming => None,
             HostMessage::Duty { seq, duty } => {
+                self.count_reply(seq);
                 let full = protocol::DUTY_FULL_SCALE;
                 self.duty = f64::from(duty.clamp(-full, full)) / f64::from(full);
                 self.motor_on = true;
@@ -423,6 +491,9 @@ impl BoardState {
                 None
             }
             HostMessage::Stop { seq } => {
+                if self.streaming {
+                    self.count_reply(seq);
+                }
                 self.motor_off();
                 self.last_command_tick = self.ticks;
                 self.ack_seq = seq;
@@ -448,7 +519,7 @@ impl BoardState {
         }
         BoardMessage::Telemetry(Telemetry {
             seq,
-            board_time_us: (self.ticks * 1_000_000 / u64::from(self.tick_hz)) as u32,
+            board_time_us: self.board_time_us() as u32,
             // The wire count is 32 bits and wraps; the host unwraps it.
             count: plant.encoder_count() as i32,
             inputs: in_bits,
@@ -529,4 +600,76 @@ pub fn spawn_in_process(
     let handle = board.handle();
     tokio::spawn(board.run(board_end));
     (host, handle)
+}
+
+#[cfg(test)]
+mod tests {
+    use tokio::io::{AsyncReadExt, AsyncWriteExt};
+
+    use super::*;
+    use crate::config::MachineConfig;
+
+    /// A host that answers frames by a script, under simulated time.
+    struct ScriptedHost {
+        link: tokio::io::DuplexStream,
+        decoder: FrameDecoder,
+        rx: Vec<u8>,
+        tx: Vec<u8>,
+    }
+
+    impl ScriptedHost {
+        async fn send(&mut self, msg: HostMessage) {
+            self.tx.clear();
+            protocol::write_frame(&msg, &mut self.tx);
+            self.link.write_all(&self.tx).await.expect("write");
+        }
+
+        async fn next_telemetry(&mut self) -> Telemetry {
+            loop {
+                while let Some(m) = self.decoder.next_message::<BoardMessage>() {
+                    if let Ok(BoardMessage::Telemetry(t)) = m {
+                        return t;
+                    }
+                }
+                let n = self.link.read(&mut self.rx).await.expect("read");
+                assert!(n > 0, "board closed");
+                self.decoder.extend(&self.rx[..n]);
+            }
+        }
+    }
+
+    #[tokio::test(start_paused = true)]
+    async fn the_board_counts_replies_late_replies_watchdog_trips_and_the_longest_gap() {
+        let cfg = MachineConfig::demo().expect("demo");
+        let crate::config::TransportConfig::Sim(sim) = &cfg.axes[0].transport else {
+            panic!("the demo is simulated")
+        };
+        let (link, board) = spawn_in_process(&sim.plant, &SimFaults::default(), 1);
+        let mut host =
+            ScriptedHost { link, decoder: FrameDecoder::new(), rx: vec![0; 1024], tx: Vec::new() };
+        host.send(HostMessage::Hello).await;
+        host.send(HostMessage::Configure { tick_hz: 1000, watchdog_ms: 50 }).await;
+        // 100 frames answered at once, 60 not answered (longer than the 50 ms watchdog), 40
+        // answered one frame behind (each reply names the frame before the newest).
+        for i in 0..200u16 {
+            let t = host.next_telemetry().await;
+            assert_eq!(t.seq, i);
+            match i {
+                0..100 => host.send(HostMessage::Duty { seq: t.seq, duty: 0 }).await,
+                100..160 => {}
+                _ => host.send(HostMessage::Duty { seq: t.seq - 1, duty: 0 }).await,
+            }
+        }
+        // One more tick reads the last reply.
+        host.next_telemetry().await;
+        let r = board.view().replies;
+        assert_eq!(r.host_replies, 140, "{r:?}");
+        assert_eq!(r.late_replies, 40, "{r:?}");
+        assert_eq!(r.watchdog_trips, 1, "{r:?}");
+        // Reply to frame 99 read at the tick of frame 100, the next one (to frame 159, sent
+        // after frame 160) at the tick of frame 161: 61 ticks of 1 ms.
+        assert_eq!(r.longest_reply_gap_us, 61_000, "{r:?}");
+        assert_eq!(r.rushed_ticks, 0, "simulated time never runs late: {r:?}");
+        assert_eq!(r.longest_tick_gap_us, 1_000, "{r:?}");
+    }
 }

@@ -5,10 +5,11 @@ use std::time::Duration;
 use tokio::time::Instant;
 
 use super::{ActiveProfile, AxisCommand, AxisTask, CommandError, JogKeys, Purpose, Reply};
-use crate::control::Trapezoid;
+use crate::control::{Limits, Profile};
 use crate::engine::events::EventKind;
 use crate::engine::experiment::{ExperimentBounds, ExperimentRun, ExperimentSpec};
 use crate::engine::homing::HomingRun;
+use crate::engine::refusal::{Asked, Refusal};
 use crate::engine::snapshot::{AxisState, TripCause};
 
 /// Continuous jog without homing has no soft limit to run to; it aims this far away and
@@ -23,7 +24,7 @@ impl AxisTask {
         if let Some(action) = log {
             let (accepted, reason) = match &answer {
                 Ok(_) => (true, None),
-                Err(CommandError::Refused { reason, .. }) => (false, Some(reason.clone())),
+                Err(CommandError::Refused { reason, .. }) => (false, Some(reason.to_string())),
                 Err(e) => (false, Some(e.to_string())),
             };
             self.event(EventKind::Operator { action, accepted, reason });
@@ -36,7 +37,7 @@ impl AxisTask {
         match cmd {
             AxisCommand::Enable => match self.state {
                 AxisState::Disabled if latched => {
-                    (Err(self.refuse("stop-all is latched: release it first")), false)
+                    (Err(self.refuse(Refusal::StopAllLatched)), false)
                 }
                 AxisState::Disabled => {
                     self.profile = None;
@@ -46,7 +47,7 @@ impl AxisTask {
                     (Ok(Reply::Done), false)
                 }
                 s if s.motor_on() => (Ok(Reply::Done), false),
-                s => (Err(self.refuse(&format!("cannot enable while {s}"))), false),
+                s => (Err(self.refuse(Refusal::NotNow { asked: Asked::Enable, state: s })), false),
             },
             AxisCommand::Disable => {
                 let was_on = self.state.motor_on();
@@ -153,35 +154,31 @@ impl AxisTask {
     /// velocity: a stop must cover the least ground, and the small step in the P term is the
     /// price of that.
     pub(super) fn begin_stop(&mut self, purpose: Purpose) {
-        let v0 = self.setpoint.velocity;
-        let profile = Trapezoid::stop(self.position, v0, self.cfg.motion.max_acceleration);
+        let from = crate::control::Setpoint { position: self.position, ..self.setpoint };
+        let profile = Profile::stop(from, Limits::of(&self.cfg.motion));
         self.profile = Some(ActiveProfile { profile, t0: self.t, purpose });
         self.goal = profile.goal();
         self.state = AxisState::Stopping;
         self.in_position = false;
     }
 
-    fn require_motion_ready(&self, what: &str) -> Result<(), CommandError> {
+    fn require_motion_ready(&self, asked: Asked) -> Result<(), CommandError> {
         match self.state {
             AxisState::Holding | AxisState::Moving => Ok(()),
-            s => Err(self.refuse(&format!("cannot {what} while {s} (enable the axis first)"))),
+            s => Err(self.refuse(Refusal::NotNow { asked, state: s })),
         }
     }
 
     fn start_move(&mut self, goal: f64) -> Result<Reply, CommandError> {
         if !self.homed {
-            return Err(self.refuse(
-                "not homed: positions are not trusted yet, so absolute moves are refused \
-                 (home the axis first; jogging works at reduced speed)",
-            ));
+            return Err(self.refuse(Refusal::NotHomed));
         }
         let l = &self.cfg.limits;
         if !goal.is_finite() || goal < l.soft_min || goal > l.soft_max {
-            let (lo, hi, u) = (l.soft_min, l.soft_max, self.cfg.scale.unit.clone());
-            return Err(self
-                .refuse(&format!("target {goal} {u} is outside the soft limits {lo} … {hi} {u}")));
+            let (min, max, unit) = (l.soft_min, l.soft_max, self.cfg.scale.unit.clone());
+            return Err(self.refuse(Refusal::OutsideSoftLimits { goal, min, max, unit }));
         }
-        self.require_motion_ready("move")?;
+        self.require_motion_ready(Asked::Move)?;
         let m = &self.cfg.motion;
         self.plan_move(goal, m.max_velocity);
         Ok(Reply::Done)
@@ -189,13 +186,8 @@ impl AxisTask {
 
     /// A profiled move whose completion waits for the in-position dwell.
     fn plan_move(&mut self, goal: f64, velocity: f64) {
-        let profile = Trapezoid::plan(
-            self.setpoint.position,
-            self.setpoint.velocity,
-            goal,
-            velocity,
-            self.cfg.motion.max_acceleration,
-        );
+        let profile =
+            Profile::plan(self.setpoint, goal, Limits::of(&self.cfg.motion).slower(velocity));
         self.profile = Some(ActiveProfile { profile, t0: self.t, purpose: Purpose::Move });
         self.goal = goal;
         self.state = AxisState::Moving;
@@ -226,9 +218,11 @@ impl AxisTask {
 
     fn jog_step(&mut self, distance: f64, speed: f64) -> Result<Reply, CommandError> {
         if !distance.is_finite() || distance == 0.0 {
-            return Err(self.refuse("a jog step needs a finite, non-zero distance"));
+            return Err(
+                self.refuse(Refusal::BadValue("a jog step needs a finite, non-zero distance"))
+            );
         }
-        self.require_motion_ready("jog")?;
+        self.require_motion_ready(Asked::Jog)?;
         let reach = self.jog_reach(distance.signum());
         let from = self.goal;
         let goal = if distance > 0.0 {
@@ -238,7 +232,7 @@ impl AxisTask {
         };
         // Outside a limit, a step outwards would be clamped into a step inwards: refuse it.
         if (goal - from).abs() < f64::EPSILON || (goal - from).signum() != distance.signum() {
-            return Err(self.refuse("at the soft limit in that direction"));
+            return Err(self.refuse(Refusal::AtSoftLimit));
         }
         self.plan_move(goal, self.jog_speed(speed));
         Ok(Reply::Done)
@@ -246,7 +240,7 @@ impl AxisTask {
 
     fn jog_pulse(&mut self, direction: i8, speed: f64) -> Result<Reply, CommandError> {
         if direction == 0 || !speed.is_finite() || speed <= 0.0 {
-            return Err(self.refuse("a jog needs a direction and a speed > 0"));
+            return Err(self.refuse(Refusal::BadValue("a jog needs a direction and a speed > 0")));
         }
         let now = Instant::now();
         let window = Duration::from_secs_f64(self.cfg.jog.repeat_window_s);
@@ -263,16 +257,10 @@ impl AxisTask {
                     let reach = self.jog_reach(dir);
                     if (reach - self.position) * dir <= 0.0 {
                         self.jog = None;
-                        return Err(self.refuse("at the soft limit in that direction"));
+                        return Err(self.refuse(Refusal::AtSoftLimit));
                     }
-                    let m = &self.cfg.motion;
-                    let profile = Trapezoid::plan(
-                        self.setpoint.position,
-                        self.setpoint.velocity,
-                        reach,
-                        self.jog_speed(speed),
-                        m.max_acceleration,
-                    );
+                    let lim = Limits::of(&self.cfg.motion).slower(self.jog_speed(speed));
+                    let profile = Profile::plan(self.setpoint, reach, lim);
                     self.profile =
                         Some(ActiveProfile { profile, t0: self.t, purpose: Purpose::Jog });
                     self.goal = reach;
@@ -313,7 +301,7 @@ impl AxisTask {
             AxisState::Holding | AxisState::Moving | AxisState::Jogging | AxisState::Stopping => {
                 Ok(())
             }
-            s => Err(self.refuse(&format!("cannot jog while {s} (enable the axis first)"))),
+            s => Err(self.refuse(Refusal::NotNow { asked: Asked::Jog, state: s })),
         }
     }
 
@@ -321,7 +309,7 @@ impl AxisTask {
         match self.state {
             AxisState::Holding => {}
             AxisState::Homing => return Ok(Reply::Done),
-            s => return Err(self.refuse(&format!("cannot home while {s} (enable the axis first)"))),
+            s => return Err(self.refuse(Refusal::NotNow { asked: Asked::Home, state: s })),
         }
         let min_speed =
             (200.0 / self.cfg.scale.counts_per_unit).max(0.02 * self.cfg.motion.max_velocity);
@@ -345,14 +333,13 @@ impl AxisTask {
         bounds: ExperimentBounds,
     ) -> Result<Reply, CommandError> {
         if self.state != AxisState::Holding {
-            return Err(self.refuse(&format!(
-                "a test starts from holding (enable the axis and let it settle), not {}",
-                self.state
-            )));
+            return Err(self.refuse(Refusal::NotNow { asked: Asked::Test, state: self.state }));
         }
         let positive = |v: f64| v.is_finite() && v > 0.0;
         if !positive(bounds.travel) || !positive(bounds.seconds) {
-            return Err(self.refuse("a test needs a travel bound and a time bound > 0"));
+            return Err(
+                self.refuse(Refusal::BadValue("a test needs a travel bound and a time bound > 0"))
+            );
         }
         self.experiment_result = None;
         self.experiment =
@@ -366,7 +353,7 @@ impl AxisTask {
     fn clear_trip(&mut self) -> Result<Reply, CommandError> {
         let Some(trip) = &self.trip else { return Ok(Reply::Done) };
         if trip.cause == TripCause::LinkLoss && !self.link_up {
-            return Err(self.refuse("the link is still down"));
+            return Err(self.refuse(Refusal::LinkStillDown));
         }
         self.trip = None;
         self.profile = None;
@@ -385,7 +372,7 @@ impl AxisTask {
         Ok(Reply::Done)
     }
 
-    pub(super) fn refuse(&self, reason: &str) -> CommandError {
-        CommandError::Refused { axis: self.cfg.name.clone(), reason: reason.to_owned() }
+    pub(super) fn refuse(&self, reason: Refusal) -> CommandError {
+        CommandError::Refused { axis: self.cfg.name.clone(), reason }
     }
 }

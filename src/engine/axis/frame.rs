@@ -4,7 +4,7 @@
 use tokio::time::Instant;
 
 use super::{ActiveProfile, AxisTask, Purpose};
-use crate::control::{Setpoint, Trapezoid};
+use crate::control::{Limits, Profile, Setpoint};
 use crate::engine::events::EventKind;
 use crate::engine::experiment::Drive;
 use crate::engine::history::Sample;
@@ -266,24 +266,14 @@ impl AxisTask {
         for order in orders {
             match order {
                 Order::MoveTo { goal, velocity } => {
-                    let m = &self.cfg.motion;
-                    let profile = Trapezoid::plan(
-                        self.setpoint.position,
-                        self.setpoint.velocity,
-                        goal,
-                        velocity.min(m.max_velocity),
-                        m.max_acceleration,
-                    );
+                    let lim = Limits::of(&self.cfg.motion).slower(velocity);
+                    let profile = Profile::plan(self.setpoint, goal, lim);
                     self.profile =
                         Some(ActiveProfile { profile, t0: self.t, purpose: Purpose::Homing });
                     self.goal = goal;
                 }
                 Order::Stop => {
-                    let profile = Trapezoid::stop(
-                        self.setpoint.position,
-                        self.setpoint.velocity,
-                        self.cfg.motion.max_acceleration,
-                    );
+                    let profile = Profile::stop(self.setpoint, Limits::of(&self.cfg.motion));
                     self.profile =
                         Some(ActiveProfile { profile, t0: self.t, purpose: Purpose::Homing });
                     self.goal = profile.goal();

@@ -119,13 +119,13 @@ pub enum Reply {
 /// Why a command was refused.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 pub enum CommandError {
-    /// The axis cannot do it now; the text says why.
+    /// The axis cannot do it now; the reason says why and what to do.
     #[error("{axis}: {reason}")]
     Refused {
         /// Axis name.
         axis: String,
-        /// Why, in words.
-        reason: String,
+        /// Why, typed.
+        reason: crate::engine::Refusal,
     },
     /// The axis task has ended.
     #[error("{0}: axis task has stopped")]

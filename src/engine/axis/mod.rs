@@ -29,7 +29,7 @@ use tokio::time::Instant;
 pub use handle::{AxisCommand, AxisHandle, CommandError, Reply, Request, StopAll};
 
 use crate::config::AxisConfig;
-use crate::control::{Controller, Setpoint, Trapezoid};
+use crate::control::{Controller, Profile, Setpoint};
 use crate::engine::events::{Event, EventKind};
 use crate::engine::experiment::{ExperimentResult, ExperimentRun};
 use crate::engine::history::History;
@@ -68,7 +68,7 @@ enum Purpose {
 
 #[derive(Debug, Clone, Copy)]
 struct ActiveProfile {
-    profile: Trapezoid,
+    profile: Profile,
     t0: f64,
     purpose: Purpose,
 }
