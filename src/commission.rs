@@ -13,7 +13,7 @@ use clap::ValueEnum;
 use crate::config::{AxisConfig, ControllerConfig};
 use crate::engine::experiment::{ExperimentBounds, ExperimentResult, ExperimentSpec};
 use crate::engine::{AxisCommand, AxisHandle, AxisState, MachineHandle, Reply};
-use crate::tuning::{ident, relay, report, rules, suggest};
+use crate::tuning::{ident, relay, report, suggest};
 
 /// Which commissioning step.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
@@ -24,7 +24,7 @@ pub enum TuneStep {
     Breakaway,
     /// Open-loop duty pulses: velocity gain, time constant, friction; SIMC gains.
     Identify,
-    /// Relay oscillation: ultimate gain and period; Tyreus–Luyben gains.
+    /// Relay oscillation: one measured point of the frequency response; phase-margin gains.
     Relay,
     /// A closed-loop step: rise, overshoot, settling; CSV and SVG saved.
     Step,
@@ -43,12 +43,15 @@ pub struct StepRequest {
     pub size: Option<f64>,
     /// Folder for the step test's CSV and SVG (the state folder's `steps` when None).
     pub out_dir: Option<PathBuf>,
+    /// Relay: the sliding-friction offset u0 (%) to correct for (from `identify`); none when
+    /// None (the result then says so).
+    pub friction: Option<f64>,
 }
 
 impl StepRequest {
     /// The step with every default.
     pub fn new(step: TuneStep) -> Self {
-        Self { step, travel: None, duty: None, size: None, out_dir: None }
+        Self { step, travel: None, duty: None, size: None, out_dir: None, friction: None }
     }
 }
 
@@ -78,12 +81,7 @@ pub fn plan(args: &StepRequest, a: &AxisConfig) -> (ExperimentSpec, ExperimentBo
             ExperimentBounds { travel: args.travel.unwrap_or(10.0), seconds: 2.0 },
         ),
         TuneStep::Breakaway => (
-            ExperimentSpec::BreakawayRamp {
-                direction: 1,
-                rate: 5.0,
-                max_duty: max.min(60.0),
-                motion_counts: 3,
-            },
+            breakaway_ramp(1, max),
             ExperimentBounds { travel: args.travel.unwrap_or(10.0), seconds: 15.0 },
         ),
         TuneStep::Identify => {
@@ -106,7 +104,11 @@ pub fn plan(args: &StepRequest, a: &AxisConfig) -> (ExperimentSpec, ExperimentBo
             )
         }
         TuneStep::Relay => (
-            ExperimentSpec::Relay { amplitude: duty, hysteresis: 2.0 * resolution, seconds: 3.0 },
+            ExperimentSpec::Relay {
+                amplitude: duty,
+                hysteresis: relay_hysteresis(duty, args.friction.unwrap_or(0.0), resolution),
+                seconds: 3.0,
+            },
             ExperimentBounds { travel: args.travel.unwrap_or(30.0), seconds: 4.0 },
         ),
         TuneStep::Step => {
@@ -120,6 +122,47 @@ pub fn plan(args: &StepRequest, a: &AxisConfig) -> (ExperimentSpec, ExperimentBo
             )
         }
     }
+}
+
+/// The breakaway ramp: 5 %/s from rest, stopped once the encoder has moved
+/// [`BREAKAWAY_STOP_COUNTS`] counts (the analysis, [`ident::breakaway`], reads the duty at the
+/// first count and uses the later ones to confirm the motion).
+fn breakaway_ramp(direction: i8, max_duty: f64) -> ExperimentSpec {
+    ExperimentSpec::BreakawayRamp {
+        direction,
+        rate: 5.0,
+        max_duty: max_duty.min(60.0),
+        motion_counts: BREAKAWAY_STOP_COUNTS,
+    }
+}
+
+/// Counts of motion after which a breakaway ramp stops.
+pub const BREAKAWAY_STOP_COUNTS: i64 = 3;
+
+/// Relay hysteresis: proportional to the duty left after sliding friction, `d − u0` (0.3
+/// counts per %, at least 3 counts), so the oscillation keeps the same shape at every duty
+/// and the relay measures the same point of the frequency response whatever duty is chosen
+/// (by homogeneity of the linear part; our choice, measured in docs/tuning.md). Three counts at
+/// least, so a one-count flicker cannot switch the relay. The band is a whole number n of
+/// counts less half a count: the relay switches at the n-th count whatever the rounding.
+pub fn relay_hysteresis(duty: f64, friction: f64, resolution: f64) -> f64 {
+    let n = (0.3 * (duty.abs() - friction.max(0.0))).round().max(3.0);
+    (n - 0.5) * resolution
+}
+
+/// The breakaway of one recorded ramp ([`ident::breakaway`], the one implementation), or why
+/// there is none.
+fn breakaway_of(r: &ExperimentResult, resolution: f64) -> Result<ident::Breakaway, String> {
+    if let Some(why) = &r.aborted {
+        return Err(format!("ended early: {why}"));
+    }
+    let samples: Vec<ident::DutySample> = r.samples.iter().map(ident::DutySample::from).collect();
+    ident::breakaway(&samples, Some(resolution)).map_err(|e| e.to_string())
+}
+
+/// A breakaway duty as a minimum duty: its magnitude rounded up to the next 0.5 %.
+fn round_up_half(d: f64) -> f64 {
+    (d.abs() * 2.0).ceil() / 2.0
 }
 
 async fn run_experiment(
@@ -156,14 +199,20 @@ pub async fn run(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
     tokio::time::sleep(Duration::from_millis(200)).await;
     let u = a.scale.unit.clone();
     let resolution = 1.0 / a.scale.counts_per_unit;
+    // Identification starts with the breakaway ramps: the suggestion's minimum duty must come
+    // from the measured breakaway, never from the sliding-friction offset alone.
+    let ramps = if args.step == TuneStep::Identify {
+        let rb = ExperimentBounds { travel: 10.0, seconds: 15.0 };
+        let f = run_experiment(axis, breakaway_ramp(1, a.controller.max_duty), rb).await?;
+        let r = run_experiment(axis, breakaway_ramp(-1, a.controller.max_duty), rb).await?;
+        Some((f, r))
+    } else {
+        None
+    };
     let mut runs = vec![run_experiment(axis, spec.clone(), bounds).await?];
     if args.step == TuneStep::Breakaway {
         // The other direction, from where the first ramp left the axis.
-        let ExperimentSpec::BreakawayRamp { rate, max_duty, motion_counts, .. } = spec else {
-            unreachable!("planned as a ramp")
-        };
-        let back = ExperimentSpec::BreakawayRamp { direction: -1, rate, max_duty, motion_counts };
-        runs.push(run_experiment(axis, back, bounds).await?);
+        runs.push(run_experiment(axis, breakaway_ramp(-1, a.controller.max_duty), bounds).await?);
     }
     let r = &runs[0];
     if let Some(why) = &r.aborted {
@@ -206,29 +255,46 @@ pub async fn run(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
             }
         }
         TuneStep::Breakaway => {
-            let fwd = runs[0].moved_at_duty;
-            let rev = runs.get(1).and_then(|r| r.moved_at_duty);
-            match (fwd, rev) {
-                (Some(f), Some(r)) => {
-                    let up = |d: f64| (d.abs() * 2.0).ceil() / 2.0;
-                    patch_text =
-                        format!("min_duty_forward = {}\nmin_duty_reverse = {}\n", up(f), up(r));
+            let fwd = breakaway_of(&runs[0], resolution);
+            let rev =
+                runs.get(1).map_or(Err("not run".to_owned()), |r| breakaway_of(r, resolution));
+            match (&fwd, &rev) {
+                (Ok(f), Ok(r)) => {
+                    let (f, r) = (f.duty_pct, r.duty_pct);
+                    patch_text = format!(
+                        "min_duty_forward = {}\nmin_duty_reverse = {}\n",
+                        round_up_half(f),
+                        round_up_half(r)
+                    );
                     (
                         true,
                         format!(
-                            "{}: breaks away at {f:+.1} % forwards and {r:+.1} % in reverse",
+                            "{}: breaks away at {f:+.2} % forwards and {r:+.2} % in reverse \
+                             (duty at the first count of motion, confirmed by the velocity)",
                             a.name
                         ),
                         serde_json::json!({ "forward_pct": f, "reverse_pct": r }),
                     )
                 }
-                _ => (
-                    false,
-                    format!(
-                    "{}: did not move within the ramp (forwards {fwd:?}, reverse {rev:?}): check \
-                     motor power, the driver enable and the wiring", a.name),
-                    serde_json::json!({ "forward_pct": fwd, "reverse_pct": rev }),
-                ),
+                _ => {
+                    let say = |b: &Result<ident::Breakaway, String>| {
+                        b.as_ref().map_or_else(|e| e.clone(), |b| format!("{:+.2} %", b.duty_pct))
+                    };
+                    (
+                        false,
+                        format!(
+                            "{}: no breakaway within the ramp (forwards: {}, reverse: {}): check \
+                             motor power, the driver enable and the wiring",
+                            a.name,
+                            say(&fwd),
+                            say(&rev)
+                        ),
+                        serde_json::json!({
+                            "forward_pct": fwd.as_ref().ok().map(|b| b.duty_pct),
+                            "reverse_pct": rev.as_ref().ok().map(|b| b.duty_pct),
+                        }),
+                    )
+                }
             }
         }
         TuneStep::Identify => {
@@ -237,6 +303,15 @@ pub async fn run(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
                 ident::identify(&samples, &opts).map_err(|e| format!("identification: {e}"))?;
             let mut so = suggest::SimcOptions::new(1.0 / f64::from(a.board.tick_hz));
             so.resolution = Some(resolution);
+            let (bf, br) = ramps.as_ref().map_or((None, None), |(f, r)| {
+                (breakaway_of(f, resolution).ok(), breakaway_of(r, resolution).ok())
+            });
+            // Never below the measured breakaway; without it, never below the configured
+            // minimum duty (which a breakaway test or a person set).
+            so.breakaway_forward_pct =
+                Some(bf.map_or(a.controller.min_duty_forward, |b| round_up_half(b.duty_pct)));
+            so.breakaway_reverse_pct =
+                Some(br.map_or(a.controller.min_duty_reverse, |b| round_up_half(b.duty_pct)));
             let s = suggest::simc(&id.model, &a.controller, &so).map_err(|e| e.to_string())?;
             let m = id.model;
             let text = format!(
@@ -254,21 +329,43 @@ pub async fn run(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
         TuneStep::Relay => {
             let t: Vec<f64> = r.samples.iter().map(|s| s.t).collect();
             let y: Vec<f64> = r.samples.iter().map(|s| s.position).collect();
+            let duty: Vec<f64> = r.samples.iter().map(|s| s.duty).collect();
             let ExperimentSpec::Relay { amplitude, hysteresis, .. } = spec else {
                 unreachable!("planned as a relay")
             };
             let opts = relay::RelayOptions {
-                amplitude,
                 hysteresis,
+                resolution: Some(resolution),
+                friction_pct: args.friction.unwrap_or(0.0),
                 ..relay::RelayOptions::ideal(amplitude)
             };
-            let rr = relay::analyze_relay(&t, &y, &opts).map_err(|e| format!("relay: {e}"))?;
-            let s = suggest::from_relay(&rr, rules::Rule::TyreusLuybenPid, &a.controller, 10.0)
+            let rr =
+                relay::analyze_relay(&t, &y, &duty, &opts).map_err(|e| format!("relay: {e}"))?;
+            let s = suggest::from_relay(&rr, suggest::RelayDesign::default(), &a.controller, 10.0)
                 .map_err(|e| e.to_string())?;
-            let text = format!(
-                "{}: oscillation ±{:.4} {u}, period {:.4} s → Ku {:.2} %/{u}, Tu {:.4} s\n{}",
-                a.name, rr.amplitude, rr.period_s, rr.ultimate_gain, rr.period_s, s.method
+            let p = rr.point;
+            let mut text = format!(
+                "{}: oscillation ±{:.4} {u}, period {:.4} s over {} cycles → |G| {:.5} {u}/% at \
+                 phase {:.1}° (ω {:.1} rad/s){}\n{}",
+                a.name,
+                rr.amplitude,
+                rr.period_s,
+                rr.cycles,
+                p.gain,
+                p.phase_deg,
+                p.omega_rad_s,
+                rr.ultimate.map_or(String::new(), |x| format!(
+                    "; ultimate point: Ku {:.2} %/{u}, Tu {:.4} s",
+                    x.ku, x.tu_s
+                )),
+                s.method
             );
+            if args.friction.is_none() {
+                text.push_str(
+                    "\n  note: sliding friction not corrected (pass --friction PCT, the offset \
+                     `tune identify` reports): the gain reads low at small duties",
+                );
+            }
             patch_text = s.patch.to_toml_lines();
             let extra = serde_json::to_value(rr).unwrap_or_default();
             suggestion = Some(s);

@@ -314,25 +314,34 @@ pub fn prepare(
     Ok((cfg, source, rt))
 }
 
-/// Loads the configuration, starts the machine with its recorder on a current-thread
-/// runtime, runs `body`, and always shuts the machine down (motors off).
+/// Loads the configuration, starts the machine with its recorder on the engine's own thread
+/// ([`crate::engine::EngineThread`]), runs `body` on this thread's runtime (so whatever the
+/// command does — waiting, analysis, printing, files — never holds up an axis loop), and
+/// always shuts the machine down (motors off). An axis task that ended while the machine
+/// ran, or one that did not stop at shutdown, is a failure.
 ///
 /// # Errors
-/// [`Failure`] from loading, starting, or `body`.
+/// [`Failure`] from loading, starting, `body`, or the shutdown report.
 pub fn with_machine<F, Fut>(args: &MachineArgs, body: F) -> Result<u8, Failure>
 where
     F: FnOnce(crate::engine::MachineHandle) -> Fut,
     Fut: std::future::Future<Output = Result<u8, Failure>>,
 {
+    use crate::engine::{EngineStartError, EngineThread};
     let (cfg, source, rt) = prepare(args.config.as_deref())?;
-    rt.block_on(async {
-        // Before the machine starts: a signal during link-up must not kill the process.
-        let mut signals = crate::signals::Signals::install()
-            .map_err(|e| Failure::Machine(format!("cannot watch for signals: {e}")))?;
-        let paths = crate::engine::recorder::RecorderPaths::resolve(&cfg, &source);
-        let machine = crate::engine::Machine::start_with(&cfg, &args.ports, Some(paths))?;
-        let h = machine.handle();
-        let result = tokio::select! {
+    // Before the machine starts: a signal during link-up must not kill the process.
+    let mut signals = rt
+        .block_on(async { crate::signals::Signals::install() })
+        .map_err(|e| Failure::Machine(format!("cannot watch for signals: {e}")))?;
+    let paths = crate::engine::recorder::RecorderPaths::resolve(&cfg, &source);
+    let engine =
+        EngineThread::start(cfg, args.ports.clone(), Some(paths)).map_err(|e| match e {
+            EngineStartError::Start(s) => Failure::Start(s),
+            e @ EngineStartError::Os(_) => Failure::Machine(e.to_string()),
+        })?;
+    let h = engine.handle().clone();
+    let result = rt.block_on(async {
+        tokio::select! {
             r = body(h.clone()) => r,
             sig = signals.recv() => {
                 h.emit(crate::engine::events::EventKind::Interrupted {
@@ -340,10 +349,20 @@ where
                 });
                 Err(Failure::Interrupted(sig))
             }
-        };
-        machine.shutdown().await;
-        result
-    })
+        }
+    });
+    let report = engine.shutdown();
+    if report.is_clean() {
+        return result;
+    }
+    match result {
+        Ok(_) => Err(Failure::Machine(report.to_string())),
+        Err(e) => {
+            // The command's own failure is the one reported; this is what shutdown found.
+            eprintln!("servotty: {report}");
+            Err(e)
+        }
+    }
 }
 
 #[cfg(test)]

@@ -34,6 +34,10 @@ pub struct TuneArgs {
     /// Duty for `direction` and `relay`, % (default 30).
     #[arg(long)]
     pub duty: Option<f64>,
+    /// Relay: the sliding-friction offset to correct for, % (the `u0` that `tune identify`
+    /// reports; default: none).
+    #[arg(long, value_name = "PCT")]
+    pub friction: Option<f64>,
     /// Step size for `step`, axis units (default 5).
     #[arg(long)]
     pub size: Option<f64>,
@@ -62,6 +66,7 @@ impl TuneArgs {
             duty: self.duty,
             size: self.size,
             out_dir: self.out.clone(),
+            friction: self.friction,
         }
     }
 }

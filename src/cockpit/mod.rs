@@ -10,14 +10,13 @@
 //! - [`gain_edit`], [`save`]: checking a typed gain; saving gains into the file atomically.
 //! - [`ui`]: drawing, a pure function of the state.
 //! - [`runner`]: the event loop; [`port`]: the trait the loop needs from a machine.
-//! - [`terminal`], [`logging`], [`engine_thread`]: terminal lifecycle, the log file, and
-//!   running the machine on its own thread.
+//! - [`terminal`], [`logging`]: terminal lifecycle and the log file (the machine runs on
+//!   the engine's own thread, `engine::thread`).
 //!
 //! [`run`] is what `servotty` and `servotty cockpit` call.
 
 pub mod action;
 pub mod app;
-pub mod engine_thread;
 pub mod event_log;
 pub mod format;
 pub mod gain_edit;
@@ -40,10 +39,9 @@ pub use theme::Theme;
 
 use crate::config::MachineConfig;
 use crate::engine::events::EventKind;
-use crate::engine::{MachineHandle, PortOverride};
+use crate::engine::{EngineStartError, EngineThread, MachineHandle, PortOverride};
 use crate::process::{EXIT_FAILED, EXIT_OK, EXIT_USAGE};
 use crate::signals::{Interrupt, Signals};
-use engine_thread::{EngineStartError, EngineThread};
 
 /// Opens the cockpit on the machine in `config` (the built-in demo when `None`), with the
 /// axes in `ports` on serial devices; returns the process exit code.

@@ -82,6 +82,12 @@ pub enum EventKind {
         /// `SIGINT`, `SIGTERM` or `SIGHUP`.
         signal: String,
     },
+    /// An axis task ended (returned or panicked) while the machine was running: the axis is
+    /// offline until the machine restarts, and its board's watchdog turns its motor off.
+    AxisEnded {
+        /// Why, in words.
+        reason: String,
+    },
 }
 
 impl Event {
@@ -107,6 +113,7 @@ impl Event {
             EventKind::Notice { text } => text.clone(),
             EventKind::Capture { path } => format!("capture written: {path}"),
             EventKind::Interrupted { signal } => format!("interrupted by {signal}: motors off"),
+            EventKind::AxisEnded { reason } => format!("AXIS TASK ENDED: {reason}"),
         };
         let clock = self.time.get(11..19).unwrap_or("");
         format!("{clock} {who}: {what}")

@@ -61,8 +61,64 @@ pub enum StartError {
 pub struct Machine {
     handle: MachineHandle,
     shutdown: watch::Sender<bool>,
-    tasks: JoinSet<()>,
+    tasks: JoinSet<TaskEnd>,
+    /// Names of the axis tasks still running (in configuration order).
+    running: Vec<String>,
     sims: Vec<(String, SimBoardHandle)>,
+}
+
+/// How one of the machine's tasks ended.
+enum TaskEnd {
+    /// An axis task; `failure` says why it ended before shutdown asked it to.
+    Axis { name: String, failure: Option<String> },
+    /// The recorder.
+    Recorder,
+}
+
+/// What [`Machine::shutdown_within`] found.
+#[derive(Debug, Clone, Default, PartialEq, Eq)]
+pub struct ShutdownReport {
+    /// Axes whose task did not end within the limit (their boards' watchdogs take over).
+    pub not_stopped: Vec<String>,
+    /// Axes whose task had ended on its own (returned or panicked), with the reason.
+    pub ended_early: Vec<(String, String)>,
+    /// The engine itself failed (its thread panicked or ended before reporting).
+    pub engine: Option<String>,
+}
+
+impl ShutdownReport {
+    /// A report for an engine that could not report for itself.
+    pub fn engine_failed(why: &str) -> Self {
+        Self { engine: Some(why.to_owned()), ..Self::default() }
+    }
+
+    /// True when every axis task stopped when asked and none had ended before.
+    pub fn is_clean(&self) -> bool {
+        self.not_stopped.is_empty() && self.ended_early.is_empty() && self.engine.is_none()
+    }
+}
+
+impl std::fmt::Display for ShutdownReport {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        let mut parts = Vec::new();
+        if let Some(e) = &self.engine {
+            parts.push(format!("{e}; the boards' watchdogs turn the motors off"));
+        }
+        if !self.not_stopped.is_empty() {
+            parts.push(format!(
+                "axis {} did not stop in time; its board's watchdog turns the motor off",
+                self.not_stopped.join(", ")
+            ));
+        }
+        for (axis, why) in &self.ended_early {
+            parts.push(format!("axis {axis} had stopped working: {why}"));
+        }
+        if parts.is_empty() {
+            f.write_str("every axis stopped")
+        } else {
+            f.write_str(&parts.join("; "))
+        }
+    }
 }
 
 /// A cloneable way to command the whole machine.
@@ -112,13 +168,8 @@ impl Machine {
                 });
             }
         }
-        let category = cfg.machine.stop_category;
-        let (stop_tx, _) = watch::channel(StopAll { latched: false, category });
-        let (shutdown_tx, _) = watch::channel(false);
-        let (events_tx, events_rx) = broadcast::channel(EVENT_BUFFER);
-        let mut tasks = JoinSet::new();
-        let mut handles = Vec::new();
         let mut sims = Vec::new();
+        let mut links = Vec::new();
         for (i, axis) in cfg.axes.iter().enumerate() {
             let connector = if let Some(p) = ports.iter().find(|p| p.axis == axis.name) {
                 let baud = match &axis.transport {
@@ -139,6 +190,31 @@ impl Machine {
                     }
                 }
             };
+            links.push(connector);
+        }
+        let mut m = Self::start_links(cfg, links, recorder);
+        m.sims = sims;
+        Ok(m)
+    }
+
+    /// Starts the machine on links made elsewhere, one per configured axis in order (tests
+    /// hand in boards that run on another thread). Must run inside a tokio runtime.
+    ///
+    /// # Panics
+    /// When `links` does not hold exactly one link per configured axis.
+    pub fn start_links(
+        cfg: &MachineConfig,
+        links: Vec<Connector>,
+        recorder: Option<RecorderPaths>,
+    ) -> Self {
+        assert_eq!(links.len(), cfg.axes.len(), "one link per configured axis");
+        let category = cfg.machine.stop_category;
+        let (stop_tx, _) = watch::channel(StopAll { latched: false, category });
+        let (shutdown_tx, _) = watch::channel(false);
+        let (events_tx, events_rx) = broadcast::channel(EVENT_BUFFER);
+        let mut tasks = JoinSet::new();
+        let mut handles = Vec::new();
+        for (axis, connector) in cfg.axes.iter().zip(links) {
             let (cmd_tx, cmd_rx) = mpsc::channel(COMMAND_QUEUE);
             let (snap_tx, snap_rx) =
                 watch::channel(AxisSnapshot::offline(&axis.name, &axis.scale.unit));
@@ -146,28 +222,39 @@ impl Machine {
                 commands: cmd_rx,
                 stop_all: stop_tx.subscribe(),
                 shutdown: shutdown_tx.subscribe(),
-                snapshots: snap_tx,
+                snapshots: snap_tx.clone(),
                 events: events_tx.clone(),
                 history_seconds: cfg.machine.capture_seconds,
             };
-            tasks.spawn(AxisTask::new(axis.clone(), connector, wiring).run());
+            let run = AxisTask::new(axis.clone(), connector, wiring).run();
+            tasks.spawn(guarded(
+                axis.name.clone(),
+                run,
+                snap_tx,
+                events_tx.clone(),
+                shutdown_tx.subscribe(),
+            ));
             handles.push(AxisHandle::new(&axis.name, cmd_tx, snap_rx));
         }
         let axes: Arc<[AxisHandle]> = handles.into();
         let config = Arc::new(cfg.clone());
         if let Some(paths) = &recorder {
-            tasks.spawn(crate::engine::recorder::run(
+            let rec = crate::engine::recorder::run(
                 paths.clone(),
                 events_rx,
                 events_tx.clone(),
                 axes.clone(),
                 config.clone(),
                 shutdown_tx.subscribe(),
-            ));
+            );
+            tasks.spawn(async move {
+                rec.await;
+                TaskEnd::Recorder
+            });
         } else {
             drop(events_rx);
         }
-        Ok(Self {
+        Self {
             handle: MachineHandle {
                 axes,
                 stop: Arc::new(stop_tx),
@@ -177,8 +264,9 @@ impl Machine {
             },
             shutdown: shutdown_tx,
             tasks,
-            sims,
-        })
+            running: cfg.axes.iter().map(|a| a.name.clone()).collect(),
+            sims: Vec::new(),
+        }
     }
 
     /// A handle for commands and snapshots.
@@ -192,10 +280,79 @@ impl Machine {
     }
 
     /// Turns every motor off, ends every axis task and waits for them.
-    pub async fn shutdown(mut self) {
-        let _ = self.shutdown.send(true);
-        while self.tasks.join_next().await.is_some() {}
+    pub async fn shutdown(self) -> ShutdownReport {
+        self.shutdown_within(Duration::MAX).await
     }
+
+    /// Turns every motor off and ends every axis task, waiting at most `limit`; tasks still
+    /// running then are aborted (their boards' watchdogs turn the motors off) and named in
+    /// the report, as are axes whose task had ended on its own.
+    pub async fn shutdown_within(mut self, limit: Duration) -> ShutdownReport {
+        let _ = self.shutdown.send(true);
+        let mut report = ShutdownReport::default();
+        let deadline = tokio::time::Instant::now().checked_add(limit);
+        loop {
+            let next = match deadline {
+                Some(d) => match tokio::time::timeout_at(d, self.tasks.join_next()).await {
+                    Ok(n) => n,
+                    Err(_) => break,
+                },
+                None => self.tasks.join_next().await,
+            };
+            match next {
+                None => break,
+                Some(Ok(TaskEnd::Axis { name, failure })) => {
+                    self.running.retain(|n| *n != name);
+                    if let Some(why) = failure {
+                        report.ended_early.push((name, why));
+                    }
+                }
+                Some(Ok(TaskEnd::Recorder)) => {}
+                Some(Err(e)) => tracing::error!(error = %e, "a machine task failed"),
+            }
+        }
+        report.not_stopped = std::mem::take(&mut self.running);
+        self.tasks.abort_all();
+        report
+    }
+}
+
+/// Runs one axis task; if it ends before shutdown (it returned, or it panicked), publishes
+/// the axis as offline with the reason and sends an event, so the machine can report it.
+async fn guarded(
+    name: String,
+    run: impl std::future::Future<Output = ()>,
+    snapshots: watch::Sender<AxisSnapshot>,
+    events: broadcast::Sender<Event>,
+    shutdown: watch::Receiver<bool>,
+) -> TaskEnd {
+    use futures::FutureExt;
+    let outcome = std::panic::AssertUnwindSafe(run).catch_unwind().await;
+    let reason = match outcome {
+        Ok(()) if *shutdown.borrow() => return TaskEnd::Axis { name, failure: None },
+        Ok(()) => "the axis task ended by itself".to_owned(),
+        Err(panic) => {
+            let what = panic
+                .downcast_ref::<&str>()
+                .map(|s| (*s).to_owned())
+                .or_else(|| panic.downcast_ref::<String>().cloned())
+                .unwrap_or_else(|| "no message".to_owned());
+            format!("the axis task panicked ({what})")
+        }
+    };
+    tracing::error!(axis = %name, %reason, "axis task ended");
+    let text: Arc<str> = Arc::from(format!("{reason}; restart servotty").as_str());
+    snapshots.send_modify(|s| {
+        s.state = AxisState::Offline;
+        s.link_error = Some(text.clone());
+        s.ended = Some(text.clone());
+    });
+    let _ = events.send(Event::now(
+        Some(Arc::from(name.as_str())),
+        None,
+        EventKind::AxisEnded { reason: reason.clone() },
+    ));
+    TaskEnd::Axis { name, failure: Some(reason) }
 }
 
 impl MachineHandle {
@@ -311,6 +468,15 @@ impl MachineHandle {
     /// Every axis's latest snapshot.
     pub fn snapshots(&self) -> Vec<AxisSnapshot> {
         self.axes.iter().map(AxisHandle::snapshot).collect()
+    }
+
+    /// Axes whose task has ended while the machine runs, with the reason. Such an axis stays
+    /// offline; a front end should say so and end with a failure.
+    pub fn ended(&self) -> Vec<(String, String)> {
+        self.axes
+            .iter()
+            .filter_map(|a| a.snapshot().ended.map(|why| (a.name().to_owned(), why.to_string())))
+            .collect()
     }
 
     /// Why an axis has no link, in words: the open error if there was one.

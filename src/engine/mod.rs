@@ -11,6 +11,7 @@
 //! - [`history`]: the full-rate history ring kept for trip captures.
 //! - [`events`]: state changes, trips, operator actions, link changes.
 //! - [`recorder`]: writes the event log and trip captures.
+//! - [`thread`]: the engine's own thread and runtime, which every front end uses.
 
 pub mod axis;
 pub mod events;
@@ -23,9 +24,11 @@ pub mod recorder;
 pub mod refusal;
 pub mod snapshot;
 pub mod supervisor;
+pub mod thread;
 
 pub use axis::{AxisCommand, AxisHandle, CommandError, Reply, StopAll};
 pub use events::{Event, EventKind};
-pub use machine::{Machine, MachineHandle, PortOverride, StartError};
+pub use machine::{Machine, MachineHandle, PortOverride, ShutdownReport, StartError};
 pub use refusal::{Asked, Refusal};
 pub use snapshot::{AxisSnapshot, AxisState, LinkStats, Trip, TripCause};
+pub use thread::{EngineStartError, EngineThread};

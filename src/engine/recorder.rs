@@ -1,8 +1,9 @@
 //! The recorder: writes every event to the event log (JSON lines) and, on every trip, a
 //! capture of all axes' recent full-rate history (CSV with a commented header).
 //!
-//! It runs as its own task, fed by the event broadcast, so file I/O never touches an axis
-//! task. Captures are written atomically (temporary file in the same folder, then rename):
+//! It runs as its own task on the engine's thread, fed by the event broadcast; it only
+//! gathers and waits. Formatting and file I/O go to the blocking pool, so neither touches an
+//! axis task nor the thread the axis tasks run on. Captures are written atomically (temporary file in the same folder, then rename):
 //! a reader never sees half a file.
 
 use std::fmt::Write as _;
@@ -162,11 +163,15 @@ pub async fn capture(
             rows.push((a.name().to_owned(), h));
         }
     }
-    let text = capture_text(tripped_axis, trip, &rows, cfg);
     let stamp = rfc3339_utc(std::time::SystemTime::now()).replace([':', '.'], "-");
     let name = format!("capture-{stamp}-{tripped_axis}-{:?}.csv", trip.cause).to_lowercase();
     let dir = dir.to_path_buf();
+    let (tripped_axis, trip, cfg) = (tripped_axis.to_owned(), trip.clone(), cfg.clone());
+    // Formatting 8 axes × 10 s of rows is megabytes of text and tens of milliseconds (more
+    // on a small computer): on the engine's thread it would starve every axis loop past its
+    // board's watchdog. The blocking pool formats and writes; this task only waits.
     tokio::task::spawn_blocking(move || {
+        let text = capture_text(&tripped_axis, &trip, &rows, &cfg);
         std::fs::create_dir_all(&dir)?;
         write_atomically(&dir, &name, text.as_bytes())
     })

@@ -183,6 +183,8 @@ pub struct AxisSnapshot {
     pub link: LinkStats,
     /// Why the link could not be opened last time (missing device, permission…), while offline.
     pub link_error: Option<Arc<str>>,
+    /// Why the axis task ended, if it did: the axis stays offline until the machine restarts.
+    pub ended: Option<Arc<str>>,
     /// Board time of the latest frame, s.
     pub board_time_s: f64,
     /// True while stop-all is latched for this axis.
@@ -215,6 +217,7 @@ impl AxisSnapshot {
             trip: None,
             link: LinkStats::default(),
             link_error: None,
+            ended: None,
             board_time_s: 0.0,
             stop_latched: false,
             in_position: false,

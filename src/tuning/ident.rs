@@ -354,10 +354,20 @@ pub struct Breakaway {
     pub t: f64,
 }
 
+/// Time within which the second count must follow the first for the motion to count as
+/// breakaway (the velocity criterion of [`breakaway`]), s.
+pub const BREAKAWAY_CONFIRM_S: f64 = 0.05;
+
 /// Breakaway duty from a slow duty ramp in one direction that starts at rest: the duty
-/// applied during the interval in which the position first changed by at least half the
-/// resolution. An upper bound, too high by the ramp rate times the time the axis needs to
+/// applied during the interval in which the position first changed by one count, provided
+/// the motion goes on: a second count in the same direction within [`BREAKAWAY_CONFIRM_S`]
+/// (a velocity of at least one count per that time) and no return to the start in between.
+/// A count that flickers back (an encoder resting on an edge) or a creep slower than that is
+/// not breakaway. An upper bound, too high by the ramp rate times the time the axis needs to
 /// move one count after breaking away (a few ms on the demo axes): ramp slowly, e.g. 5 %/s.
+///
+/// This is the one breakaway analysis: `tune breakaway`, `tune identify`, the cockpit and
+/// docs/tuning.md all use it.
 ///
 /// # Errors
 /// Fewer than 20 samples, bad numbers, no motion, or motion against the duty.
@@ -367,8 +377,31 @@ pub fn breakaway(samples: &[DutySample], resolution: Option<f64>) -> Result<Brea
     let q = resolution
         .filter(|r| r.is_finite() && *r > 0.0)
         .unwrap_or_else(|| estimate_resolution(samples));
-    let moved = samples.iter().position(|s| (s.position - x0).abs() >= 0.5 * q && s.position != x0);
-    let Some(k) = moved.filter(|&k| k > 0) else {
+    let away = |k: usize| (samples[k].position - x0).abs() >= 0.5 * q && samples[k].position != x0;
+    let mut from = 1;
+    let found = loop {
+        let Some(c) = (from..samples.len()).find(|&j| away(j)) else { break None };
+        let dir = (samples[c].position - x0).signum();
+        let mut j = c + 1;
+        let mut confirmed = true; // the record ending while still away counts
+        while j < samples.len() {
+            let dx = (samples[j].position - x0) * dir;
+            if dx >= 1.5 * q {
+                break;
+            }
+            // Back at the start (a flicker) or too slow (creep): not breakaway.
+            if dx < 0.5 * q || samples[j].t - samples[c].t > BREAKAWAY_CONFIRM_S {
+                confirmed = false;
+                break;
+            }
+            j += 1;
+        }
+        if confirmed {
+            break Some(c);
+        }
+        from = j.max(c + 1);
+    };
+    let Some(k) = found else {
         let span = samples.iter().map(|s| (s.position - x0).abs()).fold(0.0, f64::max);
         return Err(IdentError::NoMotion {
             span,

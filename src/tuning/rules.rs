@@ -16,9 +16,23 @@
 //!   PID `Kc = Ku/2.2`, `Ti = 2.2 Tu`, `Td = Tu/6.3`.
 //!
 //! Ziegler–Nichols aims at a quarter-amplitude decay and overshoots a lot; Tyreus–Luyben is
-//! the conservative choice (less gain, much slower integral).
+//! the conservative choice (less gain, much slower integral). Both need the *ultimate* point
+//! (phase −180°); a relay with hysteresis or friction measures another point.
+//!
+//! # A design for any measured point
+//! [`phase_margin_design`]: given one point `G(jω0) = r·e^(jγ)` of the frequency response, the
+//! PID `Kc·(1 + 1/(Ti s) + Td s)` with `Ti = α·Td` is chosen so that the loop passes through
+//! `e^(j(−180° + φm))` at ω0: gain crossover at ω0 with phase margin φm. With
+//! `ψ = −180° + φm − γ`: `Kc = cos ψ / r` and `ω0·Td − 1/(ω0·Ti) = tan ψ`, so
+//! `ω0·Td = (tan ψ + √(tan² ψ + 4/α))/2`. Source: K. J. Åström and T. Hägglund, "Automatic
+//! tuning of simple regulators with specifications on phase and amplitude margins",
+//! *Automatica* 20(5), 1984, 645–651 (phase-margin design from the relay's point, α = 4 from
+//! memory). At the ultimate point with φm = 25° it gives exactly Ziegler–Nichols' `Ti = Tu/2`
+//! and `Td = Tu/8` (checked in the tests).
 
 use serde::Serialize;
+
+use super::relay::FrequencyPoint;
 
 /// A published rule.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
@@ -131,9 +145,69 @@ pub fn from_ultimate(rule: Rule, ku: f64, tu_s: f64) -> IdealPid {
     }
 }
 
+/// Default phase margin of [`phase_margin_design`], degrees (our choice, for a well-damped
+/// step on the demo axes; see docs/tuning.md).
+pub const DEFAULT_PHASE_MARGIN_DEG: f64 = 60.0;
+
+/// Default ratio α = Ti/Td of [`phase_margin_design`].
+pub const DEFAULT_TI_TD_RATIO: f64 = 4.0;
+
+/// PID settings that put the loop through `e^(j(−180° + margin))` at the point's frequency
+/// (module docs). `None` when the point cannot be moved there by a PID (the phase to add is
+/// not within ±90°) or the numbers are not usable.
+pub fn phase_margin_design(
+    point: &FrequencyPoint,
+    margin_deg: f64,
+    alpha: f64,
+) -> Option<IdealPid> {
+    let (w, r, gamma) = (point.omega_rad_s, point.gain, point.phase_deg);
+    if !(w.is_finite() && w > 0.0 && r.is_finite() && r > 0.0 && gamma.is_finite()) {
+        return None;
+    }
+    if !(alpha.is_finite() && alpha > 0.0 && margin_deg.is_finite()) {
+        return None;
+    }
+    let psi = (-180.0 + margin_deg - gamma).to_radians();
+    if psi.abs() >= 0.5 * std::f64::consts::PI - 1e-6 {
+        return None;
+    }
+    let tp = psi.tan();
+    let wtd = 0.5 * (tp + (tp * tp + 4.0 / alpha).sqrt());
+    let td = wtd / w;
+    Some(IdealPid { kc: psi.cos() / r, ti_s: Some(alpha * td), td_s: td })
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    // The design puts C(jω0)·G(jω0) on the unit circle at −180° + φm (its definition), and
+    // at the ultimate point with φm = 25°, α = 4 it reproduces Ziegler–Nichols' integral and
+    // derivative times Ti = Tu/2, Td = Tu/8 (J. G. Ziegler and N. B. Nichols, Trans. ASME 64,
+    // 1942; the correspondence noted by Åström & Hägglund, Automatica 20(5), 1984).
+    #[test]
+    fn phase_margin_design_places_the_point() {
+        let p = FrequencyPoint { omega_rad_s: 70.0, gain: 0.0165, phase_deg: -156.0 };
+        let c = phase_margin_design(&p, 60.0, 4.0).expect("designable");
+        let (w, ti) = (p.omega_rad_s, c.ti_s.expect("PI"));
+        let (re, im) = (c.kc, c.kc * (w * c.td_s - 1.0 / (w * ti)));
+        let mag = re.hypot(im) * p.gain;
+        let phase = im.atan2(re).to_degrees() + p.phase_deg;
+        assert!((mag - 1.0).abs() < 1e-12, "{mag}");
+        assert!((phase - (-120.0)).abs() < 1e-9, "{phase}");
+        assert!((ti / c.td_s - 4.0).abs() < 1e-12);
+        let tu = 0.05;
+        let u = FrequencyPoint {
+            omega_rad_s: std::f64::consts::TAU / tu,
+            gain: 0.01,
+            phase_deg: -180.0,
+        };
+        let zn = phase_margin_design(&u, 25.0, 4.0).expect("designable");
+        // tan 25° = 0.4663 gives ω·Td = 0.7848 ≈ π/4 (Td = Tu/8 within 0.1 %).
+        assert!((zn.td_s - tu / 8.0).abs() < 1e-3 * tu, "{zn:?}");
+        assert!((zn.ti_s.expect("PI") - tu / 2.0).abs() < 1e-3 * tu, "{zn:?}");
+        assert!(phase_margin_design(&u, 100.0, 4.0).is_none());
+    }
 
     #[test]
     fn names_round_trip() {

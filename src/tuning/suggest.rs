@@ -47,15 +47,21 @@
 //! output, profile or not).
 //!
 //! # From a relay experiment
-//! [`from_relay`] applies a rule of [`super::rules`] to Ku and Tu. The relay amplitude is the
-//! raw duty swing the driver saw, so the same slope scaling applies. No feedforward: a relay
-//! experiment does not measure K or τ.
+//! [`from_relay`] designs from the point of the frequency response the relay measured
+//! ([`super::relay`]): by default the Åström–Hägglund phase-margin design
+//! ([`super::rules::phase_margin_design`]); a rule for the ultimate point (Ziegler–Nichols,
+//! Tyreus–Luyben) only when the point is the ultimate point. The relay's duty is the raw duty
+//! the driver saw, so the same slope scaling applies. No feedforward: a relay experiment does
+//! not measure K or τ.
 
 use serde::Serialize;
 
 use super::ident::VelocityModel;
 use super::relay::RelayResult;
-use super::rules::{from_ultimate, IdealPid, Rule};
+use super::rules::{
+    from_ultimate, phase_margin_design, IdealPid, Rule, DEFAULT_PHASE_MARGIN_DEG,
+    DEFAULT_TI_TD_RATIO,
+};
 use crate::config::{ControlMode, ControllerConfig};
 
 /// Default derivative filter ratio N (`Tf = Td/N`).
@@ -335,21 +341,40 @@ pub fn simc(
     })
 }
 
-/// Gains from a relay experiment by a published rule (module docs). The minimum duty and
-/// feedforward of `base` are kept; `filter_n` sets `Tf = Td/N` (the base filter is kept when
-/// the rule has no derivative).
+/// How gains follow from a relay experiment.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum RelayDesign {
+    /// Åström–Hägglund phase-margin design at the measured point ([`phase_margin_design`]),
+    /// margin in degrees, `Ti = 4·Td`.
+    PhaseMargin(f64),
+    /// A rule stated for the ultimate point; refused when the measured point is not it.
+    Rule(Rule),
+}
+
+impl Default for RelayDesign {
+    fn default() -> Self {
+        RelayDesign::PhaseMargin(DEFAULT_PHASE_MARGIN_DEG)
+    }
+}
+
+/// Gains from a relay experiment (module docs). The minimum duty and feedforward of `base`
+/// are kept; `filter_n` sets `Tf = Td/N` (the base filter is kept when there is no
+/// derivative).
 ///
 /// # Errors
-/// A relay result that is not positive and finite, or a minimum duty at or above max_duty.
+/// A measured point that is not positive and finite, a point a PID cannot place, a rule for
+/// the ultimate point when the point measured is not it, or a minimum duty at or above
+/// max_duty.
 pub fn from_relay(
     relay: &RelayResult,
-    rule: Rule,
+    design: RelayDesign,
     base: &ControllerConfig,
     filter_n: f64,
 ) -> Result<Suggestion, SuggestError> {
-    let (ku, tu) = (relay.ultimate_gain, relay.period_s);
-    if !(ku.is_finite() && ku > 0.0 && tu.is_finite() && tu > 0.0) {
-        return Err(SuggestError::BadModel(format!("Ku = {ku}, Tu = {tu}")));
+    let p = relay.point;
+    if !(p.gain.is_finite() && p.gain > 0.0 && p.omega_rad_s.is_finite() && p.omega_rad_s > 0.0) {
+        return Err(SuggestError::BadModel(format!("measured point {p:?}")));
     }
     if !(filter_n.is_finite() && filter_n > 0.0) {
         return Err(SuggestError::BadOptions(format!("N {filter_n}")));
@@ -360,36 +385,76 @@ pub fn from_relay(
         return Err(SuggestError::NoDutyRange { min: m_f.max(m_r), max });
     }
     let slope = 0.5 * (compensation_slope(max, m_f) + compensation_slope(max, m_r));
-    let ideal = from_ultimate(rule, ku, tu);
+    let mut notes = vec![format!(
+        "relay: a = {} unit, period {} s over {} of {} cycles; measured point |G| = {} unit/%, \
+         phase {}° at ω = {} rad/s (friction offset {} % corrected; uncorrected |G| {}, {}°; \
+         the describing function puts it at {}°)",
+        round_sig(relay.amplitude, 4),
+        round_sig(relay.period_s, 4),
+        relay.cycles,
+        relay.cycles_found,
+        round_sig(p.gain, 4),
+        round_sig(p.phase_deg, 4),
+        round_sig(p.omega_rad_s, 4),
+        round_sig(relay.friction_pct, 3),
+        round_sig(relay.point_uncorrected.gain, 4),
+        round_sig(relay.point_uncorrected.phase_deg, 4),
+        round_sig(relay.describing_function_phase_deg, 4),
+    )];
+    let (ideal, method) = match design {
+        RelayDesign::PhaseMargin(margin) => {
+            let ideal = phase_margin_design(&p, margin, DEFAULT_TI_TD_RATIO).ok_or_else(|| {
+                SuggestError::BadModel(format!(
+                    "a PID cannot move the point at {}° to a {margin}° phase margin",
+                    round_sig(p.phase_deg, 3)
+                ))
+            })?;
+            notes.push(format!(
+                "phase-margin design: crossover at ω = {} rad/s with {margin}° margin, Ti = 4 Td: \
+                 Kc = {} %/unit, Ti = {} s, Td = {} s (ideal form)",
+                round_sig(p.omega_rad_s, 4),
+                round_sig(ideal.kc, 4),
+                round_sig(ideal.ti_s.unwrap_or(0.0), 4),
+                round_sig(ideal.td_s, 4)
+            ));
+            (
+                ideal,
+                format!(
+                    "relay point with phase-margin design, {margin}° (Åström & Hägglund, \
+                     Automatica 20(5), 1984)"
+                ),
+            )
+        }
+        RelayDesign::Rule(rule) => {
+            let u = relay.ultimate.ok_or_else(|| {
+                SuggestError::BadModel(format!(
+                    "{} needs the ultimate point (−180°); the relay measured {}°: use the \
+                     phase-margin design",
+                    rule.name(),
+                    round_sig(p.phase_deg, 3)
+                ))
+            })?;
+            let ideal = from_ultimate(rule, u.ku, u.tu_s);
+            notes.push(format!(
+                "{}: Ku = {} %/unit, Tu = {} s → Kc = {} %/unit, Ti = {}, Td = {} s (ideal form)",
+                rule.name(),
+                round_sig(u.ku, 4),
+                round_sig(u.tu_s, 4),
+                round_sig(ideal.kc, 4),
+                ideal.ti_s.map_or("none".to_owned(), |t| format!("{} s", round_sig(t, 4))),
+                round_sig(ideal.td_s, 4)
+            ));
+            (ideal, format!("relay ultimate point, {}", rule.source()))
+        }
+    };
     let g = ideal.to_parallel();
     let tf = if ideal.td_s > 0.0 { ideal.td_s / filter_n } else { base.derivative_filter_s };
-    let notes = vec![
-        format!(
-            "relay: a = {} unit, period {} s over {} cycles → Ku = 4d/(π a) = {} %/unit, \
-             Tu = {} s",
-            round_sig(relay.amplitude, 4),
-            round_sig(relay.period_s, 4),
-            relay.cycles,
-            round_sig(ku, 4),
-            round_sig(tu, 4)
-        ),
-        format!(
-            "{}: Kc = {} %/unit, Ti = {}, Td = {} s (ideal form)",
-            rule.name(),
-            round_sig(ideal.kc, 4),
-            ideal.ti_s.map_or("none".to_owned(), |t| format!("{} s", round_sig(t, 4))),
-            round_sig(ideal.td_s, 4)
-        ),
-        format!(
-            "parallel: kp = Kc, ki = Kc/Ti, kd = Kc·Td, each divided by the minimum-duty slope {}",
-            round_sig(slope, 3)
-        ),
-    ];
+    notes.push(format!(
+        "parallel: kp = Kc, ki = Kc/Ti, kd = Kc·Td, each divided by the minimum-duty slope {}",
+        round_sig(slope, 3)
+    ));
     Ok(Suggestion {
-        method: format!(
-            "relay feedback (Åström & Hägglund, Automatica 20(5), 1984), {}",
-            rule.source()
-        ),
+        method,
         patch: ControllerPatch {
             kp: g.kp / slope,
             ki: g.ki / slope,

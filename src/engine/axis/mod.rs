@@ -99,6 +99,23 @@ pub struct AxisWiring {
     pub history_seconds: f64,
 }
 
+/// Writes all of `bytes`, or fails with `TimedOut` when that takes longer than `limit`: a
+/// board that does not take its bytes in time (a wedged USB device, a full PTY nobody reads)
+/// is a lost link, and the axis must not wait on it.
+async fn write_within(
+    stream: &mut BoxStream,
+    bytes: &[u8],
+    limit: Duration,
+) -> std::io::Result<()> {
+    match tokio::time::timeout(limit, stream.write_all(bytes)).await {
+        Ok(r) => r,
+        Err(_) => Err(std::io::Error::new(
+            std::io::ErrorKind::TimedOut,
+            format!("a write to the board did not complete within {} ms", limit.as_millis()),
+        )),
+    }
+}
+
 enum SessionEnd {
     Shutdown,
     Closed(String),
@@ -108,8 +125,10 @@ enum SessionEnd {
 pub struct AxisTask {
     cfg: AxisConfig,
     name: Arc<str>,
-    connector: Connector,
+    connector: Arc<Connector>,
     wiring: AxisWiring,
+    /// Longest a write to the board may take before the link counts as lost.
+    write_timeout: Duration,
     controller: Controller,
     supervisor: Supervisor,
     state: AxisState,
@@ -172,8 +191,9 @@ impl AxisTask {
         let history = History::new(wiring.history_seconds, cfg.board.tick_hz);
         Self {
             name: Arc::from(cfg.name.as_str()),
+            write_timeout: Duration::from_secs_f64(cfg.limits.link_timeout_s),
             cfg,
-            connector,
+            connector: Arc::new(connector),
             wiring,
             controller,
             supervisor,
@@ -220,7 +240,8 @@ impl AxisTask {
     pub async fn run(mut self) {
         self.publish();
         loop {
-            match self.connector.connect() {
+            let Some(opened) = self.open_link().await else { return };
+            match opened {
                 Ok(stream) => match self.session(stream).await {
                     SessionEnd::Shutdown => return,
                     SessionEnd::Closed(why) => {
@@ -242,6 +263,28 @@ impl AxisTask {
             if self.idle(Some(RECONNECT_PAUSE)).await {
                 return;
             }
+        }
+    }
+
+    /// Opens the link on the blocking pool (opening a serial device is a blocking system call
+    /// that a confused USB device can hold up), serving nothing meanwhile but shutdown.
+    /// Returns None on shutdown.
+    async fn open_link(&mut self) -> Option<Result<BoxStream, crate::transport::TransportError>> {
+        if !self.connector.can_reconnect() {
+            // A stream handed over once: nothing to open, nothing that can block.
+            return Some(self.connector.connect());
+        }
+        let connector = Arc::clone(&self.connector);
+        let open = tokio::task::spawn_blocking(move || connector.connect());
+        tokio::select! {
+            biased;
+            _ = self.wiring.shutdown.changed() => None,
+            r = open => Some(r.unwrap_or_else(|e| {
+                Err(crate::transport::TransportError::Other {
+                    device: self.connector.describe(),
+                    message: format!("the open failed: {e}"),
+                })
+            })),
         }
     }
 
@@ -362,8 +405,8 @@ impl AxisTask {
                     }
                     // The board may have reset: ask it to start streaming again.
                     next_relink = Instant::now() + RELINK_PERIOD;
-                    if self.send_configure(&mut stream).await.is_err() {
-                        return SessionEnd::Closed("write failed".to_owned());
+                    if let Err(e) = self.send_configure(&mut stream).await {
+                        return SessionEnd::Closed(format!("write failed: {e}"));
                     }
                 }
                 n = stream.read(&mut rx) => {
@@ -417,8 +460,8 @@ impl AxisTask {
         }
         if any {
             // One answer per read: after a backlog only the newest state matters.
-            if self.write_output(stream).await.is_err() {
-                return Err(SessionEnd::Closed("write failed".to_owned()));
+            if let Err(e) = self.write_output(stream).await {
+                return Err(SessionEnd::Closed(format!("write failed: {e}")));
             }
             let took = Instant::now().saturating_duration_since(read_at);
             self.meter.turnaround(took);
@@ -432,7 +475,7 @@ impl AxisTask {
         for _attempt in 0..3 {
             self.tx.clear();
             protocol::write_frame(&HostMessage::Hello, &mut self.tx);
-            if let Err(e) = stream.write_all(&self.tx).await {
+            if let Err(e) = write_within(stream, &self.tx, self.write_timeout).await {
                 return Err(SessionEnd::Closed(e.to_string()));
             }
             let deadline = Instant::now() + HELLO_TIMEOUT;
@@ -481,7 +524,7 @@ impl AxisTask {
             },
             &mut self.tx,
         );
-        stream.write_all(&self.tx).await
+        write_within(stream, &self.tx, self.write_timeout).await
     }
 
     /// Writes Stop at once (category 0, disable, shutdown) without waiting for a frame.
@@ -490,8 +533,9 @@ impl AxisTask {
         self.host_seq = self.last.map_or(0, |t| t.seq);
         self.tx.clear();
         protocol::write_frame(&HostMessage::Stop { seq: self.host_seq }, &mut self.tx);
-        let _ = stream.write_all(&self.tx).await;
-        let _ = stream.flush().await;
+        if write_within(stream, &self.tx, self.write_timeout).await.is_ok() {
+            let _ = tokio::time::timeout(self.write_timeout, stream.flush()).await;
+        }
     }
 
     async fn write_output(&mut self, stream: &mut BoxStream) -> std::io::Result<()> {
@@ -508,7 +552,7 @@ impl AxisTask {
         };
         self.tx.clear();
         protocol::write_frame(&msg, &mut self.tx);
-        stream.write_all(&self.tx).await
+        write_within(stream, &self.tx, self.write_timeout).await
     }
 
     fn link_lost(&mut self, why: &str) {
