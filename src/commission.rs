@@ -192,8 +192,11 @@ async fn run_experiment(
 pub async fn run(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Result<Outcome, String> {
     let (spec, bounds) = plan(args, a);
     let axis = h.axis(&a.name).ok_or("no such axis")?;
-    if !axis.snapshot().state.motor_on() {
-        axis.send(AxisCommand::Enable).await.map_err(|e| e.to_string())?;
+    // A test never enables an axis behind the operator's back: the front end enables it
+    // when the operator asked for that (the CLI says so in the plan it confirms).
+    let state = axis.snapshot().state;
+    if !state.motor_on() {
+        return Err(format!("{} is {state}: enable it first, then start the test", a.name));
     }
     // Let the hold settle so the test starts from rest.
     tokio::time::sleep(Duration::from_millis(200)).await;

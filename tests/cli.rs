@@ -119,14 +119,14 @@ fn port_override_for_unknown_axis_is_a_usage_error() {
 
 #[test]
 fn move_before_homing_is_refused_with_a_reason() {
-    let out = servotty(&["move", "--to", "x=50"]);
+    let out = servotty(&["move", "--to", "x=50", "--yes"]);
     assert_eq!(out.status.code(), Some(1));
     assert!(text(&out.stderr).contains("not homed"), "{}", text(&out.stderr));
 }
 
 #[test]
 fn home_prints_json_for_every_axis() {
-    let out = servotty(&["home", "--json"]);
+    let out = servotty(&["home", "--json", "--yes"]);
     assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).expect("json");
     assert_eq!(v["ok"], true);
@@ -137,7 +137,7 @@ fn home_prints_json_for_every_axis() {
 
 #[test]
 fn move_on_the_simulated_demo_prints_json() {
-    let out = servotty(&["move", "--home", "--to", "x=50,z=-20", "--json"]);
+    let out = servotty(&["move", "--home", "--to", "x=50,z=-20", "--json", "--yes"]);
     assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).expect("json");
     assert_eq!(v["ok"], true);
@@ -149,11 +149,16 @@ fn move_on_the_simulated_demo_prints_json() {
 }
 
 #[test]
-fn tune_refuses_to_move_without_yes() {
-    let out = servotty(&["tune", "direction", "x"]);
-    assert_eq!(out.status.code(), Some(2));
-    let err = text(&out.stderr);
-    assert!(err.contains("will move up to") && err.contains("--yes"), "{err}");
+fn commands_that_move_refuse_without_yes_and_a_terminal() {
+    // With no terminal to ask on (stdin is not one here), nothing moves without --yes.
+    for args in [&["tune", "direction", "x"][..], &["home"][..], &["move", "--to", "x=5"][..]] {
+        let out = servotty(args);
+        assert_eq!(out.status.code(), Some(2), "{args:?}");
+        let err = text(&out.stderr);
+        assert!(err.contains("nothing moved") && err.contains("--yes"), "{args:?}: {err}");
+    }
+    let err = text(&servotty(&["tune", "direction", "x"]).stderr);
+    assert!(err.contains("enables axis x, which will move up to"), "{err}");
 }
 
 #[test]
@@ -179,7 +184,7 @@ fn tune_direction_and_identify_on_the_demo() {
 
 #[test]
 fn a_missing_serial_device_is_named_with_what_to_do() {
-    let out = servotty(&["home", "--port", "x=/dev/servotty-no-such-port"]);
+    let out = servotty(&["home", "--yes", "--port", "x=/dev/servotty-no-such-port"]);
     assert_eq!(out.status.code(), Some(1));
     let err = text(&out.stderr);
     assert!(err.contains("/dev/servotty-no-such-port") && err.contains("no such device"), "{err}");
@@ -188,24 +193,25 @@ fn a_missing_serial_device_is_named_with_what_to_do() {
 #[test]
 fn devices_that_are_not_serial_ports_say_where_to_look() {
     for dev in ["/dev/null", "/tmp"] {
-        let out = servotty(&["home", "--port", &format!("x={dev}")]);
+        let out = servotty(&["home", "--yes", "--port", &format!("x={dev}")]);
         assert_eq!(out.status.code(), Some(1));
         let err = text(&out.stderr);
         assert!(err.contains("not a serial device") && err.contains("/dev/serial/by-id/"), "{err}");
         assert!(!err.contains("typewriter") && !err.contains("x: x:"), "{err}");
     }
-    let out = servotty(&["home", "--port", "x=/dev/servotty-no-such-port"]);
+    let out = servotty(&["home", "--yes", "--port", "x=/dev/servotty-no-such-port"]);
     assert!(text(&out.stderr).contains("/dev/serial/by-id/"), "{}", text(&out.stderr));
 }
 
 #[test]
 fn every_json_command_prints_an_object_on_failure() {
     for args in [
-        &["move", "--to", "x=50", "--json"][..],
+        &["move", "--to", "x=50", "--json", "--yes"][..],
         &["move", "--to", "w=50", "--json"][..],
         &["linktest", "--seconds", "0.2", "--json", "--port", "x=/dev/null"][..],
         &["tune", "direction", "x", "--json"][..],
-        &["home", "--json", "--port", "x=/dev/null"][..],
+        &["home", "--json", "--yes", "--port", "x=/dev/null"][..],
+        &["home", "--json"][..],
         &["analyze", "step", "/nonexistent/step.csv", "--json"][..],
     ] {
         let out = servotty(args);

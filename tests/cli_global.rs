@@ -28,8 +28,8 @@ fn broken() -> (tempfile::TempDir, String) {
 
 /// Each machine command, with arguments that would otherwise run on the demo.
 const MACHINE_COMMANDS: &[&[&str]] = &[
-    &["home"],
-    &["move", "--to", "x=1"],
+    &["home", "--yes"],
+    &["move", "--to", "x=1", "--yes"],
     &["linktest", "--seconds", "0.1"],
     &["tune", "direction", "x", "--yes"],
     &["cockpit"],
@@ -60,10 +60,10 @@ fn config_before_or_after_the_subcommand_is_used() {
 fn port_before_or_after_the_subcommand_is_used() {
     let dev = "x=/dev/servotty-no-such-port";
     for args in [
-        &["--port", dev, "home"][..],
-        &["home", "--port", dev][..],
-        &["--port", dev, "move", "--to", "x=1"][..],
-        &["move", "--to", "x=1", "--port", dev][..],
+        &["--port", dev, "home", "--yes"][..],
+        &["home", "--yes", "--port", dev][..],
+        &["--port", dev, "move", "--yes", "--to", "x=1"][..],
+        &["move", "--to", "x=1", "--yes", "--port", dev][..],
         &["--port", dev, "linktest", "--seconds", "0.1"][..],
         &["linktest", "--seconds", "0.1", "--port", dev][..],
         &["--port", dev, "tune", "direction", "x", "--yes"][..],

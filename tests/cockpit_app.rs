@@ -326,3 +326,16 @@ fn a_commissioning_test_is_asked_for_run_and_its_gains_applied() {
     // Nothing left to apply.
     assert_eq!(app.apply(now(), Action::ApplySuggested), vec![]);
 }
+
+#[test]
+fn a_test_never_enables_an_axis_by_itself() {
+    let mut app = s::normal();
+    app.axes[0].snap.state = AxisState::Disabled;
+    app.apply(now(), Action::OpenDetail);
+    app.apply(now(), Action::Test);
+    type_text(&mut app, "i");
+    assert_eq!(app.apply(now(), Action::EntrySubmit), vec![], "no test starts");
+    let Overlay::Prompt(p) = &app.overlay else { panic!("the prompt stays open") };
+    let why = p.error.as_deref().unwrap_or_default();
+    assert!(why.contains("disabled") && why.contains("press e"), "{why}");
+}

@@ -1,6 +1,8 @@
 //! End-to-end: the real `servotty` binary on the built-in demo, driven through tmux at
-//! 80×24 exactly as an operator would, reading the state words off the captured screen.
-//! Skips (passes with a note) when tmux is not installed.
+//! 80×24 exactly as an operator would, reading the state words off the captured screen:
+//! the cockpit, and the headless commands' questions and progress on a terminal.
+//! Skips (passes with a note) when tmux is not installed, except under `CI=true`, where a
+//! missing tmux fails.
 
 use std::path::PathBuf;
 use std::process::{Command, Output};
@@ -52,8 +54,52 @@ impl Drop for Tmux {
     }
 }
 
+/// Whether tmux is here; under `CI=true` its absence is a failure, not a skip.
 fn tmux_present() -> bool {
-    Command::new("tmux").arg("-V").output().is_ok_and(|o| o.status.success())
+    let present = Command::new("tmux").arg("-V").output().is_ok_and(|o| o.status.success());
+    assert!(present || std::env::var("CI").as_deref() != Ok("true"), "CI=true but no tmux");
+    present
+}
+
+/// Starts `args` on the demo in a fresh 80×24 tmux session; the pane stays open after the
+/// command ends and shows its exit code.
+fn start(name: &str, args: &str, state: &std::path::Path) -> Tmux {
+    let bin = env!("CARGO_BIN_EXE_servotty");
+    let t = Tmux {
+        socket: format!("servotty-test-{}-{name}", std::process::id()),
+        session: name.to_owned(),
+    };
+    let cmd = format!(
+        "XDG_STATE_HOME='{}' '{bin}' {args}; echo servotty-exit=$?; sleep 600",
+        state.display()
+    );
+    let out = t.run(&["new-session", "-d", "-s", &t.session, "-x", "80", "-y", "24", &cmd]);
+    assert!(out.status.success(), "tmux new-session: {}", String::from_utf8_lossy(&out.stderr));
+    assert!(t.run(&["set-option", "-t", &t.session, "status", "off"]).status.success());
+    t
+}
+
+#[test]
+fn on_a_terminal_commands_that_move_ask_first_and_show_progress() {
+    if !tmux_present() {
+        eprintln!("tmux is not installed: skipping the terminal question test");
+        return;
+    }
+    let dir = tempfile::tempdir().expect("tempdir");
+    // No: nothing moves.
+    let t = start("ask-no", "tune direction x", dir.path());
+    t.wait_for("the question", |s| s.contains("Go ahead? [y/N]"));
+    t.keys(&["n", "Enter"]);
+    let s = t.wait_for("exit", |s| s.contains("servotty-exit="));
+    assert!(s.contains("nothing moved") && s.contains("servotty-exit=2"), "{s}");
+    drop(t);
+    // Yes: homing runs with a progress line, then the table.
+    let t = start("ask-yes", "home", dir.path());
+    t.wait_for("the question", |s| s.contains("Go ahead? [y/N]"));
+    t.keys(&["y", "Enter"]);
+    t.wait_for("progress", |s| s.lines().any(|l| l.contains("homing") && l.contains(" mm")));
+    let s = t.wait_for("exit", |s| s.contains("servotty-exit="));
+    assert!(s.contains("servotty-exit=0") && s.matches(" homed ").count() == 3, "{s}");
 }
 
 #[test]

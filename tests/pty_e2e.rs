@@ -106,7 +106,8 @@ fn binaries_sim_pty_and_move_talk_over_ttys() {
         assert!(path.starts_with("/dev/"), "{line}");
         ports.push(format!("{axis}={path}"));
     }
-    let mut args = vec!["move", "--config", cfg, "--home", "--to", "x=40,y=30,z=-10", "--json"];
+    let mut args =
+        vec!["move", "--config", cfg, "--home", "--to", "x=40,y=30,z=-10", "--json", "--yes"];
     for p in &ports {
         args.push("--port");
         args.push(p);

@@ -1,9 +1,12 @@
 //! Asking the operator before an axis moves.
 //!
-//! A command that moves an axis without `--yes` asks `[y/N]` on a terminal; with no
-//! terminal to ask on (a script, a pipe) it refuses, so nothing ever moves unconfirmed.
+//! A command that moves an axis first says what will move, then without `--yes` asks
+//! `[y/N]` on a terminal; with no terminal to ask on (a script, a pipe) it refuses, so
+//! nothing ever moves unconfirmed.
 
 use std::io::{BufRead as _, IsTerminal as _, Write as _};
+
+use crate::cli::Failure;
 
 /// The operator's answer.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -27,6 +30,24 @@ pub fn confirm(question: &str) -> Answer {
     match std::io::stdin().lock().read_line(&mut line) {
         Ok(_) if is_yes(&line) => Answer::Yes,
         _ => Answer::No,
+    }
+}
+
+/// Prints `plan` on stderr (what will move, how far) and, unless `yes`, asks to go ahead.
+///
+/// # Errors
+/// [`Failure::Usage`] when the operator says no, or there is no terminal to ask on.
+pub fn go_ahead(yes: bool, plan: &str) -> Result<(), Failure> {
+    eprintln!("servotty: {plan}");
+    if yes {
+        return Ok(());
+    }
+    match confirm("Go ahead?") {
+        Answer::Yes => Ok(()),
+        Answer::No => Err(Failure::Usage("nothing moved".to_owned())),
+        Answer::NoTerminal => Err(Failure::Usage(
+            "nothing moved; no terminal to ask on: add --yes to go ahead".to_owned(),
+        )),
     }
 }
 

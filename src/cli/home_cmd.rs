@@ -2,6 +2,7 @@
 
 use serde::Serialize;
 
+use crate::cli::progress::{self, Progress};
 use crate::cli::{emit, emit_json, Failure, HomeArgs, EXIT_FAILED, EXIT_OK};
 use crate::cockpit::format::{decimals_for, num};
 use crate::engine::{AxisCommand, MachineHandle};
@@ -66,8 +67,20 @@ pub(crate) fn resolution(h: &MachineHandle, axis: &str) -> (usize, String) {
 /// [`Failure`] when the machine cannot start; a homing failure is in the outcome (exit 1).
 pub fn run(args: &HomeArgs) -> Result<u8, Failure> {
     let json = args.json;
+    let (cfg, _) = args.machine.load()?;
+    let order: Vec<String> = cfg.homing_groups().iter().map(|g| g.join(" + ")).collect();
+    crate::cli::ask::go_ahead(
+        args.yes,
+        &format!(
+            "home: enables and homes every axis, in this order: {}.\n\
+             Each axis seeks its home switch; stop-all or Ctrl-C ends it.",
+            order.join(", then ")
+        ),
+    )?;
     crate::cli::with_machine(&args.machine, |h| async move {
+        let progress = Progress::axes(progress::wanted(json), "homing", &h, &[]);
         let out = home_all(&h).await;
+        progress.finish();
         if json {
             emit_json(&out)?;
         } else {

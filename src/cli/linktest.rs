@@ -7,6 +7,7 @@ use std::time::Duration;
 
 use serde::Serialize;
 
+use crate::cli::progress::{self, Progress};
 use crate::cli::{emit, emit_json, Failure, LinktestArgs, EXIT_OK};
 use crate::engine::link_meter::Turnaround;
 use crate::engine::{AxisCommand, MachineHandle, Reply};
@@ -109,7 +110,10 @@ pub fn run(args: &LinktestArgs) -> Result<u8, Failure> {
     }
     let (json, seconds) = (args.json, args.seconds);
     crate::cli::with_machine(&args.machine, |h| async move {
-        let out = measure(&h, seconds).await.map_err(Failure::Machine)?;
+        let p = Progress::timed(progress::wanted(json), "measuring", seconds);
+        let out = measure(&h, seconds).await;
+        p.finish();
+        let out = out.map_err(Failure::Machine)?;
         if json {
             emit_json(&out)?;
         } else {

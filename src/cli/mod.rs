@@ -20,6 +20,7 @@ pub mod home_cmd;
 pub mod linktest;
 pub mod manual;
 pub mod move_cmd;
+pub mod progress;
 pub mod sim_pty;
 pub mod tune;
 
@@ -162,6 +163,9 @@ pub struct MoveArgs {
     /// Home the axes (in the configured order) before moving.
     #[arg(long)]
     pub home: bool,
+    /// Confirm that the axes may move (asked on a terminal; required without one).
+    #[arg(long)]
+    pub yes: bool,
     /// Print one JSON object instead of a table.
     #[arg(long)]
     pub json: bool,
@@ -173,6 +177,9 @@ pub struct HomeArgs {
     /// Which machine.
     #[command(flatten)]
     pub machine: MachineArgs,
+    /// Confirm that the axes may move (asked on a terminal; required without one).
+    #[arg(long)]
+    pub yes: bool,
     /// Print one JSON object instead of a table.
     #[arg(long)]
     pub json: bool,

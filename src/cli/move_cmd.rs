@@ -4,6 +4,7 @@ use std::time::Duration;
 
 use serde::Serialize;
 
+use crate::cli::progress::{self, Progress};
 use crate::cli::{emit, emit_json, Failure, MoveArgs, Target, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
 use crate::cockpit::format::num;
 use crate::engine::{AxisCommand, AxisState, MachineHandle};
@@ -144,22 +145,38 @@ async fn start_and_wait(m: &MachineHandle, targets: &[Target]) -> Result<MoveOut
 /// # Errors
 /// [`Failure`] when the moves cannot start; a trip during a move is in the outcome (exit 1).
 pub fn run(args: &MoveArgs) -> Result<u8, Failure> {
-    if let Ok((cfg, _)) = args.machine.load() {
-        if let Some(t) = args.to.iter().find(|t| cfg.axis(&t.axis).is_none()) {
-            let known: Vec<&str> = cfg.axes.iter().map(|a| a.name.as_str()).collect();
-            return Err(Failure::Usage(format!(
-                "--to {}=…: no such axis (axes: {})",
-                t.axis,
-                known.join(", ")
-            )));
-        }
+    let (cfg, _) = args.machine.load()?;
+    if let Some(t) = args.to.iter().find(|t| cfg.axis(&t.axis).is_none()) {
+        let known: Vec<&str> = cfg.axes.iter().map(|a| a.name.as_str()).collect();
+        return Err(Failure::Usage(format!(
+            "--to {}=…: no such axis (axes: {})",
+            t.axis,
+            known.join(", ")
+        )));
     }
     let (json, home) = (args.json, args.home);
+    let targets: Vec<String> =
+        args.to.iter().map(|t| format!("{} to {}", t.axis, t.position)).collect();
+    crate::cli::ask::go_ahead(
+        args.yes,
+        &format!(
+            "move: {}enables and moves {}.",
+            if home { "homes every axis, then " } else { "" },
+            targets.join(", ")
+        ),
+    )?;
     crate::cli::with_machine(&args.machine, |h| async move {
+        let show = progress::wanted(json);
         if home {
+            let p = Progress::axes(show, "homing", &h, &[]);
             h.home(None).await?;
+            p.finish();
         }
-        let out = run_moves(&h, &args.to).await.map_err(|e| match e {
+        let names: Vec<String> = args.to.iter().map(|t| t.axis.clone()).collect();
+        let p = Progress::axes(show, "moving", &h, &names);
+        let out = run_moves(&h, &args.to).await;
+        p.finish();
+        let out = out.map_err(|e| match e {
             MoveError::UnknownAxis(_) => Failure::Usage(e.to_string()),
             MoveError::Refused(c) => Failure::Refused(c),
             MoveError::Offline(..) => Failure::Machine(e.to_string()),

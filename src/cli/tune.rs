@@ -9,6 +9,7 @@ use std::time::Duration;
 
 use clap::{Args, ValueEnum as _};
 
+use crate::cli::progress::{self, Progress};
 use crate::cli::{emit, emit_json, Failure, MachineArgs, EXIT_FAILED, EXIT_OK};
 use crate::commission::{self, StepRequest, TuneStep};
 use crate::config::AxisConfig;
@@ -93,8 +94,8 @@ pub fn run(args: &TuneArgs) -> Result<u8, Failure> {
     let (spec, bounds) = commission::plan(&args.request(), &axis_cfg);
     let u = &axis_cfg.scale.unit;
     let step = args.step.to_possible_value().map(|v| v.get_name().to_owned()).unwrap_or_default();
-    eprintln!(
-        "servotty: tune {step}: axis {} will move up to {} {u} for up to {} s, {}.\n\
+    let plan = format!(
+        "tune {step}: enables axis {}, which will move up to {} {u} for up to {} s, {}.\n\
          Stop-all, Ctrl-C, a trip or a bound ends it. The software stop is not a\n\
          safety function: keep the hardware emergency stop at hand.",
         axis_cfg.name,
@@ -102,25 +103,25 @@ pub fn run(args: &TuneArgs) -> Result<u8, Failure> {
         bounds.seconds,
         if spec.closed_loop() { "closed loop" } else { "open loop" },
     );
-    if !args.yes {
-        match crate::cli::ask::confirm("Move the axis?") {
-            crate::cli::ask::Answer::Yes => {}
-            crate::cli::ask::Answer::No => {
-                return Err(Failure::Usage("nothing moved".to_owned()));
-            }
-            crate::cli::ask::Answer::NoTerminal => {
-                return Err(Failure::Usage(
-                    "nothing moved; no terminal to ask on: add --yes to go ahead".to_owned(),
-                ));
-            }
-        }
-    }
+    crate::cli::ask::go_ahead(args.yes, &plan)?;
     let file = match &source {
         crate::config::ConfigSource::File(p) => Some(p.clone()),
         crate::config::ConfigSource::BuiltInDemo => None,
     };
     crate::cli::with_machine(&args.machine, |h| async move {
-        let out = tune(&h, args, &axis_cfg, file).await.map_err(Failure::Machine)?;
+        let what = format!(
+            "tune {}",
+            args.step.to_possible_value().map(|v| v.get_name().to_owned()).unwrap_or_default()
+        );
+        let p = Progress::axes(
+            progress::wanted(args.json),
+            &what,
+            &h,
+            std::slice::from_ref(&axis_cfg.name),
+        );
+        let out = tune(&h, args, &axis_cfg, file).await;
+        p.finish();
+        let out = out.map_err(Failure::Machine)?;
         if args.json {
             emit_json(&out)?;
         } else {
@@ -141,6 +142,12 @@ async fn tune(
     }
     if args.home {
         h.home(None).await.map_err(|e| format!("homing failed: {e}"))?;
+    }
+    // The operator confirmed a plan that says the axis is enabled.
+    if let Some(ax) = h.axis(&a.name) {
+        if !ax.snapshot().state.motor_on() {
+            ax.send(AxisCommand::Enable).await.map_err(|e| e.to_string())?;
+        }
     }
     let out = commission::run(h, a, &args.request()).await;
     let axis = h.axis(&a.name).ok_or("no such axis")?;

@@ -562,12 +562,19 @@ impl App {
             _ => return Err("type d, b, i, r or s".to_owned()),
         };
         let a = self.config.axes.get(axis).ok_or("no such axis")?.clone();
+        // Never enable an axis behind the operator's back: `e` first.
+        let state = self.axes.get(axis).map(|v| v.snap.state);
+        if let Some(state) = state.filter(|s| !s.motor_on()) {
+            return Err(format!("{} is {state}: press e to enable it first", a.name));
+        }
         let (_, bounds) = crate::commission::plan(&crate::commission::StepRequest::new(step), &a);
+        let step_word = clap::ValueEnum::to_possible_value(&step)
+            .map(|v| v.get_name().to_owned())
+            .unwrap_or_default();
         let words = format!(
-            "test {step:?}: moves up to {} {} for up to {} s (Space stops)",
+            "test {step_word}: moves up to {} {} for up to {} s (Space stops)",
             bounds.travel, a.scale.unit, bounds.seconds
-        )
-        .to_lowercase();
+        );
         let name = self.name(axis).to_owned();
         self.note(Kind::Operator, format!("{name}: {words}"));
         Ok(vec![Effect::Tune { axis, step, config: Box::new(a) }])
