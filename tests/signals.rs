@@ -26,7 +26,7 @@ fn log_text(state: &Path) -> String {
 fn interrupt_a_move(signal: &str, code: i32) {
     let state = tempfile::tempdir().expect("tempdir");
     let mut child = Command::new(env!("CARGO_BIN_EXE_servotty"))
-        .args(["move", "--home", "--to", "x=1000"])
+        .args(["move", "--home", "--to", "x=1000", "--yes"])
         .env("XDG_STATE_HOME", state.path())
         .stdout(Stdio::piped())
         .stderr(Stdio::piped())
