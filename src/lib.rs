@@ -27,5 +27,6 @@ pub mod process;
 pub mod protocol;
 pub mod signals;
 pub mod sim;
+pub mod spots;
 pub mod transport;
 pub mod tuning;

@@ -4,7 +4,8 @@ use std::time::Duration;
 
 use tokio::time::Instant;
 
-use super::{ActiveProfile, AxisCommand, AxisTask, CommandError, JogKeys, Purpose, Reply};
+use super::core::AxisCore;
+use super::{ActiveProfile, AxisCommand, CommandError, JogKeys, Purpose, Reply};
 use crate::control::{Limits, Profile};
 use crate::engine::events::EventKind;
 use crate::engine::experiment::{ExperimentBounds, ExperimentRun, ExperimentSpec};
@@ -16,11 +17,15 @@ use crate::engine::snapshot::{AxisState, TripCause};
 /// relies on the operator's key (and the deadman) to stop it.
 const UNHOMED_JOG_REACH: f64 = 1.0e6;
 
-impl AxisTask {
+impl AxisCore {
     /// Handles an operator command. Returns the answer and whether the motor must go off now.
-    pub(super) fn command(&mut self, cmd: AxisCommand) -> (Result<Reply, CommandError>, bool) {
+    pub(super) fn handle_command(
+        &mut self,
+        cmd: AxisCommand,
+        now: Instant,
+    ) -> (Result<Reply, CommandError>, bool) {
         let log = cmd.is_operator_action().then(|| cmd.words());
-        let (answer, off) = self.dispatch(cmd);
+        let (answer, off) = self.dispatch(cmd, now);
         if let Some(action) = log {
             let (accepted, reason) = match &answer {
                 Ok(_) => (true, None),
@@ -32,8 +37,8 @@ impl AxisTask {
         (answer, off)
     }
 
-    fn dispatch(&mut self, cmd: AxisCommand) -> (Result<Reply, CommandError>, bool) {
-        let latched = self.wiring.stop_all.borrow().latched;
+    fn dispatch(&mut self, cmd: AxisCommand, now: Instant) -> (Result<Reply, CommandError>, bool) {
+        let latched = self.stop.latched;
         match cmd {
             AxisCommand::Enable => match self.state {
                 AxisState::Disabled if latched => {
@@ -80,7 +85,9 @@ impl AxisTask {
             AxisCommand::ClearTrip => (self.clear_trip(), false),
             AxisCommand::Home => (self.start_homing(), false),
             AxisCommand::JogStep { distance, speed } => (self.jog_step(distance, speed), false),
-            AxisCommand::JogPulse { direction, speed } => (self.jog_pulse(direction, speed), false),
+            AxisCommand::JogPulse { direction, speed } => {
+                (self.jog_pulse(direction, speed, now), false)
+            }
             AxisCommand::JogRelease => {
                 if self.state == AxisState::Jogging {
                     self.jog = None;
@@ -93,7 +100,8 @@ impl AxisTask {
                 self.cfg.controller = c;
                 (Ok(Reply::Done), false)
             }
-            AxisCommand::LinkReport { reset } => (Ok(Reply::Link(self.meter.report(reset))), false),
+            // The link meter is the shell's: it answers link reports before they get here.
+            AxisCommand::LinkReport { .. } => (Ok(Reply::Done), false),
             AxisCommand::History => (Ok(Reply::History(self.history.to_vec())), false),
             AxisCommand::Experiment { spec, bounds } => {
                 (self.start_experiment(spec, bounds), false)
@@ -106,7 +114,7 @@ impl AxisTask {
 
     /// Applies the stop-all signal. Returns true when the motor must go off at once.
     pub(super) fn apply_stop_all(&mut self) -> bool {
-        let s = *self.wiring.stop_all.borrow_and_update();
+        let s = self.stop;
         self.event(EventKind::Operator {
             action: if s.latched {
                 format!("stop-all (category {})", s.category)
@@ -159,7 +167,7 @@ impl AxisTask {
         self.profile = Some(ActiveProfile { profile, t0: self.t, purpose });
         self.goal = profile.goal();
         self.state = AxisState::Stopping;
-        self.in_position = false;
+        self.moves.leave();
     }
 
     fn require_motion_ready(&self, asked: Asked) -> Result<(), CommandError> {
@@ -191,10 +199,8 @@ impl AxisTask {
         self.profile = Some(ActiveProfile { profile, t0: self.t, purpose: Purpose::Move });
         self.goal = goal;
         self.state = AxisState::Moving;
-        self.in_position = false;
         self.settle_since = None;
-        self.move_t0 = self.t;
-        self.move_peak_fe = 0.0;
+        self.moves.start(self.t);
     }
 
     /// The jog speed allowed now: capped before homing.
@@ -238,11 +244,15 @@ impl AxisTask {
         Ok(Reply::Done)
     }
 
-    fn jog_pulse(&mut self, direction: i8, speed: f64) -> Result<Reply, CommandError> {
+    fn jog_pulse(
+        &mut self,
+        direction: i8,
+        speed: f64,
+        now: Instant,
+    ) -> Result<Reply, CommandError> {
         if direction == 0 || !speed.is_finite() || speed <= 0.0 {
             return Err(self.refuse(Refusal::BadValue("a jog needs a direction and a speed > 0")));
         }
-        let now = Instant::now();
         let window = Duration::from_secs_f64(self.cfg.jog.repeat_window_s);
         let deadman = Duration::from_secs_f64(self.cfg.jog.deadman_s);
         let dir = f64::from(direction.signum());
@@ -265,7 +275,7 @@ impl AxisTask {
                         Some(ActiveProfile { profile, t0: self.t, purpose: Purpose::Jog });
                     self.goal = reach;
                     self.state = AxisState::Jogging;
-                    self.in_position = false;
+                    self.moves.leave();
                 }
                 self.jog =
                     Some(JogKeys { direction, first_at: j.first_at, deadman: Some(now + deadman) });
@@ -322,8 +332,7 @@ impl AxisTask {
         self.homed = false;
         self.profile = None;
         self.state = AxisState::Homing;
-        self.move_t0 = self.t;
-        self.move_peak_fe = 0.0;
+        self.moves.start(self.t);
         Ok(Reply::Done)
     }
 
@@ -346,7 +355,7 @@ impl AxisTask {
             Some(ExperimentRun::new(spec, bounds, self.position, self.count, &self.cfg.scale.unit));
         self.profile = None;
         self.state = AxisState::Testing;
-        self.in_position = false;
+        self.moves.leave();
         Ok(Reply::Done)
     }
 
@@ -364,7 +373,7 @@ impl AxisTask {
         self.supervisor.reset();
         self.state = if !self.link_up {
             AxisState::Offline
-        } else if self.wiring.stop_all.borrow().latched {
+        } else if self.stop.latched {
             AxisState::Stopped
         } else {
             AxisState::Disabled

@@ -3,7 +3,8 @@
 
 use tokio::time::Instant;
 
-use super::{ActiveProfile, AxisTask, Purpose};
+use super::core::AxisCore;
+use super::{ActiveProfile, Purpose};
 use crate::control::{Limits, Profile, Setpoint};
 use crate::engine::events::EventKind;
 use crate::engine::experiment::Drive;
@@ -20,8 +21,9 @@ const STANDSTILL_FRACTION: f64 = 0.005;
 /// Longest wait for standstill after a category 1 ramp before power is removed anyway, s.
 const STANDSTILL_WAIT_S: f64 = 0.25;
 
-impl AxisTask {
-    pub(super) fn on_telemetry(&mut self, tm: &Telemetry, now: Instant) {
+impl AxisCore {
+    /// Runs the loop for one frame; returns the ticks it accounts for by sequence number.
+    pub(super) fn on_telemetry(&mut self, tm: &Telemetry, now: Instant) -> u32 {
         let tick_s = 1.0 / f64::from(self.cfg.board.tick_hz);
         let (dt, ticks, delta) = match &self.last {
             None => (tick_s, 1u32, 0i64),
@@ -33,7 +35,6 @@ impl AxisTask {
                 (dt, ticks, delta)
             }
         };
-        self.meter.frame(ticks, self.t);
         self.last = Some(*tm);
         self.inputs = tm.inputs;
         let delta = if self.cfg.scale.invert_encoder { -delta } else { delta };
@@ -67,7 +68,7 @@ impl AxisTask {
         }
         let fe = self.setpoint.position - self.position;
         if matches!(self.state, AxisState::Moving | AxisState::Homing) {
-            self.move_peak_fe = self.move_peak_fe.max(fe.abs());
+            self.moves.observe(fe);
         }
         // Pushing into an end stop is the point of hard-stop homing, and open-loop tests
         // drive duty with no target: the following-error, stall and runaway rules would
@@ -117,6 +118,7 @@ impl AxisTask {
         if let Some(run) = self.experiment.as_mut() {
             run.record(sample);
         }
+        ticks
     }
 
     /// Feeds a running experiment. Returns the open-loop duty to apply, if it gives one.
@@ -237,9 +239,7 @@ impl AxisTask {
                 (true, Some(since)) => {
                     if self.t - since >= self.cfg.motion.in_position_dwell_s {
                         self.state = AxisState::Holding;
-                        self.in_position = true;
-                        self.moves_done += 1;
-                        self.move_settle_s = Some(self.t - self.move_t0);
+                        self.moves.arrived(self.t);
                     }
                 }
             }

@@ -8,15 +8,19 @@
 //! behind them. Snapshots go out on a `watch` and events on a `broadcast`: the task never
 //! waits for a reader.
 //!
-//! - this file: the task's state, the link (connect, handshake, read, write) and the select
-//!   loop;
-//! - [`frame`]: what happens on each telemetry frame;
-//! - [`commands`]: operator commands and stop-all;
-//! - [`handle`]: the command vocabulary and the cloneable handle.
+//! The task is two layers:
+//! - [`core`] (with [`frame`] and [`commands`]): the axis's decisions, synchronous, with the
+//!   host time passed in — no I/O, no clock, testable without a runtime;
+//! - this file, the link shell: open, handshake, read, decode, write (each write with a time
+//!   limit), relink, and publishing what the core decided;
+//! - [`move_stats`]: per-move statistics; [`handle`]: the command vocabulary and the
+//!   cloneable handle.
 
 mod commands;
+pub mod core;
 mod frame;
 pub mod handle;
+pub mod move_stats;
 
 use std::sync::Arc;
 use std::time::Duration;
@@ -26,18 +30,16 @@ use tokio::io::{AsyncReadExt, AsyncWriteExt};
 use tokio::sync::{broadcast, mpsc, watch};
 use tokio::time::Instant;
 
+pub use self::core::{AxisCore, Output};
 pub use handle::{AxisCommand, AxisHandle, CommandError, Reply, Request, StopAll};
+pub use move_stats::MoveStats;
 
 use crate::config::AxisConfig;
-use crate::control::{Controller, Profile, Setpoint};
+use crate::control::Profile;
 use crate::engine::events::{Event, EventKind};
-use crate::engine::experiment::{ExperimentResult, ExperimentRun};
-use crate::engine::history::History;
-use crate::engine::homing::HomingRun;
 use crate::engine::link_meter::LinkMeter;
-use crate::engine::snapshot::{AxisSnapshot, AxisState, Trip};
-use crate::engine::supervisor::Supervisor;
-use crate::protocol::{self, BoardMessage, FrameDecoder, HostMessage, Telemetry, PROTOCOL_VERSION};
+use crate::engine::snapshot::{AxisSnapshot, AxisState};
+use crate::protocol::{self, BoardMessage, FrameDecoder, HostMessage, PROTOCOL_VERSION};
 use crate::transport::{BoxStream, Connector};
 
 /// How long the board has to answer Hello.
@@ -121,58 +123,20 @@ enum SessionEnd {
     Closed(String),
 }
 
-/// The per-axis task's state.
+/// The per-axis task: the link shell around an [`AxisCore`].
 pub struct AxisTask {
-    cfg: AxisConfig,
-    name: Arc<str>,
+    core: AxisCore,
     connector: Arc<Connector>,
     wiring: AxisWiring,
     /// Longest a write to the board may take before the link counts as lost.
     write_timeout: Duration,
-    controller: Controller,
-    supervisor: Supervisor,
-    state: AxisState,
     published_state: AxisState,
-    trip: Option<Trip>,
-    profile: Option<ActiveProfile>,
-    setpoint: Setpoint,
-    goal: f64,
-    /// Host-side unwrapped count.
-    count: i64,
-    /// position = count / counts_per_unit + offset; homing sets the offset.
-    offset: f64,
-    homed: bool,
-    /// Set when the motor comes on (or homing ends); cleared once the position is inside the
-    /// soft limits. While set, the soft-limit rule is off so the axis can be brought back in.
-    outside_limits: bool,
-    homing: Option<HomingRun>,
-    /// Extra |duty| limit while homing pushes into an end stop, %.
-    duty_limit: Option<f64>,
-    jog: Option<JogKeys>,
-    experiment: Option<ExperimentRun>,
-    experiment_result: Option<Box<ExperimentResult>>,
-    position: f64,
-    velocity: f64,
-    t: f64,
-    inputs: u8,
-    last: Option<Telemetry>,
     last_frame_at: Option<Instant>,
-    link_up: bool,
     /// Why the last attempt to open the link failed; cleared when a link comes up.
     link_error: Option<Arc<str>>,
     /// A Configure went out: frames still queued from before it (their seq did not restart)
     /// are stale and skipped until the first fresh one.
     awaiting_fresh: bool,
-    /// Duty commanded for the interval now running, %.
-    duty: f64,
-    host_seq: u16,
-    settle_since: Option<f64>,
-    in_position: bool,
-    moves_done: u64,
-    move_t0: f64,
-    move_peak_fe: f64,
-    move_settle_s: Option<f64>,
-    history: History,
     meter: LinkMeter,
     decoder: FrameDecoder,
     tx: Vec<u8>,
@@ -181,59 +145,24 @@ pub struct AxisTask {
 impl AxisTask {
     /// A task for one axis, not yet running.
     pub fn new(cfg: AxisConfig, connector: Connector, wiring: AxisWiring) -> Self {
-        let controller = Controller::new(&cfg.controller);
-        let supervisor = Supervisor::new(
-            &cfg.limits,
-            &cfg.scale.unit,
-            cfg.scale.counts_per_unit,
-            cfg.motion.max_velocity,
-        );
-        let history = History::new(wiring.history_seconds, cfg.board.tick_hz);
+        let stop = *wiring.stop_all.borrow();
         Self {
-            name: Arc::from(cfg.name.as_str()),
             write_timeout: Duration::from_secs_f64(cfg.limits.link_timeout_s),
-            cfg,
+            core: AxisCore::new(cfg, wiring.history_seconds, stop),
             connector: Arc::new(connector),
             wiring,
-            controller,
-            supervisor,
-            state: AxisState::Offline,
             published_state: AxisState::Offline,
-            trip: None,
-            profile: None,
-            setpoint: Setpoint::default(),
-            goal: 0.0,
-            count: 0,
-            offset: 0.0,
-            homed: false,
-            outside_limits: true,
-            homing: None,
-            duty_limit: None,
-            jog: None,
-            experiment: None,
-            experiment_result: None,
-            position: 0.0,
-            velocity: 0.0,
-            t: 0.0,
-            inputs: 0,
-            last: None,
             last_frame_at: None,
-            link_up: false,
             link_error: None,
             awaiting_fresh: false,
-            duty: 0.0,
-            host_seq: 0,
-            settle_since: None,
-            in_position: false,
-            moves_done: 0,
-            move_t0: 0.0,
-            move_peak_fe: 0.0,
-            move_settle_s: None,
-            history,
             meter: LinkMeter::default(),
             decoder: FrameDecoder::new(),
             tx: Vec::with_capacity(64),
         }
+    }
+
+    fn name(&self) -> &str {
+        &self.core.config().name
     }
 
     /// Runs until shutdown. Leaves the motor off.
@@ -245,15 +174,16 @@ impl AxisTask {
                 Ok(stream) => match self.session(stream).await {
                     SessionEnd::Shutdown => return,
                     SessionEnd::Closed(why) => {
-                        tracing::warn!(axis = %self.cfg.name, %why, "link closed");
-                        self.link_lost(&why);
+                        tracing::warn!(axis = %self.name(), %why, "link closed");
+                        self.core.link_lost(&why);
+                        self.publish();
                     }
                 },
                 Err(e) => {
-                    tracing::warn!(axis = %self.cfg.name, error = %e, "cannot open link");
+                    tracing::warn!(axis = %self.name(), error = %e, "cannot open link");
                     self.link_error = Some(Arc::from(e.to_string()));
+                    self.core.event(EventKind::Link { up: false, detail: e.to_string() });
                     self.publish();
-                    self.event(EventKind::Link { up: false, detail: e.to_string() });
                     if !self.connector.can_reconnect() {
                         self.idle(None).await;
                         return;
@@ -288,6 +218,21 @@ impl AxisTask {
         }
     }
 
+    /// Applies stop-all; returns what to write now.
+    fn on_stop_all(&mut self) -> Output {
+        let s = *self.wiring.stop_all.borrow_and_update();
+        self.core.stop_all(s)
+    }
+
+    /// Runs a command through the core, intercepting what the shell answers itself (link
+    /// reports: the meter is the shell's). Returns the answer and what to write now.
+    fn on_command(&mut self, cmd: AxisCommand) -> (Result<Reply, CommandError>, Output) {
+        if let AxisCommand::LinkReport { reset } = cmd {
+            return (Ok(Reply::Link(self.meter.report(reset))), Output { send: None, ticks: 0 });
+        }
+        self.core.command(cmd, Instant::now())
+    }
+
     /// Serves commands and stop-all with no link, for `pause` (or until shutdown if None).
     /// Returns true on shutdown.
     async fn idle(&mut self, pause: Option<Duration>) -> bool {
@@ -304,12 +249,12 @@ impl AxisTask {
                 _ = self.wiring.shutdown.changed() => return true,
                 r = self.wiring.stop_all.changed() => {
                     if r.is_err() { return true; }
-                    self.apply_stop_all();
+                    self.on_stop_all();
                     self.publish();
                 }
                 req = self.wiring.commands.recv() => {
                     let Some(req) = req else { return true };
-                    let (answer, _) = self.command(req.command);
+                    let (answer, _) = self.on_command(req.command);
                     // Publish first: whoever gets the answer must already see its effect
                     // (e.g. the homing waiter watching for the state to leave `homing`).
                     self.publish();
@@ -320,30 +265,42 @@ impl AxisTask {
         }
     }
 
+    /// Writes what the core asked for, if anything. A write that fails or times out ends the
+    /// session.
+    async fn carry_out(&mut self, stream: &mut BoxStream, out: Output) -> Result<(), SessionEnd> {
+        let Some(msg) = out.send else { return Ok(()) };
+        self.send(stream, &msg).await.map_err(|e| SessionEnd::Closed(format!("write failed: {e}")))
+    }
+
+    async fn send(&mut self, stream: &mut BoxStream, msg: &HostMessage) -> std::io::Result<()> {
+        self.tx.clear();
+        protocol::write_frame(msg, &mut self.tx);
+        write_within(stream, &self.tx, self.write_timeout).await
+    }
+
+    /// Writes Stop at once (shutdown), without waiting for a frame; best effort.
+    async fn motor_off_now(&mut self, stream: &mut BoxStream) {
+        let out = self.core.motor_off();
+        if self.carry_out(stream, out).await.is_ok() {
+            let _ = tokio::time::timeout(self.write_timeout, stream.flush()).await;
+        }
+    }
+
     async fn session(&mut self, mut stream: BoxStream) -> SessionEnd {
         self.decoder.clear();
         if let Err(why) = self.handshake(&mut stream).await {
             return why;
         }
-        self.link_up = true;
         self.link_error = None;
         self.meter.link_up();
-        self.last = None;
         self.last_frame_at = Some(Instant::now());
-        self.event(EventKind::Link { up: true, detail: self.connector.describe() });
-        if self.state == AxisState::Offline {
-            self.state = if self.wiring.stop_all.borrow().latched {
-                AxisState::Stopped
-            } else {
-                AxisState::Disabled
-            };
-        }
+        self.core.link_up(self.connector.describe());
         self.publish();
-        let link_timeout = Duration::from_secs_f64(self.cfg.limits.link_timeout_s);
+        let link_timeout = Duration::from_secs_f64(self.core.config().limits.link_timeout_s);
         let mut rx = vec![0u8; 4096];
         let mut next_relink = Instant::now();
         loop {
-            let deadline = if self.link_up {
+            let deadline = if self.core.is_linked() {
                 self.last_frame_at.map_or_else(Instant::now, |t| t + link_timeout)
             } else {
                 next_relink
@@ -359,24 +316,27 @@ impl AxisTask {
                         self.motor_off_now(&mut stream).await;
                         return SessionEnd::Shutdown;
                     }
-                    if self.apply_stop_all() {
-                        self.motor_off_now(&mut stream).await;
-                    }
+                    let out = self.on_stop_all();
+                    let written = self.carry_out(&mut stream, out).await;
                     self.publish();
+                    if let Err(end) = written {
+                        return end;
+                    }
                 }
                 req = self.wiring.commands.recv() => {
                     let Some(req) = req else {
                         self.motor_off_now(&mut stream).await;
                         return SessionEnd::Shutdown;
                     };
-                    let (answer, off) = self.command(req.command);
-                    if off {
-                        self.motor_off_now(&mut stream).await;
-                    }
+                    let (answer, out) = self.on_command(req.command);
+                    let written = self.carry_out(&mut stream, out).await;
                     // Publish first: whoever gets the answer must already see its effect
                     // (e.g. the homing waiter watching for the state to leave `homing`).
                     self.publish();
                     let _ = req.reply.send(answer);
+                    if let Err(end) = written {
+                        return end;
+                    }
                 }
                 () = tokio::time::sleep_until(deadline) => {
                     // A starved process wakes with the timer and the data both due: let the
@@ -395,13 +355,13 @@ impl AxisTask {
                             Err(e) => return SessionEnd::Closed(e.to_string()),
                         }
                     }
-                    if self.link_up {
-                        self.link_up = false;
+                    if self.core.is_linked() {
                         let why = format!(
                             "no valid telemetry for {:.0} ms",
-                            self.cfg.limits.link_timeout_s * 1000.0
+                            self.core.config().limits.link_timeout_s * 1000.0
                         );
-                        self.link_lost(&why);
+                        self.core.link_lost(&why);
+                        self.publish();
                     }
                     // The board may have reset: ask it to start streaming again.
                     next_relink = Instant::now() + RELINK_PERIOD;
@@ -428,7 +388,7 @@ impl AxisTask {
     async fn on_bytes(&mut self, stream: &mut BoxStream, bytes: &[u8]) -> Result<(), SessionEnd> {
         let read_at = Instant::now();
         self.decoder.extend(bytes);
-        let mut any = false;
+        let mut answer = None;
         while let Some(msg) = self.decoder.next_message::<BoardMessage>() {
             match msg {
                 Ok(BoardMessage::Telemetry(tm)) => {
@@ -437,30 +397,27 @@ impl AxisTask {
                             continue;
                         }
                         self.awaiting_fresh = false;
-                        self.last = None;
+                        self.core.restart_sequence();
                     }
-                    if !self.link_up {
-                        self.link_up = true;
+                    if !self.core.is_linked() {
                         self.meter.link_up();
-                        self.event(EventKind::Link {
-                            up: true,
-                            detail: "telemetry resumed".to_owned(),
-                        });
+                        self.core.telemetry_resumed();
                     }
                     self.last_frame_at = Some(read_at);
-                    self.on_telemetry(&tm, read_at);
-                    any = true;
+                    let out = self.core.on_frame(&tm, read_at);
+                    self.meter.frame(out.ticks, self.core.board_time());
+                    answer = out.send;
                 }
                 Ok(BoardMessage::Hello(_)) => {}
                 Err(e) => {
-                    tracing::debug!(axis = %self.cfg.name, error = %e, "bad frame");
+                    tracing::debug!(axis = %self.name(), error = %e, "bad frame");
                     self.meter.bad_frame();
                 }
             }
         }
-        if any {
+        if let Some(msg) = answer {
             // One answer per read: after a backlog only the newest state matters.
-            if let Err(e) = self.write_output(stream).await {
+            if let Err(e) = self.send(stream, &msg).await {
                 return Err(SessionEnd::Closed(format!("write failed: {e}")));
             }
             let took = Instant::now().saturating_duration_since(read_at);
@@ -473,9 +430,7 @@ impl AxisTask {
     async fn handshake(&mut self, stream: &mut BoxStream) -> Result<(), SessionEnd> {
         let mut rx = vec![0u8; 1024];
         for _attempt in 0..3 {
-            self.tx.clear();
-            protocol::write_frame(&HostMessage::Hello, &mut self.tx);
-            if let Err(e) = write_within(stream, &self.tx, self.write_timeout).await {
+            if let Err(e) = self.send(stream, &HostMessage::Hello).await {
                 return Err(SessionEnd::Closed(e.to_string()));
             }
             let deadline = Instant::now() + HELLO_TIMEOUT;
@@ -499,7 +454,7 @@ impl AxisTask {
                                         caps.protocol_version, PROTOCOL_VERSION
                                     )));
                                 }
-                                tracing::info!(axis = %self.cfg.name, board = %caps.board_name, "linked");
+                                tracing::info!(axis = %self.name(), board = %caps.board_name, "linked");
                                 self.send_configure(stream)
                                     .await
                                     .map_err(|e| SessionEnd::Closed(e.to_string()))?;
@@ -515,102 +470,42 @@ impl AxisTask {
 
     async fn send_configure(&mut self, stream: &mut BoxStream) -> std::io::Result<()> {
         self.awaiting_fresh = true;
+        let board = &self.core.config().board;
+        let configure =
+            HostMessage::Configure { tick_hz: board.tick_hz, watchdog_ms: board.watchdog_ms };
         self.tx.clear();
         protocol::write_frame(&HostMessage::Hello, &mut self.tx);
-        protocol::write_frame(
-            &HostMessage::Configure {
-                tick_hz: self.cfg.board.tick_hz,
-                watchdog_ms: self.cfg.board.watchdog_ms,
-            },
-            &mut self.tx,
-        );
+        protocol::write_frame(&configure, &mut self.tx);
         write_within(stream, &self.tx, self.write_timeout).await
     }
 
-    /// Writes Stop at once (category 0, disable, shutdown) without waiting for a frame.
-    async fn motor_off_now(&mut self, stream: &mut BoxStream) {
-        self.duty = 0.0;
-        self.host_seq = self.last.map_or(0, |t| t.seq);
-        self.tx.clear();
-        protocol::write_frame(&HostMessage::Stop { seq: self.host_seq }, &mut self.tx);
-        if write_within(stream, &self.tx, self.write_timeout).await.is_ok() {
-            let _ = tokio::time::timeout(self.write_timeout, stream.flush()).await;
-        }
-    }
-
-    async fn write_output(&mut self, stream: &mut BoxStream) -> std::io::Result<()> {
-        // Echo the telemetry seq being answered: the board's ack_seq then shows the reply
-        // latency in ticks (docs/protocol.md).
-        self.host_seq = self.last.map_or(0, |t| t.seq);
-        let msg = if self.state.motor_on() {
-            let sign = if self.cfg.scale.invert_motor { -1.0 } else { 1.0 };
-            let full = f64::from(protocol::DUTY_FULL_SCALE);
-            let wire = (sign * self.duty / 100.0 * full).round().clamp(-full, full) as i16;
-            HostMessage::Duty { seq: self.host_seq, duty: wire }
-        } else {
-            HostMessage::Stop { seq: self.host_seq }
-        };
-        self.tx.clear();
-        protocol::write_frame(&msg, &mut self.tx);
-        write_within(stream, &self.tx, self.write_timeout).await
-    }
-
-    fn link_lost(&mut self, why: &str) {
-        self.link_up = false;
-        self.last = None;
-        self.event(EventKind::Link { up: false, detail: why.to_owned() });
-        if self.trip.is_none() && self.state != AxisState::Offline {
-            let was_on = self.state.motor_on();
-            self.latch_trip(
-                crate::engine::snapshot::TripCause::LinkLoss,
-                format!(
-                    "{why}{}: check the cable, the board's power and its USB connection",
-                    if was_on { " while the motor was on" } else { "" }
-                ),
-            );
-        }
-        self.publish();
-    }
-
-    fn event(&self, kind: EventKind) {
-        let board_t = self.link_up.then_some(self.t);
-        // No listener is fine: events are for whoever cares.
-        let _ = self.wiring.events.send(Event::now(Some(self.name.clone()), board_t, kind));
-    }
-
+    /// Sends the core's events and, when the state changed, a state event; then publishes
+    /// the snapshot.
     fn publish(&mut self) {
-        if self.state != self.published_state {
-            let (from, to) = (self.published_state, self.state);
-            self.published_state = self.state;
-            self.event(EventKind::State { from, to });
+        let name = self.core.name().clone();
+        for (board_t, kind) in self.core.take_events() {
+            // No listener is fine: events are for whoever cares.
+            let _ = self.wiring.events.send(Event::now(Some(name.clone()), board_t, kind));
         }
-        let band = self.supervisor.following_error_band(self.setpoint.velocity);
-        let latched = self.wiring.stop_all.borrow().latched;
+        let state = self.core.state();
+        if state != self.published_state {
+            let (from, to) = (self.published_state, state);
+            self.published_state = state;
+            let board_t = self.core.is_linked().then_some(self.core.board_time());
+            let _ = self.wiring.events.send(Event::now(
+                Some(name),
+                board_t,
+                EventKind::State { from, to },
+            ));
+        }
         let link = self.meter.stats();
-        let this = &*self;
-        this.wiring.snapshots.send_modify(|s| {
-            s.state = this.state;
-            s.homed = this.homed;
-            s.position = this.position;
-            s.target = this.setpoint.position;
-            s.goal = this.goal;
-            s.velocity = this.velocity;
-            s.following_error = this.setpoint.position - this.position;
-            s.following_error_band = band;
-            s.duty = this.duty;
-            if s.trip != this.trip {
-                s.trip.clone_from(&this.trip);
-            }
+        let (core, link_error) = (&self.core, &self.link_error);
+        self.wiring.snapshots.send_modify(|s| {
+            core.fill_snapshot(s);
             s.link = link;
-            if s.link_error != this.link_error {
-                s.link_error.clone_from(&this.link_error);
+            if s.link_error != *link_error {
+                s.link_error.clone_from(link_error);
             }
-            s.board_time_s = this.t;
-            s.stop_latched = latched;
-            s.in_position = this.in_position;
-            s.moves_done = this.moves_done;
-            s.move_peak_following_error = this.move_peak_fe;
-            s.move_settle_s = this.move_settle_s;
         });
     }
 }
