@@ -122,6 +122,8 @@ fn one_axis_demo() -> MachineConfig {
     let mut cfg = MachineConfig::demo().expect("demo");
     cfg.axes.truncate(1);
     cfg.machine.homing_order.clear();
+    // Named positions name the other axes too.
+    cfg.spots = servotty::spots::Spots::default();
     cfg
 }
 
