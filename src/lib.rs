@@ -22,6 +22,7 @@ pub mod cockpit;
 pub mod commission;
 pub mod config;
 pub mod control;
+pub mod diagnosis;
 pub mod engine;
 pub mod process;
 pub mod protocol;
