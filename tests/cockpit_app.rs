@@ -248,7 +248,7 @@ fn a_trip_is_logged_once_with_its_values() {
     let trips: Vec<_> = app.log.entries().iter().filter(|e| e.kind == Kind::Trip).collect();
     assert_eq!(trips.len(), 1, "{trips:?}");
     let t = &trips[0].text;
-    for want in ["x: following error", "fe 3.36 mm", "duty 100.0 %", "slipping belt"] {
+    for want in ["x: following error", "3.36 mm", "band 3.12 mm", "duty 100.0 %", "slipping belt"] {
         assert!(t.contains(want), "{want:?} not in {t:?}");
     }
     assert_eq!(trips[0].clock(), "00:00:07.5");

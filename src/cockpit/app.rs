@@ -777,22 +777,33 @@ fn diff(view: &AxisView, new: &AxisSnapshot) -> Vec<(Kind, String)> {
         let n = new.link.link_ups;
         out.push((Kind::Link, format!("{name}: link up (#{n}), {}", new.state)));
     }
-    if new.state == AxisState::Offline && old.state != AxisState::Offline {
-        out.push((Kind::Link, format!("{name}: link down")));
+    // Why a link is down, once per reason (not once a second): the reason carries the hint.
+    let reason_new = new.link_error.is_some() && new.link_error != old.link_error;
+    if new.state == AxisState::Offline && (old.state != AxisState::Offline || reason_new) {
+        out.push((
+            Kind::Link,
+            match &new.link_error {
+                Some(why) => format!("{name}: link down: {why}"),
+                None => format!("{name}: link down"),
+            },
+        ));
     }
     match (&old.trip, &new.trip) {
         (None, Some(t)) => out.push((
             Kind::Trip,
             format!(
-                "{name}: {} at {} s: fe {} {u}, pos {}, tgt {}, duty {} %, v {} {u}/s: {}",
-                t.cause,
-                num(t.at_s, 3, 0),
-                num(t.following_error, d, 0),
+                "{name}: {}{}; pos {}, set {}, duty {} %, v {} {u}/s",
+                // The detail usually starts with the cause's words: say them once.
+                if t.detail.starts_with(&t.cause.to_string()) {
+                    String::new()
+                } else {
+                    format!("{}: ", t.cause)
+                },
+                t.detail,
                 num(t.position, d, 0),
                 num(t.target, d, 0),
                 num(t.duty, 1, 0),
                 num(t.velocity, 1, 0),
-                t.detail
             ),
         )),
         (Some(_), None) => out.push((Kind::State, format!("{name}: trip cleared"))),
