@@ -23,6 +23,7 @@ pub mod commission;
 pub mod config;
 pub mod control;
 pub mod engine;
+pub mod move_list;
 pub mod process;
 pub mod protocol;
 pub mod sim;
