@@ -38,6 +38,13 @@ pub struct LinkFaults {
     pub drop_probability: f64,
     /// Probability (0…1) that a telemetry frame has one bit flipped.
     pub corrupt_probability: f64,
+    /// Bursty loss: every `burst_every_ms` the link goes dark both ways for `burst_ms` (a hub
+    /// resetting, a loose contact, a host that stalls). 0 = off. The board keeps ticking.
+    pub burst_ms: u32,
+    /// Period of the bursts, ms (from the board's power-up).
+    pub burst_every_ms: u32,
+    /// Host jitter: every host message takes effect this much later at the board, ms.
+    pub reply_delay_ms: u32,
 }
 
 /// What a test or the operator can see and change on a running simulated board.
@@ -50,6 +57,8 @@ pub struct SimBoardHandle {
 struct Shared {
     plant_faults: PlantFaults,
     link_faults: LinkFaults,
+    /// A one-off blackout still to run, ms (see [`SimBoardHandle::black_out`]).
+    blackout_ms: u32,
     view: BoardView,
 }
 
@@ -121,6 +130,12 @@ impl SimBoardHandle {
         self.lock().link_faults = f;
     }
 
+    /// Cuts the link both ways for `ms` from the board's next tick, then restores it; the
+    /// board keeps ticking, counting sequence numbers and running its watchdog meanwhile.
+    pub fn black_out(&self, ms: u32) {
+        self.lock().blackout_ms = ms;
+    }
+
     /// Current plant faults.
     pub fn plant_faults(&self) -> PlantFaults {
         self.lock().plant_faults.clone()
@@ -138,6 +153,101 @@ pub struct SimBoard {
     handle: SimBoardHandle,
     seed: u64,
     persistent: bool,
+    clock: Option<TickClock>,
+}
+
+/// Ticks from a clock outside the runtime (see [`tick_clock`]): a count that a thread of its
+/// own advances at `hz`, read by every board that runs at that rate.
+#[derive(Debug, Clone)]
+pub struct TickClock {
+    hz: u16,
+    ticks: tokio::sync::watch::Receiver<u64>,
+}
+
+/// Starts a thread that counts ticks at `hz` on the operating system's fine-grained sleep,
+/// for boards served in real time (`sim --pty`).
+///
+/// tokio's timers have 1 ms granularity: a 1 kHz interval there runs uneven periods and
+/// catches up in pairs, a third of the time on a busy 2-core machine, so a host sees two
+/// frames at once far more often than from a board on a hardware timer. A thread sleeping
+/// to absolute deadlines keeps the ticks within the scheduler's wake-up jitter instead. The
+/// thread ends when every board holding the clock has gone.
+pub fn tick_clock(hz: u16) -> std::io::Result<TickClock> {
+    let (tx, ticks) = tokio::sync::watch::channel(0u64);
+    let period = Duration::from_nanos(1_000_000_000 / u64::from(hz.max(1)));
+    std::thread::Builder::new().name("sim-tick-clock".to_owned()).spawn(move || {
+        let mut due = std::time::Instant::now();
+        let mut n: u64 = 0;
+        loop {
+            n += 1;
+            due += period;
+            let now = std::time::Instant::now();
+            if due > now {
+                std::thread::sleep(due - now);
+            }
+            // Boards that fell behind see the count jump and catch up (as with Burst below).
+            if tx.send(n).is_err() {
+                return;
+            }
+        }
+    })?;
+    Ok(TickClock { hz, ticks })
+}
+
+impl TickClock {
+    /// The clock's rate, Hz.
+    pub fn hz(&self) -> u16 {
+        self.hz
+    }
+}
+
+/// Where a running board takes its ticks from.
+enum Ticker {
+    /// The runtime's timer (exact under `tokio::time::pause`).
+    Timer(tokio::time::Interval),
+    /// An outside clock; `pending` ticks are owed after the count jumped.
+    Clock { clock: TickClock, seen: u64, pending: u64 },
+}
+
+impl Ticker {
+    fn new(clock: Option<&TickClock>, tick_hz: u16) -> Self {
+        match clock {
+            Some(c) if c.hz == tick_hz => {
+                let seen = *c.ticks.borrow();
+                Self::Clock { clock: c.clone(), seen, pending: 0 }
+            }
+            _ => Self::Timer(make_interval(tick_hz)),
+        }
+    }
+
+    fn period(&self, tick_hz: u16) -> Duration {
+        match self {
+            Self::Timer(i) => i.period(),
+            Self::Clock { .. } => Duration::from_nanos(1_000_000_000 / u64::from(tick_hz.max(1))),
+        }
+    }
+
+    /// Waits for the next tick; false when the outside clock has stopped.
+    async fn tick(&mut self) -> bool {
+        match self {
+            Self::Timer(i) => {
+                i.tick().await;
+                true
+            }
+            Self::Clock { clock, seen, pending } => {
+                if *pending == 0 {
+                    if clock.ticks.changed().await.is_err() {
+                        return false;
+                    }
+                    let now = *clock.ticks.borrow_and_update();
+                    *pending = now.saturating_sub(*seen);
+                    *seen = now;
+                }
+                *pending = pending.saturating_sub(1);
+                true
+            }
+        }
+    }
 }
 
 impl SimBoard {
@@ -149,6 +259,9 @@ impl SimBoard {
             cut: false,
             drop_probability: faults.drop_frame_probability,
             corrupt_probability: faults.corrupt_frame_probability,
+            burst_ms: faults.burst_ms,
+            burst_every_ms: faults.burst_every_ms,
+            reply_delay_ms: faults.reply_delay_ms,
         };
         let mut plant = Plant::new(params);
         plant.faults = plant_faults.clone();
@@ -157,14 +270,23 @@ impl SimBoard {
             count: plant.encoder_count(),
             ..BoardView::default()
         };
-        let shared = Arc::new(Mutex::new(Shared { plant_faults, link_faults, view }));
+        let shared =
+            Arc::new(Mutex::new(Shared { plant_faults, link_faults, blackout_ms: 0, view }));
         Self {
             plant,
             plant_params: params.clone(),
             handle: SimBoardHandle { shared },
             seed,
             persistent: false,
+            clock: None,
         }
+    }
+
+    /// Take ticks from `clock` whenever the board runs at the clock's rate (its own timer
+    /// otherwise, e.g. after a Configure to another rate).
+    pub fn with_clock(mut self, clock: TickClock) -> Self {
+        self.clock = Some(clock);
+        self
     }
 
     /// Keep running when the host side closes or errors (serving a PTY that hosts open and
@@ -191,17 +313,21 @@ impl SimBoard {
     /// with the host they are testing.
     pub async fn run<S: BoardStream>(mut self, mut stream: S) {
         let mut b = BoardState::new(self.seed, self.plant_params.home_switch_mm.is_some());
-        let mut interval = make_interval(b.tick_hz);
+        let mut ticker = Ticker::new(self.clock.as_ref(), b.tick_hz);
         let mut rx = vec![0u8; 4096];
         let mut retry_read_at: Option<tokio::time::Instant> = None;
         let mut last_tick_at: Option<tokio::time::Instant> = None;
         loop {
-            interval.tick().await;
+            if !ticker.tick().await {
+                b.motor_off();
+                self.publish(&b);
+                return;
+            }
             // 1. What the host sent since the last tick.
             let now = tokio::time::Instant::now();
             if let Some(t) = last_tick_at {
                 let r = &mut b.replies;
-                if (now - t) * 2 < interval.period() {
+                if (now - t) * 2 < ticker.period(b.tick_hz) {
                     r.rushed_ticks += 1;
                 }
                 let gap = u64::try_from((now - t).as_micros()).unwrap_or(u64::MAX);
@@ -214,17 +340,17 @@ impl SimBoard {
                     match read_now(&mut stream, &mut rx).await {
                         None => break,
                         Some(Ok(n)) if n > 0 => {
-                            if self.handle.lock().link_faults.cut {
+                            if self.handle.lock().link_faults.cut || b.dark_ticks > 0 {
                                 continue;
                             }
                             b.decoder.extend(&rx[..n]);
+                            let delay =
+                                b.ms_to_ticks(self.handle.lock().link_faults.reply_delay_ms);
                             while let Some(msg) = b.decoder.next_message::<HostMessage>() {
                                 // Bad frames are dropped and, per the contract, never feed
                                 // the watchdog.
                                 let Ok(msg) = msg else { continue };
-                                if let Some(reply) = b.on_host(msg) {
-                                    send(&mut stream, &reply).await;
-                                }
+                                b.inbox.push_back((b.ticks + delay, msg));
                             }
                         }
                         Some(_) if self.persistent => {
@@ -241,18 +367,37 @@ impl SimBoard {
                         }
                     }
                 }
-                if b.rate_changed {
-                    b.rate_changed = false;
-                    interval = make_interval(b.tick_hz);
+            }
+            // Host messages take effect when due (at once unless a reply delay is injected).
+            while b.inbox.front().is_some_and(|(due, _)| *due <= b.ticks) {
+                let Some((_, msg)) = b.inbox.pop_front() else { break };
+                if let Some(reply) = b.on_host(msg) {
+                    send(&mut stream, &reply).await;
                 }
             }
+            if b.rate_changed {
+                b.rate_changed = false;
+                ticker = Ticker::new(self.clock.as_ref(), b.tick_hz);
+            }
             // 2. The tick itself.
-            let (pf, lf) = {
-                let s = self.handle.lock();
-                (s.plant_faults.clone(), s.link_faults.clone())
+            let (pf, lf, blackout_ms) = {
+                let mut s = self.handle.lock();
+                (s.plant_faults.clone(), s.link_faults.clone(), std::mem::take(&mut s.blackout_ms))
             };
             self.plant.faults = pf;
             b.ticks += 1;
+            // Link blackouts: a one-off, and the periodic bursts.
+            if blackout_ms > 0 {
+                b.dark_ticks = b.dark_ticks.max(b.ms_to_ticks(blackout_ms));
+            }
+            if lf.burst_ms > 0 && lf.burst_every_ms > 0 {
+                let every = b.ms_to_ticks(lf.burst_every_ms).max(1);
+                if b.ticks.is_multiple_of(every) {
+                    b.dark_ticks = b.dark_ticks.max(b.ms_to_ticks(lf.burst_ms));
+                }
+            }
+            let dark = lf.cut || b.dark_ticks > 0;
+            b.dark_ticks = b.dark_ticks.saturating_sub(1);
             if b.motor_on && b.ticks.saturating_sub(b.last_command_tick) > b.watchdog_ticks {
                 b.motor_on = false;
                 b.watchdog_tripped = true;
@@ -262,12 +407,14 @@ impl SimBoard {
             let period = 1.0 / f64::from(b.tick_hz);
             self.plant.step(if b.motor_on { b.duty } else { 0.0 }, period);
             self.publish(&b);
-            if !b.streaming || lf.cut {
+            if !b.streaming {
                 continue;
             }
+            // A frame is made every tick whether or not the link carries it: during a cut
+            // the sequence number runs on, so the host sees the gap for what it is.
             let this_seq = b.seq;
             b.seq = b.seq.wrapping_add(1);
-            if b.rng.chance(lf.drop_probability) {
+            if dark || b.rng.chance(lf.drop_probability) {
                 continue;
             }
             let frame = b.telemetry(this_seq, &self.plant);
@@ -325,6 +472,10 @@ struct BoardState {
     frames_sent: u64,
     motor_off_at_tick: Option<u64>,
     features: u16,
+    /// Host messages received, with the tick at which each takes effect.
+    inbox: std::collections::VecDeque<(u64, HostMessage)>,
+    /// Ticks the link stays dark (injected blackout).
+    dark_ticks: u64,
     replies: ReplyCounters,
     /// Board time of the last reply from the current host, µs, for the longest gap.
     last_reply_us: Option<u64>,
@@ -355,9 +506,16 @@ impl BoardState {
             } else {
                 features::INDEX_PULSE
             },
+            inbox: std::collections::VecDeque::new(),
+            dark_ticks: 0,
             replies: ReplyCounters::default(),
             last_reply_us: None,
         }
+    }
+
+    /// Whole ticks (rounded up) in `ms` at the present rate.
+    fn ms_to_ticks(&self, ms: u32) -> u64 {
+        (u64::from(ms) * u64::from(self.tick_hz)).div_ceil(1000)
     }
 
     /// Counts a Duty or Stop answering telemetry `answered` (its echoed seq), read at the
@@ -620,5 +778,37 @@ mod tests {
         assert_eq!(r.longest_reply_gap_us, 61_000, "{r:?}");
         assert_eq!(r.rushed_ticks, 0, "simulated time never runs late: {r:?}");
         assert_eq!(r.longest_tick_gap_us, 1_000, "{r:?}");
+    }
+
+    #[tokio::test]
+    async fn an_outside_clock_that_jumps_is_caught_up_tick_by_tick() {
+        let (tx, ticks) = tokio::sync::watch::channel(0u64);
+        let clock = TickClock { hz: 1000, ticks };
+        let mut t = Ticker::new(Some(&clock), 1000);
+        assert!(matches!(t, Ticker::Clock { .. }));
+        // A board that fell three ticks behind runs three ticks at once (as Burst does).
+        tx.send(3).expect("receiver");
+        for _ in 0..3 {
+            let ticked = tokio::time::timeout(Duration::from_secs(5), t.tick()).await;
+            assert_eq!(ticked, Ok(true));
+        }
+        // The fourth waits for the clock.
+        let waits = tokio::time::timeout(Duration::from_millis(20), t.tick()).await;
+        assert!(waits.is_err());
+        drop(tx);
+        assert!(!t.tick().await, "a stopped clock ends the board");
+        // Another rate falls back to the board's own timer.
+        assert!(matches!(Ticker::new(Some(&clock), 500), Ticker::Timer(_)));
+    }
+
+    #[test]
+    fn the_tick_clock_thread_counts() {
+        let clock = tick_clock(1000).expect("thread");
+        let t0 = std::time::Instant::now();
+        // Real time: poll under a generous deadline, nothing asserted about speed.
+        while *clock.ticks.borrow() < 5 {
+            assert!(t0.elapsed() < Duration::from_secs(30), "the clock does not tick");
+            std::thread::sleep(Duration::from_millis(5));
+        }
     }
 }
