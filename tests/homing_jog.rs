@@ -270,7 +270,12 @@ async fn following_error_trip_writes_a_parseable_capture() {
     let (meta, body): (Vec<&str>, Vec<&str>) = text.lines().partition(|l| l.starts_with('#'));
     assert!(meta.iter().any(|l| l.contains("trip cause: following error")), "{meta:?}");
     assert!(meta.iter().any(|l| l.starts_with("# software: servotty")), "{meta:?}");
-    assert_eq!(body[0], "axis,t,target,position,following_error,duty,velocity,state");
+    assert!(
+        body[0].starts_with("axis,t,target,position,following_error,duty,velocity,state,"),
+        "{}",
+        body[0]
+    );
+    assert_eq!(body[0], servotty::engine::recorder::CAPTURE_COLUMNS.join(","));
     let x_rows: Vec<Vec<&str>> = body[1..]
         .iter()
         .map(|l| l.split(',').collect::<Vec<_>>())
@@ -278,7 +283,7 @@ async fn following_error_trip_writes_a_parseable_capture() {
         .collect();
     assert!(x_rows.len() > 1000, "{} rows", x_rows.len());
     for r in &x_rows {
-        assert_eq!(r.len(), 8);
+        assert_eq!(r.len(), servotty::engine::recorder::CAPTURE_COLUMNS.len());
         for v in &r[1..7] {
             v.parse::<f64>().expect("numeric column");
         }
@@ -315,5 +320,35 @@ async fn an_axis_homed_outside_its_soft_limits_can_come_back_in() {
     x.send(AxisCommand::MoveTo(50.0)).await.expect("in");
     let s = wait_for(&h, "x", Duration::from_secs(5), |s| s.moves_done > 0).await;
     assert!(s.trip.is_none() && (s.position - 50.0).abs() < 0.2, "{s:#?}");
+    m.shutdown().await;
+}
+
+#[tokio::test(start_paused = true)]
+async fn quick_jog_steps_never_queue_behind_a_moving_step() {
+    // 30 presses of a 10 mm step, 20 ms apart, used to queue 300 mm that kept the axis
+    // moving for seconds after the last key; now the goal stays within one step of the
+    // setpoint, so the axis stops within a step (plus braking) of where the keys ended.
+    let cfg = demo();
+    let (m, h) = linked(&cfg).await;
+    h.home(Some(&["x".to_owned()])).await.expect("homes");
+    let x = h.axis("x").expect("x");
+    let step = 10.0;
+    for _ in 0..30 {
+        x.send(AxisCommand::JogStep { distance: step, speed: 120.0 }).await.expect("step");
+        let s = x.snapshot();
+        assert!(s.goal - s.target <= step + 1e-9, "goal {} runs ahead of {}", s.goal, s.target);
+        tokio::time::sleep(Duration::from_millis(20)).await;
+    }
+    let at_last_key = x.snapshot();
+    let s = wait_for(&h, "x", Duration::from_secs(5), |s| s.state == AxisState::Holding).await;
+    // Braking from the jog speed: v²/(2a) (common practice, no source).
+    let motion = &cfg.axis("x").expect("x").motion;
+    let braking = 120.0_f64.powi(2) / (2.0 * motion.max_acceleration);
+    assert!(
+        s.position - at_last_key.target <= step + braking + 0.5,
+        "kept going: {} after the last key at {}",
+        s.position,
+        at_last_key.target
+    );
     m.shutdown().await;
 }

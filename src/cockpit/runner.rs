@@ -181,7 +181,7 @@ fn describe(c: &AxisCommand) -> &'static str {
     match c {
         AxisCommand::Enable => "enable",
         AxisCommand::Disable => "disable",
-        AxisCommand::MoveTo(_) => "go to",
+        AxisCommand::MoveTo(_) | AxisCommand::MoveWithin { .. } => "go to",
         AxisCommand::Stop => "stop",
         AxisCommand::ClearTrip => "clear trip",
         AxisCommand::SetController(_) => "new gains",
@@ -237,11 +237,18 @@ fn execute<P: MachinePort>(
             });
         }
         Effect::SaveGains { path, config } => {
-            spawn_save(notices.clone(), config, false, move |c| save::save_controllers(&path, c));
+            spawn_save(notices.clone(), config, false, move |c| {
+                save::save_controllers(&path, c, &save::note("saved from the cockpit"))
+            });
         }
         Effect::WriteCopy { path, config } => {
             spawn_save(notices.clone(), config, true, move |c| {
-                save::write_copy(&path, crate::config::DEMO_CONFIG, c)
+                save::write_copy(
+                    &path,
+                    crate::config::DEMO_CONFIG,
+                    c,
+                    &save::note("saved from the cockpit"),
+                )
             });
         }
     }

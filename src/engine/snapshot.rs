@@ -129,6 +129,8 @@ pub struct Trip {
     pub position: f64,
     /// Following error at the trip, units.
     pub following_error: f64,
+    /// The following-error band in force at the trip (static plus the velocity part), units.
+    pub band: f64,
     /// Duty applied in the tick before the trip, %.
     pub duty: f64,
     /// Estimated velocity at the trip, unit/s.
@@ -197,6 +199,8 @@ pub struct AxisSnapshot {
     pub move_peak_following_error: f64,
     /// Time from the start of the last completed move to in-position, s (board time).
     pub move_settle_s: Option<f64>,
+    /// The board's input bits in the latest frame ([`crate::protocol::inputs`]).
+    pub inputs: u8,
 }
 
 impl AxisSnapshot {
@@ -224,6 +228,7 @@ impl AxisSnapshot {
             moves_done: 0,
             move_peak_following_error: 0.0,
             move_settle_s: None,
+            inputs: 0,
         }
     }
 }
