@@ -860,7 +860,7 @@ fn analyze_step_handles_ramps_unsettled_and_noisy_records() {
     let dir = tempfile::tempdir().expect("temp dir");
     let write = |name: &str, rows: &[StepRow]| -> String {
         let p = dir.path().join(name);
-        write_step_csv(&p, rows).expect("writes");
+        write_step_csv(&p, rows, "mm").expect("writes");
         p.to_str().expect("utf-8").to_owned()
     };
     // A 2,001-row ramp from 0 to 20 mm.

@@ -398,7 +398,7 @@ impl StepSummary {
 }
 
 /// `position_mm` → `position`, `t_s` → `t`, `duty_pct` → `duty`; other names unchanged.
-fn without_unit(name: &str) -> String {
+pub(crate) fn without_unit(name: &str) -> String {
     for word in ["t", "target", "position", "duty"] {
         if let Some(unit) = name.strip_prefix(word).and_then(|r| r.strip_prefix('_')) {
             // `target_velocity` is another quantity, not a target with a unit.
