@@ -27,6 +27,9 @@ pub struct MachineConfig {
     /// One `[[axis]]` table per axis, in display order.
     #[serde(rename = "axis")]
     pub axes: Vec<AxisConfig>,
+    /// `[spots]`: named positions ([`crate::spots`]).
+    #[serde(default, skip_serializing_if = "crate::spots::Spots::is_empty")]
+    pub spots: crate::spots::Spots,
 }
 
 /// `[machine]`: machine-wide settings.
@@ -960,6 +963,7 @@ impl MachineConfig {
                 validate_plant(&sim.plant, &at(&["transport", "plant"]), &mut out);
             }
         }
+        out.extend(crate::spots::check(self));
         out
     }
 

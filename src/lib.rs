@@ -23,11 +23,13 @@ pub mod cockpit;
 pub mod commission;
 pub mod config;
 pub mod control;
+pub mod diagnosis;
 pub mod engine;
 pub mod link;
 pub mod process;
 pub mod protocol;
 pub mod sim;
+pub mod spots;
 /// The former name of [`link`].
 pub use link as transport;
 pub mod tuning;

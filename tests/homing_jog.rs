@@ -270,7 +270,12 @@ async fn following_error_trip_writes_a_parseable_capture() {
     let (meta, body): (Vec<&str>, Vec<&str>) = text.lines().partition(|l| l.starts_with('#'));
     assert!(meta.iter().any(|l| l.contains("trip cause: following error")), "{meta:?}");
     assert!(meta.iter().any(|l| l.starts_with("# software: servotty")), "{meta:?}");
-    assert_eq!(body[0], "axis,t,target,position,following_error,duty,velocity,state");
+    assert!(
+        body[0].starts_with("axis,t,target,position,following_error,duty,velocity,state,"),
+        "{}",
+        body[0]
+    );
+    assert_eq!(body[0], servotty::engine::recorder::CAPTURE_COLUMNS.join(","));
     let x_rows: Vec<Vec<&str>> = body[1..]
         .iter()
         .map(|l| l.split(',').collect::<Vec<_>>())
@@ -278,7 +283,7 @@ async fn following_error_trip_writes_a_parseable_capture() {
         .collect();
     assert!(x_rows.len() > 1000, "{} rows", x_rows.len());
     for r in &x_rows {
-        assert_eq!(r.len(), 8);
+        assert_eq!(r.len(), servotty::engine::recorder::CAPTURE_COLUMNS.len());
         for v in &r[1..7] {
             v.parse::<f64>().expect("numeric column");
         }

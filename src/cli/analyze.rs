@@ -4,6 +4,10 @@
 //! at least `t,target,position`), finds the step in the target and prints its metrics
 //! ([`crate::tuning::report`] has the definitions). Any problem with the file is reported
 //! with the file name and line, exit code 2.
+//!
+//! `servotty analyze trip CAPTURE [--axis A] [--json] [--svg OUT]` reads a trip capture and
+//! names the most likely cause with its evidence ([`crate::diagnosis`] states the rules);
+//! `--svg` also draws the trip chart.
 
 use std::path::{Path, PathBuf};
 
@@ -27,6 +31,28 @@ pub enum AnalyzeWhat {
     /// error, peak time (times from the step instant).
     #[command(after_help = "Example:\n  servotty analyze step x-step.csv --band 2 --json")]
     Step(StepArgs),
+    /// Why an axis tripped: the most likely cause in a trip capture, with its evidence, a
+    /// confidence and what to check or change.
+    #[command(
+        after_help = "Example:\n  servotty analyze trip capture-2026-05-04t10-12-03z-x-stall.csv --svg trip.svg"
+    )]
+    Trip(TripArgs),
+}
+
+/// `servotty analyze trip`.
+#[derive(Debug, Args)]
+pub struct TripArgs {
+    /// Trip capture (CSV written by servotty on a trip).
+    pub file: PathBuf,
+    /// Axis to diagnose (default: the one that tripped).
+    #[arg(long, value_name = "AXIS")]
+    pub axis: Option<String>,
+    /// Print one JSON object instead of text.
+    #[arg(long)]
+    pub json: bool,
+    /// Also draw the trip chart into this SVG file.
+    #[arg(long, value_name = "OUT")]
+    pub svg: Option<PathBuf>,
 }
 
 /// `servotty analyze step`.
@@ -48,6 +74,7 @@ impl AnalyzeArgs {
     pub fn json(&self) -> bool {
         match &self.what {
             AnalyzeWhat::Step(a) => a.json,
+            AnalyzeWhat::Trip(a) => a.json,
         }
     }
 }
@@ -62,7 +89,35 @@ pub fn run(args: &AnalyzeArgs) -> Result<u8, Failure> {
             emit(&step(a).map_err(Failure::Usage)?)?;
             Ok(EXIT_OK)
         }
+        AnalyzeWhat::Trip(a) => {
+            emit(&trip(a).map_err(Failure::Usage)?)?;
+            Ok(EXIT_OK)
+        }
     }
+}
+
+/// The report for `analyze trip`, or the message for a bad file.
+fn trip(a: &TripArgs) -> Result<String, String> {
+    let name = a.file.display();
+    let text = read_text(&a.file)?;
+    let cap = crate::diagnosis::CaptureFile::parse(&text)
+        .map_err(|e| format!("{name}:{}: {}", e.line, e.message))?;
+    let rec = cap.record(a.axis.as_deref()).map_err(|e| format!("{name}: {e}"))?;
+    let d = crate::diagnosis::diagnose(&rec);
+    let mut out = if a.json {
+        let v = serde_json::to_value(&d).map_err(|e| e.to_string())?;
+        format!("{v}\n")
+    } else {
+        format!("{name}\n{}", d.to_text())
+    };
+    if let Some(svg) = &a.svg {
+        crate::diagnosis::chart::write_trip_svg(svg, &rec, &d)
+            .map_err(|e| format!("{}: {e}", svg.display()))?;
+        if !a.json {
+            out.push_str(&format!("chart written: {}\n", svg.display()));
+        }
+    }
+    Ok(out)
 }
 
 /// The report for `analyze step`, or the message for a bad file or band.

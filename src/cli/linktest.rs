@@ -86,7 +86,7 @@ pub async fn measure(m: &MachineHandle, seconds: f64) -> Result<LinkTestOutcome,
 }
 
 /// User plus system CPU time of this process, s, from /proc (Linux only; None elsewhere).
-fn process_cpu_seconds() -> Option<f64> {
+pub fn process_cpu_seconds() -> Option<f64> {
     let stat = std::fs::read_to_string("/proc/self/stat").ok()?;
     // The command name may hold spaces and parentheses; fields resume after the last ')'.
     let rest = &stat[stat.rfind(')')? + 2..];

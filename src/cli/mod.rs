@@ -157,9 +157,10 @@ pub struct MoveArgs {
     /// Which machine.
     #[command(flatten)]
     pub machine: MachineArgs,
-    /// Targets in axis units: AXIS=POS, comma-separated or repeated (e.g. --to x=300,y=150).
-    #[arg(long, value_name = "AXIS=POS[,AXIS=POS...]", required = true, value_delimiter = ',')]
-    pub to: Vec<Target>,
+    /// Targets in axis units: AXIS=POS, or @SPOT for a named position of the configuration's
+    /// [spots] table; comma-separated or repeated (e.g. --to x=300,y=150 or --to @tray3).
+    #[arg(long, value_name = "AXIS=POS|@SPOT[,...]", required = true, value_delimiter = ',')]
+    pub to: Vec<move_cmd::Destination>,
     /// Home the axes (in the configured order) before moving.
     #[arg(long)]
     pub home: bool,

@@ -7,6 +7,7 @@ use serde::Serialize;
 use crate::cli::progress::{self, Progress};
 use crate::cli::{emit, emit_json, Failure, MoveArgs, Target, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
 use crate::cockpit::format::num;
+use crate::config::MachineConfig;
 use crate::engine::{AxisCommand, AxisState, MachineHandle};
 
 /// How long the boards have to link.
@@ -140,31 +141,74 @@ async fn start_and_wait(m: &MachineHandle, targets: &[Target]) -> Result<MoveOut
     Ok(MoveOutcome { ok, axes: outcomes })
 }
 
+/// One `--to` item: `AXIS=POS`, or `@SPOT` for a named position of the configuration.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Destination {
+    /// One axis to a position.
+    Axis(Target),
+    /// Every axis the spot names to its position there.
+    Spot(String),
+}
+
+impl std::str::FromStr for Destination {
+    type Err = String;
+
+    fn from_str(s: &str) -> Result<Self, Self::Err> {
+        match s.trim().strip_prefix('@') {
+            Some(name) if crate::spots::valid_name(name) => Ok(Self::Spot(name.to_owned())),
+            Some(_) => Err(format!("expected @NAME with letters, digits, _ or -, found {s:?}")),
+            None => s.parse().map(Self::Axis),
+        }
+    }
+}
+
+/// The per-axis targets of `--to`, in the order given; a later item for the same axis
+/// replaces an earlier one (`--to @tray3,z=-20`).
+///
+/// # Errors
+/// Text naming the unknown axis or spot.
+pub fn resolve(cfg: &MachineConfig, to: &[Destination]) -> Result<Vec<Target>, String> {
+    let mut out: Vec<Target> = Vec::new();
+    for d in to {
+        let more = match d {
+            Destination::Axis(t) => vec![t.clone()],
+            Destination::Spot(name) => crate::spots::targets(cfg, name)?,
+        };
+        for t in more {
+            if cfg.axis(&t.axis).is_none() {
+                let known: Vec<&str> = cfg.axes.iter().map(|a| a.name.as_str()).collect();
+                return Err(format!(
+                    "--to {}=…: no such axis (axes: {})",
+                    t.axis,
+                    known.join(", ")
+                ));
+            }
+            out.retain(|o| o.axis != t.axis);
+            out.push(t);
+        }
+    }
+    Ok(out)
+}
+
 /// `servotty move`.
 ///
 /// # Errors
 /// [`Failure`] when the moves cannot start; a trip during a move is in the outcome (exit 1).
 pub fn run(args: &MoveArgs) -> Result<u8, Failure> {
     let (cfg, _) = args.machine.load()?;
-    if let Some(t) = args.to.iter().find(|t| cfg.axis(&t.axis).is_none()) {
-        let known: Vec<&str> = cfg.axes.iter().map(|a| a.name.as_str()).collect();
-        return Err(Failure::Usage(format!(
-            "--to {}=…: no such axis (axes: {})",
-            t.axis,
-            known.join(", ")
-        )));
-    }
+    let targets = resolve(&cfg, &args.to).map_err(Failure::Usage)?;
     let (json, home) = (args.json, args.home);
-    let targets: Vec<String> =
-        args.to.iter().map(|t| format!("{} to {}", t.axis, t.position)).collect();
+    let words: Vec<String> =
+        targets.iter().map(|t| format!("{} to {}", t.axis, t.position)).collect();
     crate::cli::ask::go_ahead(
         args.yes,
         &format!(
             "move: {}enables and moves {}.",
             if home { "homes every axis, then " } else { "" },
-            targets.join(", ")
+            words.join(", ")
         ),
     )?;
+    let targets = &targets;
     crate::cli::with_machine(&args.machine, |h| async move {
         let show = progress::wanted(json);
         if home {
@@ -172,9 +216,9 @@ pub fn run(args: &MoveArgs) -> Result<u8, Failure> {
             h.home(None).await?;
             p.finish();
         }
-        let names: Vec<String> = args.to.iter().map(|t| t.axis.clone()).collect();
+        let names: Vec<String> = targets.iter().map(|t| t.axis.clone()).collect();
         let p = Progress::axes(show, "moving", &h, &names);
-        let out = run_moves(&h, &args.to).await;
+        let out = run_moves(&h, targets).await;
         p.finish();
         let out = out.map_err(|e| match e {
             MoveError::UnknownAxis(_) => Failure::Usage(e.to_string()),

@@ -9,7 +9,7 @@ use serde::Serialize;
 
 use crate::cli::{SimArgs, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
 use crate::config::TransportConfig;
-use crate::sim::board::{SimBoard, SimBoardHandle};
+use crate::sim::board::{tick_clock, SimBoard, SimBoardHandle, TickClock};
 
 /// One axis's closing report, printed as a JSON line.
 #[derive(Debug, Clone, Serialize, PartialEq)]
@@ -123,6 +123,8 @@ pub fn run(args: &SimArgs) -> u8 {
     rt.block_on(async {
         let mut interrupt = Interrupt::listen();
         let mut served = Vec::new();
+        // One fine-grained tick clock per configured rate, shared by the boards at that rate.
+        let mut clocks: Vec<TickClock> = Vec::new();
         for (i, axis) in cfg.axes.iter().enumerate() {
             let TransportConfig::Sim(sim) = &axis.transport else {
                 eprintln!("servotty: axis {} is not simulated; skipped", axis.name);
@@ -142,7 +144,19 @@ pub fn run(args: &SimArgs) -> u8 {
             // The host opens the path itself (exclusively), so our handle must go.
             drop(host_end);
             println!("{} {}", axis.name, path);
-            let board = SimBoard::new(&sim.plant, &sim.faults, 0x5E12_0770 + i as u64).persistent();
+            let mut board =
+                SimBoard::new(&sim.plant, &sim.faults, 0x5E12_0770 + i as u64).persistent();
+            let hz = axis.board.tick_hz;
+            if !clocks.iter().any(|c| c.hz() == hz) {
+                match tick_clock(hz) {
+                    Ok(c) => clocks.push(c),
+                    // The board's own timer still ticks, only less evenly.
+                    Err(e) => eprintln!("servotty: no tick clock thread ({e}); using timers"),
+                }
+            }
+            if let Some(c) = clocks.iter().find(|c| c.hz() == hz) {
+                board = board.with_clock(c.clone());
+            }
             served.push((axis.name.clone(), board.handle()));
             tokio::spawn(board.run(board_end));
         }

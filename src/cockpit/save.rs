@@ -156,7 +156,7 @@ pub fn write_copy(path: &Path, base: &str, live: &MachineConfig) -> Result<SaveR
 
 /// Temp file beside `path` → fsync → (copy old to `.bak`) → rename → fsync the directory.
 /// Returns the backup's path when one was made.
-fn replace_atomically(
+pub fn replace_atomically(
     path: &Path,
     text: &str,
     keep_backup: bool,

@@ -265,15 +265,7 @@ mod tests {
     }
 
     fn sample(t: f64, duty: f64) -> Sample {
-        Sample {
-            t,
-            target: 0.0,
-            position: 0.0,
-            following_error: 0.0,
-            duty,
-            velocity: 0.0,
-            state: AxisState::Testing,
-        }
+        Sample { t, duty, state: AxisState::Testing, ..Sample::default() }
     }
 
     #[test]

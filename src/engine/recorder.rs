@@ -239,21 +239,66 @@ pub fn capture_text(
             l.soft_max
         );
     }
-    let _ = writeln!(s, "axis,t,target,position,following_error,duty,velocity,state");
+    let _ = writeln!(s, "{}", CAPTURE_COLUMNS.join(","));
     for (axis, samples) in rows {
         for r in samples {
             let _ = writeln!(
                 s,
-                "{axis},{:.6},{:.6},{:.6},{:.6},{:.3},{:.6},{}",
+                "{axis},{:.6},{:.6},{:.6},{:.6},{:.3},{:.6},{},{},{},{},{},{},{:.6},{:.6},{:.6},\
+                 {:.3},{:.3},{:.3},{:.3},{}",
                 r.t,
                 r.target,
                 r.position,
                 r.following_error,
                 r.duty,
                 r.velocity,
-                r.state.word()
+                r.state.word(),
+                r.count,
+                r.board_time_us,
+                r.missed_frames,
+                r.status,
+                r.inputs,
+                r.target_velocity,
+                r.target_acceleration,
+                r.band,
+                r.p,
+                r.i,
+                r.d,
+                r.ff,
+                u8::from(r.saturated)
             );
         }
     }
     s
 }
+
+/// The capture's columns, in order. After the loop's values (target … state) come the
+/// evidence columns a diagnosis reads ([`crate::diagnosis`]): `count` (unwrapped encoder
+/// count), `board_time_us` (the board's clock), `missed_frames` (telemetry frames lost just
+/// before this one), `status` and `inputs` (the board's bits, decimal), `target_velocity` and
+/// `target_acceleration` (the profile), `band` (the following-error band in force), `p`, `i`,
+/// `d`, `ff` (the controller's parts, %) and `saturated` (1 when the output was cut to its
+/// limit).
+pub const CAPTURE_COLUMNS: [&str; 21] = [
+    "axis",
+    "t",
+    "target",
+    "position",
+    "following_error",
+    "duty",
+    "velocity",
+    "state",
+    "count",
+    "board_time_us",
+    "missed_frames",
+    "status",
+    "inputs",
+    "target_velocity",
+    "target_acceleration",
+    "band",
+    "p",
+    "i",
+    "d",
+    "ff",
+    "saturated",
+];

@@ -138,6 +138,101 @@ pub struct SimBoard {
     handle: SimBoardHandle,
     seed: u64,
     persistent: bool,
+    clock: Option<TickClock>,
+}
+
+/// Ticks from a clock outside the runtime (see [`tick_clock`]): a count that a thread of its
+/// own advances at `hz`, read by every board that runs at that rate.
+#[derive(Debug, Clone)]
+pub struct TickClock {
+    hz: u16,
+    ticks: tokio::sync::watch::Receiver<u64>,
+}
+
+/// Starts a thread that counts ticks at `hz` on the operating system's fine-grained sleep,
+/// for boards served in real time (`sim --pty`).
+///
+/// tokio's timers have 1 ms granularity: a 1 kHz interval there runs uneven periods and
+/// catches up in pairs, a third of the time on a busy 2-core machine, so a host sees two
+/// frames at once far more often than from a board on a hardware timer. A thread sleeping
+/// to absolute deadlines keeps the ticks within the scheduler's wake-up jitter instead. The
+/// thread ends when every board holding the clock has gone.
+pub fn tick_clock(hz: u16) -> std::io::Result<TickClock> {
+    let (tx, ticks) = tokio::sync::watch::channel(0u64);
+    let period = Duration::from_nanos(1_000_000_000 / u64::from(hz.max(1)));
+    std::thread::Builder::new().name("sim-tick-clock".to_owned()).spawn(move || {
+        let mut due = std::time::Instant::now();
+        let mut n: u64 = 0;
+        loop {
+            n += 1;
+            due += period;
+            let now = std::time::Instant::now();
+            if due > now {
+                std::thread::sleep(due - now);
+            }
+            // Boards that fell behind see the count jump and catch up (as with Burst below).
+            if tx.send(n).is_err() {
+                return;
+            }
+        }
+    })?;
+    Ok(TickClock { hz, ticks })
+}
+
+impl TickClock {
+    /// The clock's rate, Hz.
+    pub fn hz(&self) -> u16 {
+        self.hz
+    }
+}
+
+/// Where a running board takes its ticks from.
+enum Ticker {
+    /// The runtime's timer (exact under `tokio::time::pause`).
+    Timer(tokio::time::Interval),
+    /// An outside clock; `pending` ticks are owed after the count jumped.
+    Clock { clock: TickClock, seen: u64, pending: u64 },
+}
+
+impl Ticker {
+    fn new(clock: Option<&TickClock>, tick_hz: u16) -> Self {
+        match clock {
+            Some(c) if c.hz == tick_hz => {
+                let seen = *c.ticks.borrow();
+                Self::Clock { clock: c.clone(), seen, pending: 0 }
+            }
+            _ => Self::Timer(make_interval(tick_hz)),
+        }
+    }
+
+    fn period(&self, tick_hz: u16) -> Duration {
+        match self {
+            Self::Timer(i) => i.period(),
+            Self::Clock { .. } => Duration::from_nanos(1_000_000_000 / u64::from(tick_hz.max(1))),
+        }
+    }
+
+    /// Waits for the next tick; false when the outside clock has stopped.
+    async fn tick(&mut self) -> bool {
+        match self {
+            Self::Timer(i) => {
+                i.tick().await;
+                true
+            }
+            Self::Clock { clock, seen, pending } => {
+                if *pending == 0 {
+                    if clock.ticks.changed().await.is_err() {
+                        return false;
+                    }
+                    let now = *clock.ticks.borrow_and_update();
+                    *pending = now.saturating_sub(*seen);
+                    *seen = now;
+                }
+                *pending = pending.saturating_sub(1);
+                true
+            }
+        }
+    }
 }
 
 impl SimBoard {
@@ -164,7 +259,15 @@ impl SimBoard {
             handle: SimBoardHandle { shared },
             seed,
             persistent: false,
+            clock: None,
         }
+    }
+
+    /// Take ticks from `clock` whenever the board runs at the clock's rate (its own timer
+    /// otherwise, e.g. after a Configure to another rate).
+    pub fn with_clock(mut self, clock: TickClock) -> Self {
+        self.clock = Some(clock);
+        self
     }
 
     /// Keep running when the host side closes or errors (serving a PTY that hosts open and
@@ -191,17 +294,21 @@ impl SimBoard {
     /// with the host they are testing.
     pub async fn run<S: BoardStream>(mut self, mut stream: S) {
         let mut b = BoardState::new(self.seed, self.plant_params.home_switch_mm.is_some());
-        let mut interval = make_interval(b.tick_hz);
+        let mut ticker = Ticker::new(self.clock.as_ref(), b.tick_hz);
         let mut rx = vec![0u8; 4096];
         let mut retry_read_at: Option<tokio::time::Instant> = None;
         let mut last_tick_at: Option<tokio::time::Instant> = None;
         loop {
-            interval.tick().await;
+            if !ticker.tick().await {
+                b.motor_off();
+                self.publish(&b);
+                return;
+            }
             // 1. What the host sent since the last tick.
             let now = tokio::time::Instant::now();
             if let Some(t) = last_tick_at {
                 let r = &mut b.replies;
-                if (now - t) * 2 < interval.period() {
+                if (now - t) * 2 < ticker.period(b.tick_hz) {
                     r.rushed_ticks += 1;
                 }
                 let gap = u64::try_from((now - t).as_micros()).unwrap_or(u64::MAX);
@@ -243,7 +350,7 @@ impl SimBoard {
                 }
                 if b.rate_changed {
                     b.rate_changed = false;
-                    interval = make_interval(b.tick_hz);
+                    ticker = Ticker::new(self.clock.as_ref(), b.tick_hz);
                 }
             }
             // 2. The tick itself.
@@ -620,5 +727,37 @@ mod tests {
         assert_eq!(r.longest_reply_gap_us, 61_000, "{r:?}");
         assert_eq!(r.rushed_ticks, 0, "simulated time never runs late: {r:?}");
         assert_eq!(r.longest_tick_gap_us, 1_000, "{r:?}");
+    }
+
+    #[tokio::test]
+    async fn an_outside_clock_that_jumps_is_caught_up_tick_by_tick() {
+        let (tx, ticks) = tokio::sync::watch::channel(0u64);
+        let clock = TickClock { hz: 1000, ticks };
+        let mut t = Ticker::new(Some(&clock), 1000);
+        assert!(matches!(t, Ticker::Clock { .. }));
+        // A board that fell three ticks behind runs three ticks at once (as Burst does).
+        tx.send(3).expect("receiver");
+        for _ in 0..3 {
+            let ticked = tokio::time::timeout(Duration::from_secs(5), t.tick()).await;
+            assert_eq!(ticked, Ok(true));
+        }
+        // The fourth waits for the clock.
+        let waits = tokio::time::timeout(Duration::from_millis(20), t.tick()).await;
+        assert!(waits.is_err());
+        drop(tx);
+        assert!(!t.tick().await, "a stopped clock ends the board");
+        // Another rate falls back to the board's own timer.
+        assert!(matches!(Ticker::new(Some(&clock), 500), Ticker::Timer(_)));
+    }
+
+    #[test]
+    fn the_tick_clock_thread_counts() {
+        let clock = tick_clock(1000).expect("thread");
+        let t0 = std::time::Instant::now();
+        // Real time: poll under a generous deadline, nothing asserted about speed.
+        while *clock.ticks.borrow() < 5 {
+            assert!(t0.elapsed() < Duration::from_secs(30), "the clock does not tick");
+            std::thread::sleep(Duration::from_millis(5));
+        }
     }
 }

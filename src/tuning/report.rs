@@ -433,7 +433,7 @@ pub fn write_step_svg(
 
 /// Range of the values, widened by `pad` of its span on each side; a flat or empty series
 /// gets ±1 around its value so the axis is never empty.
-fn padded(values: impl Iterator<Item = f64>, pad: f64) -> std::ops::Range<f64> {
+pub(crate) fn padded(values: impl Iterator<Item = f64>, pad: f64) -> std::ops::Range<f64> {
     let (lo, hi) =
         values.fold((f64::INFINITY, f64::NEG_INFINITY), |(l, h), v| (l.min(v), h.max(v)));
     if !(lo.is_finite() && hi.is_finite()) {

@@ -53,11 +53,17 @@ impl AxisCore {
         let open_loop = self.step_experiment();
 
         let applied = self.duty;
+        // The controller's parts for the history: only for frames where it set the duty.
+        let mut terms = crate::control::controller::Terms::default();
+        let mut saturated = false;
         if let Some(duty) = open_loop {
             self.duty = duty;
         } else if self.state.motor_on() {
             let mut u = self.controller.update(&self.setpoint, self.position, dt);
+            terms = self.controller.terms();
+            saturated = terms.unsaturated != terms.saturated;
             if let Some(lim) = self.duty_limit {
+                saturated |= u.abs() > lim;
                 u = u.clamp(-lim, lim);
             }
             self.duty = u;
@@ -113,6 +119,19 @@ impl AxisCore {
             duty: self.duty,
             velocity: self.velocity,
             state: self.state,
+            count: self.count,
+            board_time_us: tm.board_time_us,
+            missed_frames: ticks.saturating_sub(1),
+            status: tm.status,
+            inputs: tm.inputs,
+            target_velocity: self.setpoint.velocity,
+            target_acceleration: self.setpoint.acceleration,
+            band: self.supervisor.following_error_band(self.setpoint.velocity),
+            p: terms.p,
+            i: terms.i,
+            d: terms.d,
+            ff: terms.ff,
+            saturated,
         };
         self.history.push(sample);
         if let Some(run) = self.experiment.as_mut() {
