@@ -28,6 +28,7 @@ pub mod engine;
 pub mod link;
 pub mod process;
 pub mod protocol;
+pub mod signals;
 pub mod sim;
 pub mod spots;
 /// The former name of [`link`].
