@@ -26,6 +26,7 @@ pub mod control;
 pub mod diagnosis;
 pub mod engine;
 pub mod link;
+pub mod move_list;
 pub mod process;
 pub mod protocol;
 pub mod signals;
