@@ -239,6 +239,14 @@ fn execute<P: MachinePort>(
         Effect::SaveGains { path, config } => {
             spawn_save(notices.clone(), config, false, move |c| save::save_controllers(&path, c));
         }
+        Effect::FetchHistory { axis } => {
+            let job = port.history(axis);
+            let notices = notices.clone();
+            tokio::spawn(async move {
+                let result = job.await;
+                let _ = notices.send(Notice::History { axis, result }).await;
+            });
+        }
         Effect::WriteCopy { path, config } => {
             spawn_save(notices.clone(), config, true, move |c| {
                 save::write_copy(&path, crate::config::DEMO_CONFIG, c)

@@ -37,6 +37,7 @@ fn items(app: &App) -> &'static [(&'static str, &'static str)] {
             ("←→", "jog"),
         ],
         Mode::Log => &[("?", "help"), ("Esc", "back"), ("↑↓", "scroll"), ("End", "newest")],
+        Mode::Trip => &[("?", "help"), ("Esc", "back"), ("l", "log")],
         Mode::Help => &[("Esc", "close")],
         Mode::ConfirmQuit => &[("y", "quit, motors off"), ("n", "stay")],
         Mode::Entry => &[("Enter", "apply"), ("Esc", "cancel")],
@@ -53,7 +54,9 @@ pub fn render(app: &App, area: Rect, buf: &mut Buffer) {
     ];
     let mut used: usize = spans.iter().map(Span::width).sum();
     let mut more: Vec<(&str, &str)> = Vec::new();
-    if app.stop_latched && matches!(app.mode(), Mode::Overview | Mode::Detail | Mode::Log) {
+    if app.stop_latched
+        && matches!(app.mode(), Mode::Overview | Mode::Detail | Mode::Log | Mode::Trip)
+    {
         more.push(("R", "release"));
     }
     more.extend(items(app).iter().copied());

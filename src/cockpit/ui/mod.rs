@@ -14,6 +14,7 @@ pub mod log_panel;
 pub mod overlay;
 pub mod overview;
 pub mod row;
+pub mod trip;
 
 use ratatui::buffer::Buffer;
 use ratatui::layout::{Constraint, Layout, Rect};
@@ -46,6 +47,7 @@ pub fn render(app: &App, area: Rect, buf: &mut Buffer) {
         Screen::Overview => overview::render(app, body, buf),
         Screen::Detail => detail::render(app, body, buf),
         Screen::Log => log_panel::render_screen(app, body, buf),
+        Screen::Trip => trip::render(app, body, buf),
     }
     footer::render(app, foot, buf);
     overlay::render(app, body, buf);
