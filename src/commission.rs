@@ -13,6 +13,7 @@ use clap::ValueEnum;
 use crate::config::{AxisConfig, ControllerConfig};
 use crate::engine::experiment::{ExperimentBounds, ExperimentResult, ExperimentSpec};
 use crate::engine::{AxisCommand, AxisHandle, AxisState, MachineHandle, Reply};
+use crate::tuning::compare::{self, Comparison};
 use crate::tuning::{ident, relay, report, suggest};
 
 /// Which commissioning step.
@@ -46,12 +47,22 @@ pub struct StepRequest {
     /// Relay: the sliding-friction offset u0 (%) to correct for (from `identify`); none when
     /// None (the result then says so).
     pub friction: Option<f64>,
+    /// Run the verification steps on suggested gains ([`verify`]) before offering them.
+    pub verify: bool,
 }
 
 impl StepRequest {
     /// The step with every default.
     pub fn new(step: TuneStep) -> Self {
-        Self { step, travel: None, duty: None, size: None, out_dir: None, friction: None }
+        Self {
+            step,
+            travel: None,
+            duty: None,
+            size: None,
+            out_dir: None,
+            friction: None,
+            verify: false,
+        }
     }
 }
 
@@ -68,6 +79,8 @@ pub struct Outcome {
     pub proposed: String,
     /// The axis's controller with the suggested gains, when the step suggests gains.
     pub suggested: Option<ControllerConfig>,
+    /// The suggested gains' verification step against the current gains', when asked for.
+    pub verification: Option<Comparison>,
 }
 
 /// The plan of one step: experiment, bounds, and a sentence for the warning.
@@ -165,6 +178,71 @@ fn round_up_half(d: f64) -> f64 {
     (d.abs() * 2.0).ceil() / 2.0
 }
 
+/// Size of the verification step, units, unless the request gives one.
+pub const VERIFY_STEP: f64 = 2.0;
+
+/// The verification step's plan: a closed-loop step of `size`, then back, each 1.2 s.
+pub fn verify_plan(size: f64) -> (ExperimentSpec, ExperimentBounds) {
+    (
+        ExperimentSpec::Step { size, lead_s: 0.1, seconds: 1.1 },
+        ExperimentBounds { travel: 3.0 * size.abs() + 2.0, seconds: 2.0 },
+    )
+}
+
+/// Verifies `candidate` before it is applied: a closed-loop step of `size` and back with the
+/// axis's current gains, the same with `candidate`, then the current gains again; the two
+/// outward steps compared ([`compare`]). The axis ends where it started, on its current gains.
+///
+/// # Errors
+/// A sentence when a step could not run or holds no step; a step cut short by a bound counts
+/// as a failed verification, not an error, when it is the candidate's.
+pub async fn verify(
+    h: &MachineHandle,
+    a: &AxisConfig,
+    candidate: &ControllerConfig,
+    size: f64,
+) -> Result<Comparison, String> {
+    let axis = h.axis(&a.name).ok_or("no such axis")?;
+    if !axis.snapshot().state.motor_on() {
+        axis.send(AxisCommand::Enable).await.map_err(|e| e.to_string())?;
+    }
+    let resolution = 1.0 / a.scale.counts_per_unit;
+    let (out, bounds) = verify_plan(size);
+    let (back, _) = verify_plan(-size);
+    let figures = |r: &ExperimentResult| {
+        let rows: Vec<report::StepRow> = r.samples.iter().map(report::StepRow::from).collect();
+        compare::figures(&rows)
+    };
+    tokio::time::sleep(Duration::from_millis(200)).await;
+    let first = run_experiment(axis, out.clone(), bounds).await?;
+    if let Some(why) = &first.aborted {
+        return Err(format!("the step with the current gains ended early: {why}"));
+    }
+    let current = figures(&first)?;
+    run_experiment(axis, back.clone(), bounds).await?;
+    axis.send(AxisCommand::SetController(candidate.clone())).await.map_err(|e| e.to_string())?;
+    let second = run_experiment(axis, out, bounds).await;
+    // Back to the current gains whatever happened, then back to the start.
+    axis.send(AxisCommand::SetController(a.controller.clone())).await.map_err(|e| e.to_string())?;
+    let second = second?;
+    if !axis.snapshot().state.motor_on() {
+        axis.send(AxisCommand::Enable).await.map_err(|e| e.to_string())?;
+    }
+    tokio::time::sleep(Duration::from_millis(200)).await;
+    run_experiment(axis, back, bounds).await?;
+    let suggested = match (&second.aborted, figures(&second)) {
+        (None, Ok(f)) => f,
+        (why, _) => {
+            let why = why.clone().unwrap_or_else(|| "no step in the record".to_owned());
+            let mut c = compare::compare(current, current, resolution);
+            c.suggested = compare::StepFigures { rise_s: None, settling_s: None, ..current };
+            c.worse = vec![format!("the step with the suggested gains ended early: {why}")];
+            return Ok(c);
+        }
+    };
+    Ok(compare::compare(current, suggested, resolution))
+}
+
 async fn run_experiment(
     a: &AxisHandle,
     spec: ExperimentSpec,
@@ -225,6 +303,7 @@ pub async fn run(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
             result: serde_json::json!({ "aborted": why }),
             proposed: String::new(),
             suggested: None,
+            verification: None,
         });
     }
     let samples: Vec<ident::DutySample> = r.samples.iter().map(ident::DutySample::from).collect();
@@ -427,11 +506,23 @@ pub async fn run(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
         }
         c
     });
+    let mut verification = None;
+    if let Some(c) = suggested.as_ref().filter(|_| args.verify) {
+        let size = args.size.unwrap_or(VERIFY_STEP);
+        let v = verify(h, a, c, size).await?;
+        text.push_str(&format!(
+            "\nverification: a {size} {u} step and back with the current gains, then with the \
+             suggested ones:\n{}",
+            v.to_text(&u)
+        ));
+        verification = Some(v);
+    }
     Ok(Outcome {
         ok,
         text: text.trim_end().to_owned(),
         result: extra,
         proposed: patch_text,
         suggested,
+        verification,
     })
 }

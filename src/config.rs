@@ -367,6 +367,16 @@ pub struct SimFaults {
     /// Probability (0…1) that a telemetry frame arrives with a flipped bit.
     #[serde(default)]
     pub corrupt_frame_probability: f64,
+    /// Bursty loss: the link goes dark both ways for this long, ms, every `burst_every_ms`.
+    /// 0 = off.
+    #[serde(default)]
+    pub burst_ms: u32,
+    /// Period of the bursts, ms.
+    #[serde(default)]
+    pub burst_every_ms: u32,
+    /// Host messages take effect at the board this much later, ms (host jitter). 0 = off.
+    #[serde(default)]
+    pub reply_delay_ms: u32,
 }
 
 /// `[axis.scale]`: counts to units, and which way is positive.
@@ -571,6 +581,38 @@ pub struct LimitsConfig {
     /// encoder is wired the wrong way round).
     #[serde(default = "default_runaway_timeout")]
     pub runaway_timeout_s: f64,
+    /// Stall also counts below `stall_duty`: |duty| above the axis's breakaway duty in that
+    /// direction (`controller.min_duty_forward` / `min_duty_reverse`, measured by `tune
+    /// breakaway`) plus this margin, %, with no encoder motion for `stall_timeout_s`. The
+    /// margin covers static friction above the sliding level. 0…100.
+    #[serde(default = "default_stall_margin_duty")]
+    pub stall_margin_duty: f64,
+    /// A move that is not inside `motion.in_position_band` this long after its profile has
+    /// ended, s, trips as "not in position" (a jam short of the goal, a load it cannot push).
+    #[serde(default = "default_settle_timeout")]
+    pub settle_timeout_s: f64,
+    /// Motor heating guard: the duty, %, the motor can carry continuously (rated continuous
+    /// current × R / supply voltage, in %). A running estimate of duty² filtered with
+    /// `thermal_time_s` trips when it passes this squared. 100 turns the guard off.
+    #[serde(default = "default_continuous_duty")]
+    pub continuous_duty: f64,
+    /// Time constant of the motor heating estimate, s (the winding's thermal time constant;
+    /// small gearmotors: tens of seconds).
+    #[serde(default = "default_thermal_time")]
+    pub thermal_time_s: f64,
+}
+
+fn default_stall_margin_duty() -> f64 {
+    10.0
+}
+fn default_settle_timeout() -> f64 {
+    2.0
+}
+fn default_continuous_duty() -> f64 {
+    100.0
+}
+fn default_thermal_time() -> f64 {
+    30.0
 }
 
 fn default_stall_duty() -> f64 {
@@ -616,9 +658,36 @@ pub enum ConfigError {
     /// Shape or type error from the TOML parser.
     #[error("{source_name}:{line}:{column}: {message}")]
     Parse { source_name: String, line: usize, column: usize, message: String },
-    /// A value that parsed but makes no sense, with the key path and its location.
-    #[error("{source_name}:{line}:{column}: {key}: {message}")]
-    Invalid { source_name: String, line: usize, column: usize, key: String, message: String },
+    /// Values that parsed but make no sense: every one found, each with its key and place.
+    #[error("{}", list_problems(source_name, problems))]
+    Invalid { source_name: String, problems: Vec<Problem> },
+}
+
+/// One value that makes no sense, located in the file.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Problem {
+    /// 1-based line of the key (or of the nearest table that exists).
+    pub line: usize,
+    /// 1-based column.
+    pub column: usize,
+    /// The key as a person looks for it, e.g. `[[axis]] "y": limits.soft_max`.
+    pub key: String,
+    /// What is wrong and what would be sensible.
+    pub message: String,
+}
+
+fn list_problems(source_name: &str, problems: &[Problem]) -> String {
+    let mut s = String::new();
+    for (i, p) in problems.iter().enumerate() {
+        if i > 0 {
+            s.push('\n');
+        }
+        s.push_str(&format!("{source_name}:{}:{}: {}: {}", p.line, p.column, p.key, p.message));
+    }
+    if problems.len() > 1 {
+        s.push_str(&format!("\n{} problems in {source_name}", problems.len()));
+    }
+    s
 }
 
 /// A relation between values that does not hold; `path` is the TOML key path,
@@ -644,8 +713,24 @@ impl MachineConfig {
     /// [`ConfigError`] naming the file, line, column and key.
     pub fn load(path: &Path) -> Result<Self, ConfigError> {
         let name = path.display().to_string();
-        let text = std::fs::read_to_string(path)
+        let bytes = std::fs::read(path)
             .map_err(|err| ConfigError::Read { source_name: name.clone(), err })?;
+        let text = String::from_utf8(bytes).map_err(|e| {
+            let good = e.utf8_error().valid_up_to();
+            let bytes = e.as_bytes();
+            // The valid prefix is text: count its lines and characters.
+            let prefix = std::str::from_utf8(&bytes[..good]).unwrap_or_default();
+            let (line, column) = line_col(prefix, prefix.len());
+            ConfigError::Parse {
+                source_name: name.clone(),
+                line,
+                column,
+                message: format!(
+                    "byte 0x{:02x} is not UTF-8 text: save the file as UTF-8",
+                    bytes.get(good).copied().unwrap_or(0)
+                ),
+            }
+        })?;
         Self::from_toml_str(&text, &name)
     }
 
@@ -674,15 +759,17 @@ impl MachineConfig {
                 message: plain_words(e.message().trim()),
             }
         })?;
-        if let Some(bad) = cfg.validate().into_iter().next() {
-            let (line, column) = locate(text, &bad.path).unwrap_or((1, 1));
-            return Err(ConfigError::Invalid {
-                source_name: source_name.to_owned(),
-                line,
-                column,
-                key: display_path(&bad.path, &cfg),
-                message: bad.message,
-            });
+        let mut problems: Vec<Problem> = cfg
+            .validate()
+            .into_iter()
+            .map(|bad| {
+                let (line, column) = locate(text, &bad.path).unwrap_or((1, 1));
+                Problem { line, column, key: display_path(&bad.path, &cfg), message: bad.message }
+            })
+            .collect();
+        problems.sort_by_key(|p| (p.line, p.column));
+        if !problems.is_empty() {
+            return Err(ConfigError::Invalid { source_name: source_name.to_owned(), problems });
         }
         Ok(cfg)
     }
@@ -961,7 +1048,9 @@ impl MachineConfig {
             }
             if let TransportConfig::Sim(sim) = &a.transport {
                 validate_plant(&sim.plant, &at(&["transport", "plant"]), &mut out);
+                validate_sim_faults(&sim.faults, &at(&["transport", "faults"]), &mut out);
             }
+            validate_derived(a, &at, &mut out);
         }
         out.extend(crate::spots::check(self));
         out
@@ -992,6 +1081,309 @@ impl MachineConfig {
 
 fn out_push(out: &mut Vec<Invalid>, path: Vec<String>, message: String) {
     out.push(Invalid { path, message });
+}
+
+/// Longest duration any timing key may hold, s. A bound keeps every duration convertible to
+/// a timer (`1e20` s is not) and catches unit slips (ms typed as s).
+pub const MAX_DURATION_S: f64 = 3600.0;
+
+/// Checks that need the axis's own numbers: durations against the tick, the encoder-jump
+/// threshold against the counts a tick brings at top speed, soft limits against the rail.
+/// Each message says what would be sensible for this axis.
+fn validate_derived(a: &AxisConfig, at: &dyn Fn(&[&str]) -> Vec<String>, out: &mut Vec<Invalid>) {
+    let tick_hz = f64::from(a.board.tick_hz.max(1));
+    let tick_s = 1.0 / tick_hz;
+    let tick_ms = 1000.0 * tick_s;
+    let l = &a.limits;
+    let m = &a.motion;
+    let j = &a.jog;
+    let u = &a.scale.unit;
+    // Durations: finite, at least `min_ticks` ticks (shorter cannot be observed at this tick
+    // rate), at most an upper bound that still makes the rule mean something.
+    let durations: [(&[&str], f64, f64, f64, &str); 11] = [
+        (&["limits", "stall_timeout_s"], l.stall_timeout_s, 10.0 * tick_s, 10.0, "0.2…1 s"),
+        (
+            &["limits", "link_timeout_s"],
+            l.link_timeout_s,
+            3.0 * tick_s,
+            5.0,
+            "about 2 × the watchdog, e.g. 0.1 s",
+        ),
+        (&["limits", "runaway_timeout_s"], l.runaway_timeout_s, 3.0 * tick_s, 5.0, "0.02…0.1 s"),
+        (&["limits", "settle_timeout_s"], l.settle_timeout_s, 10.0 * tick_s, 600.0, "1…5 s"),
+        (
+            &["limits", "thermal_time_s"],
+            l.thermal_time_s,
+            1.0,
+            MAX_DURATION_S,
+            "the winding's thermal time constant, typically 10…120 s",
+        ),
+        (
+            &["homing", "timeout_s"],
+            a.homing.timeout_s,
+            1.0,
+            MAX_DURATION_S,
+            "a few times the slowest search over max_travel",
+        ),
+        (
+            &["jog", "deadman_s"],
+            j.deadman_s,
+            5.0 * tick_s,
+            5.0,
+            "a few key-repeat intervals, 0.1…0.3 s",
+        ),
+        (
+            &["jog", "repeat_window_s"],
+            j.repeat_window_s,
+            5.0 * tick_s,
+            10.0,
+            "longer than the terminal's repeat delay, 0.5…1 s",
+        ),
+        (&["motion", "in_position_dwell_s"], m.in_position_dwell_s, 0.0, 60.0, "0.05…0.5 s"),
+        (
+            &["controller", "derivative_filter_s"],
+            a.controller.derivative_filter_s,
+            tick_s,
+            10.0,
+            "a few ticks, e.g. 0.002…0.01 s",
+        ),
+        (
+            &["controller", "tracking_time_s"],
+            a.controller.tracking_time_s,
+            tick_s,
+            100.0,
+            "√(Ti·Td), e.g. 0.05 s",
+        ),
+    ];
+    for (key, v, lo, hi, hint) in durations {
+        if !(v.is_finite() && v >= lo && v <= hi) {
+            out_push(
+                out,
+                at(key),
+                format!(
+                    "expected {lo:.3}…{hi} s (tick {tick_ms:.3} ms), found {v}; sensible: {hint}"
+                ),
+            );
+        }
+    }
+    let wd_ticks = f64::from(a.board.watchdog_ms) / tick_ms;
+    if wd_ticks < 2.0 {
+        out_push(
+            out,
+            at(&["board", "watchdog_ms"]),
+            format!(
+                "the watchdog ({} ms) is shorter than two ticks ({:.1} ms): one late frame would \
+                 cut the motor; sensible: 20…100 ms",
+                a.board.watchdog_ms,
+                2.0 * tick_ms
+            ),
+        );
+    }
+    // Counts one tick brings at top speed: an honest frame at full speed must never look
+    // like a jump, so the threshold needs headroom over it (twice: overshoot, jitter).
+    let counts_per_tick = m.max_velocity * a.scale.counts_per_unit * tick_s;
+    if counts_per_tick.is_finite() {
+        let floor = (2.0 * counts_per_tick).ceil().max(1.0);
+        if f64::from(l.encoder_jump_counts) < floor {
+            out_push(
+                out,
+                at(&["limits", "encoder_jump_counts"]),
+                format!(
+                    "{} counts is below twice what one tick brings at max_velocity ({counts_per_tick:.1} \
+                     counts = {} {u}/s × {} counts/{u} / {} Hz); sensible: {} or more",
+                    l.encoder_jump_counts,
+                    m.max_velocity,
+                    a.scale.counts_per_unit,
+                    a.board.tick_hz,
+                    (floor * 5.0).max(50.0)
+                ),
+            );
+        }
+    }
+    let span = l.soft_max - l.soft_min;
+    if span.is_finite() && span > 0.0 {
+        if l.following_error.is_finite() && l.following_error > span {
+            out_push(
+                out,
+                at(&["limits", "following_error"]),
+                format!(
+                    "a band of ±{} {u} is wider than the whole travel ({span} {u}): it could never \
+                     trip; sensible: a few % of the travel, e.g. {:.3}",
+                    l.following_error,
+                    (span * 0.01).max(a.scale.counts_per_unit.recip() * 10.0)
+                ),
+            );
+        }
+        if m.max_velocity.is_finite() && m.max_velocity > 0.0 {
+            // A move across the travel must end in a time a timer can hold.
+            let crossing = span / m.max_velocity + m.max_velocity / m.max_acceleration;
+            if !(crossing.is_finite() && crossing <= MAX_DURATION_S) {
+                out_push(
+                    out,
+                    at(&["motion", "max_velocity"]),
+                    format!(
+                        "a move across the travel ({span} {u}) would take {crossing:.3e} s at {} {u}/s \
+                         and {} {u}/s²; sensible: max_velocity and max_acceleration that cross it in seconds",
+                        m.max_velocity, m.max_acceleration
+                    ),
+                );
+            }
+        }
+    }
+    if m.max_velocity.is_finite() && j.unhomed_speed > m.max_velocity {
+        out_push(
+            out,
+            at(&["jog", "unhomed_speed"]),
+            format!(
+                "expected ≤ motion.max_velocity ({}), found {}; sensible: a slow creep, e.g. {}",
+                m.max_velocity,
+                j.unhomed_speed,
+                m.max_velocity / 10.0
+            ),
+        );
+    }
+    let c = &a.controller;
+    let breakaway = c.min_duty_forward.max(c.min_duty_reverse);
+    if !(l.stall_margin_duty.is_finite() && (0.0..=100.0).contains(&l.stall_margin_duty)) {
+        out_push(
+            out,
+            at(&["limits", "stall_margin_duty"]),
+            format!("expected 0…100 %, found {}; sensible: 5…15 %", l.stall_margin_duty),
+        );
+    }
+    if !(l.continuous_duty.is_finite()
+        && l.continuous_duty > breakaway
+        && l.continuous_duty <= 100.0)
+    {
+        out_push(
+            out,
+            at(&["limits", "continuous_duty"]),
+            format!(
+                "expected above the breakaway duty ({breakaway} %) and ≤ 100 %, found {}; \
+                 sensible: the motor's rated continuous current × R / supply voltage, in %",
+                l.continuous_duty
+            ),
+        );
+    }
+    match &a.transport {
+        TransportConfig::Serial { device, baud } => {
+            if device.trim().is_empty() {
+                out_push(
+                    out,
+                    at(&["transport", "device"]),
+                    "expected a device path, found an empty string; e.g. /dev/ttyACM0".to_owned(),
+                );
+            }
+            if !(1200..=12_000_000).contains(baud) {
+                out_push(
+                    out,
+                    at(&["transport", "baud"]),
+                    format!(
+                        "expected 1200…12000000 bit/s, found {baud}; sensible: 115200 or 921600"
+                    ),
+                );
+            }
+        }
+        TransportConfig::Sim(sim) => validate_rail(a, &sim.plant, at, out),
+    }
+}
+
+/// Soft limits of a simulated axis must lie on its rail. Where homing fixes the frame of
+/// reference (a switch or an end stop), the rail's ends are known in axis units; otherwise
+/// only the length of the travel can be compared.
+fn validate_rail(
+    a: &AxisConfig,
+    p: &PlantParams,
+    at: &dyn Fn(&[&str]) -> Vec<String>,
+    out: &mut Vec<Invalid>,
+) {
+    let l = &a.limits;
+    let u = &a.scale.unit;
+    // Axis units per mm of carriage travel.
+    let k = p.counts_per_mm() / a.scale.counts_per_unit;
+    let rail = p.rail_length_mm * k;
+    if !(k.is_finite() && k > 0.0 && rail.is_finite()) {
+        return;
+    }
+    let sign = if a.scale.invert_encoder { -1.0 } else { 1.0 };
+    let h = &a.homing;
+    // Axis coordinate of the rail's lower end (mm 0), if homing pins it.
+    let lower_end = match (h.method, p.home_switch_mm) {
+        (HomingMethod::Switch, Some(sw)) => Some(h.home_offset - sign * sw * k),
+        (HomingMethod::HardStop, _) => Some(match h.direction {
+            SearchDirection::Negative => h.home_offset,
+            SearchDirection::Positive => h.home_offset - sign * rail,
+        }),
+        _ => None,
+    };
+    // A little slack: the switch edge and the stop are not exact points.
+    let slack = 0.02 * rail;
+    let (lo, hi) = match lower_end {
+        Some(e) => {
+            let other = e + sign * rail;
+            (e.min(other), e.max(other))
+        }
+        None => {
+            let span = l.soft_max - l.soft_min;
+            if span > rail + slack {
+                out_push(
+                    out,
+                    at(&["limits", "soft_max"]),
+                    format!(
+                        "the soft travel ({span} {u}) is longer than the simulated rail \
+                         ({rail:.3} {u} = {} mm); sensible: at most {:.3} {u}",
+                        p.rail_length_mm, rail
+                    ),
+                );
+            }
+            return;
+        }
+    };
+    for (key, v) in [("soft_min", l.soft_min), ("soft_max", l.soft_max)] {
+        if v.is_finite() && (v < lo - slack || v > hi + slack) {
+            out_push(
+                out,
+                at(&["limits", key]),
+                format!(
+                    "{v} {u} is off the simulated rail, which spans {lo:.3} … {hi:.3} {u} after \
+                     homing ({} mm of rail, homing.home_offset {}); sensible: inside that range",
+                    p.rail_length_mm, h.home_offset
+                ),
+            );
+        }
+    }
+}
+
+fn validate_sim_faults(f: &SimFaults, base: &[String], out: &mut Vec<Invalid>) {
+    for (k, v) in [
+        ("drop_frame_probability", f.drop_frame_probability),
+        ("corrupt_frame_probability", f.corrupt_frame_probability),
+    ] {
+        if !(v.is_finite() && (0.0..=1.0).contains(&v)) {
+            let mut path = base.to_vec();
+            path.push(k.to_owned());
+            out_push(out, path, format!("expected a probability 0…1, found {v}; e.g. 0.01"));
+        }
+    }
+    for (k, v) in [("burst_ms", f.burst_ms), ("reply_delay_ms", f.reply_delay_ms)] {
+        if v > 10_000 {
+            let mut path = base.to_vec();
+            path.push(k.to_owned());
+            out_push(out, path, format!("expected 0…10000 ms, found {v}; e.g. 70"));
+        }
+    }
+    if f.burst_ms > 0 && f.burst_every_ms <= f.burst_ms {
+        let mut path = base.to_vec();
+        path.push("burst_every_ms".to_owned());
+        out_push(
+            out,
+            path,
+            format!(
+                "expected a period longer than burst_ms ({}), found {}; e.g. 1000",
+                f.burst_ms, f.burst_every_ms
+            ),
+        );
+    }
 }
 
 fn validate_plant(p: &PlantParams, base: &[String], out: &mut Vec<Invalid>) {
@@ -1163,5 +1555,95 @@ mod tests {
         let bad = cfg.validate();
         assert!(bad.iter().any(|b| b.message.contains("listed twice")), "{bad:?}");
         assert!(bad.iter().any(|b| b.message.contains("no axis called \"q\"")), "{bad:?}");
+    }
+
+    /// Sets one key of the demo's X axis in the TOML text and returns every problem found.
+    fn problems_with(edit: &str, with: &str) -> Vec<Problem> {
+        let text = DEMO_CONFIG.replacen(edit, with, 1);
+        assert_ne!(text, DEMO_CONFIG, "{edit} is in the demo");
+        match MachineConfig::from_toml_str(&text, "t.toml") {
+            Err(ConfigError::Invalid { problems, .. }) => problems,
+            other => panic!("{with}: expected Invalid, got {other:?}"),
+        }
+    }
+
+    // Each value below was accepted before and then panicked or made supervision meaningless
+    // at run time. The bounds are servotty's own (common practice, no source).
+    #[test]
+    fn values_that_cannot_work_are_refused_with_key_and_line() {
+        let cases: &[(&str, &str, &str)] = &[
+            ("link_timeout_s = 0.1", "link_timeout_s = 1e20", "limits.link_timeout_s"),
+            ("link_timeout_s = 0.1", "link_timeout_s = 1000.0", "limits.link_timeout_s"),
+            ("link_timeout_s = 0.1", "link_timeout_s = 0.0005", "limits.link_timeout_s"),
+            ("timeout_s = 60.0", "timeout_s = 1e308", "homing.timeout_s"),
+            ("unhomed_speed = 15.0", "unhomed_speed = 15.0\ndeadman_s = 1e308", "jog.deadman_s"),
+            ("encoder_jump_counts = 200", "encoder_jump_counts = 0", "limits.encoder_jump_counts"),
+            ("encoder_jump_counts = 200", "encoder_jump_counts = 5", "limits.encoder_jump_counts"),
+            ("stall_timeout_s = 0.5", "stall_timeout_s = 1e9", "limits.stall_timeout_s"),
+            ("following_error = 3.0", "following_error = 1e308", "limits.following_error"),
+            ("soft_max = 1200.0", "soft_max = 5000.0", "limits.soft_max"),
+            ("unhomed_speed = 15.0", "unhomed_speed = 500.0", "jog.unhomed_speed"),
+            ("[axis.board]\ntick_hz = 1000", "[axis.transport.faults]\ndrop_frame_probability = 2.0\n[axis.board]\ntick_hz = 1000", "drop_frame_probability"),
+            ("[axis.board]\ntick_hz = 1000", "[axis.transport.faults]\ncorrupt_frame_probability = -1.0\n[axis.board]\ntick_hz = 1000", "corrupt_frame_probability"),
+            ("[axis.board]\ntick_hz = 1000", "[axis.transport.faults]\ndrop_frame_probability = nan\n[axis.board]\ntick_hz = 1000", "drop_frame_probability"),
+        ];
+        for (from, to, key) in cases {
+            let p = problems_with(from, to);
+            let hit =
+                p.iter().find(|p| p.key.contains(key)).unwrap_or_else(|| panic!("{to}: {p:?}"));
+            assert!(hit.line > 1, "{to}: located {hit:?}");
+            assert!(hit.message.contains("sensible") || hit.message.contains("e.g."), "{hit:?}");
+        }
+    }
+
+    #[test]
+    fn a_watchdog_shorter_than_two_ticks_is_refused() {
+        let text = DEMO_CONFIG.replacen("tick_hz = 1000", "tick_hz = 100", 1).replacen(
+            "watchdog_ms = 50",
+            "watchdog_ms = 15",
+            1,
+        );
+        let Err(ConfigError::Invalid { problems, .. }) = MachineConfig::from_toml_str(&text, "t")
+        else {
+            panic!("accepted a 15 ms watchdog at 100 Hz");
+        };
+        assert!(problems.iter().any(|p| p.key.contains("board.watchdog_ms")), "{problems:?}");
+    }
+
+    #[test]
+    fn a_serial_device_needs_a_path_and_a_baud_rate() {
+        let mut cfg = MachineConfig::demo().expect("demo");
+        cfg.axes[0].transport = TransportConfig::Serial { device: String::new(), baud: 0 };
+        let bad = cfg.validate();
+        assert!(bad.iter().any(|b| b.path.ends_with(&keys(&["transport", "device"]))), "{bad:?}");
+        assert!(bad.iter().any(|b| b.path.ends_with(&keys(&["transport", "baud"]))), "{bad:?}");
+    }
+
+    #[test]
+    fn every_problem_is_listed_not_only_the_first() {
+        let text = DEMO_CONFIG
+            .replacen("stall_timeout_s = 0.5", "stall_timeout_s = 1e9", 1)
+            .replacen("encoder_jump_counts = 200", "encoder_jump_counts = 0", 1)
+            .replacen("soft_max = 600.0", "soft_max = -10.0", 1);
+        let err = MachineConfig::from_toml_str(&text, "t.toml").expect_err("refused");
+        let ConfigError::Invalid { problems, .. } = &err else { panic!("{err:?}") };
+        assert!(problems.len() >= 3, "{problems:?}");
+        let shown = err.to_string();
+        assert!(shown.lines().count() >= 4, "{shown}");
+        assert!(shown.contains("problems in t.toml"), "{shown}");
+    }
+
+    #[test]
+    fn a_non_utf8_byte_names_its_line() {
+        let dir = tempfile::tempdir().expect("tempdir");
+        let p = dir.path().join("latin1.toml");
+        let mut bytes = b"[machine]\nname = \"serre\"\n# caf".to_vec();
+        bytes.push(0xe9);
+        bytes.extend_from_slice(b"\n");
+        std::fs::write(&p, bytes).expect("write");
+        let err = MachineConfig::load(&p).expect_err("refused");
+        let ConfigError::Parse { line, column, message, .. } = &err else { panic!("{err:?}") };
+        assert_eq!((*line, *column), (3, 6), "{err}");
+        assert!(message.contains("0xe9") && message.contains("UTF-8"), "{err}");
     }
 }

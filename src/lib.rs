@@ -26,6 +26,7 @@ pub mod diagnosis;
 pub mod engine;
 pub mod process;
 pub mod protocol;
+pub mod signals;
 pub mod sim;
 pub mod spots;
 pub mod transport;

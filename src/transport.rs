@@ -61,6 +61,7 @@ pub enum TransportError {
 /// [`TransportError`] saying what to do about it.
 pub fn open_serial(device: &str, baud: u32) -> Result<BoxStream, TransportError> {
     use tokio_serial::SerialPortBuilderExt;
+    refuse_if_held(device)?;
     let stream = tokio_serial::new(device, baud)
         .timeout(std::time::Duration::from_millis(100))
         .open_native_async()
@@ -69,6 +70,42 @@ pub fn open_serial(device: &str, baud: u32) -> Result<BoxStream, TransportError>
     // the axis starts from the newest.
     let _ = serialport::SerialPort::clear(&stream, serialport::ClearBuffer::Input);
     Ok(Box::new(stream))
+}
+
+/// Refuses a device that another program holds, before the serial library touches it.
+///
+/// The library takes the port with TIOCEXCL plus an exclusive `flock`; when the `flock` fails
+/// its clean-up clears TIOCEXCL, and that flag belongs to the terminal, not to the handle: the
+/// holder loses its exclusivity and any program can then open the port (measured,
+/// platform-notes.md). So look first: a probe handle tries the same `flock` and is closed
+/// plainly, which leaves the holder's flag alone. A holder that appears between the probe and
+/// the library's open is not caught; that window is a few system calls wide.
+fn refuse_if_held(device: &str) -> Result<(), TransportError> {
+    use std::os::unix::fs::OpenOptionsExt;
+    let probe = std::fs::OpenOptions::new()
+        .read(true)
+        .write(true)
+        // No controlling terminal, and no waiting for modem lines.
+        .custom_flags(
+            rustix::fs::OFlags::NOCTTY.bits() as i32 | rustix::fs::OFlags::NONBLOCK.bits() as i32,
+        )
+        .open(device);
+    let probe = match probe {
+        Ok(f) => f,
+        // The kernel refuses non-root openers of an exclusive terminal with EBUSY.
+        Err(e) if e.raw_os_error() == Some(rustix::io::Errno::BUSY.raw_os_error()) => {
+            return Err(TransportError::Busy { device: device.to_owned() });
+        }
+        // Anything else the library reports in its own words.
+        Err(_) => return Ok(()),
+    };
+    match rustix::fs::flock(&probe, rustix::fs::FlockOperation::NonBlockingLockExclusive) {
+        Err(e) if e == rustix::io::Errno::WOULDBLOCK => {
+            Err(TransportError::Busy { device: device.to_owned() })
+        }
+        // Free (the lock goes with the probe when it closes here), or flock unsupported.
+        _ => Ok(()),
+    }
 }
 
 fn classify(device: &str, e: &tokio_serial::Error) -> TransportError {
@@ -171,5 +208,54 @@ mod tests {
         let second = open_serial(&path, 115_200).err().expect("second open fails");
         assert!(matches!(second, TransportError::Busy { .. }), "{second:?}");
         assert!(second.to_string().contains("in use by another program"));
+    }
+
+    /// Whether a program with no privileges can open `path` for reading now. Root bypasses
+    /// the kernel's exclusive flag, so as root the attempt runs as user `nobody`.
+    fn plain_reader_can_open(path: &str) -> Option<bool> {
+        use std::os::unix::fs::MetadataExt;
+        let root = std::fs::metadata("/proc/self").ok()?.uid() == 0;
+        if !root {
+            return Some(std::fs::File::open(path).is_ok());
+        }
+        // Let `nobody` past the permission bits, so only the exclusive flag can refuse it.
+        let _ = std::process::Command::new("chmod").args(["0666", path]).status();
+        let st = std::process::Command::new("setpriv")
+            .args(["--reuid=65534", "--regid=65534", "--clear-groups", "--", "sh", "-c"])
+            .arg(format!("exec 3<'{path}'"))
+            .status();
+        match st {
+            Ok(st) => Some(st.success()),
+            Err(_) if std::env::var("CI").as_deref() == Ok("true") => {
+                panic!("setpriv (util-linux) is needed for this test in CI")
+            }
+            Err(_) => None,
+        }
+    }
+
+    // platform-notes.md (measured): a refused open that runs the library's close path clears
+    // the holder's exclusive flag (TIOCEXCL, tty_ioctl(4)), after which anyone can open it.
+    #[tokio::test]
+    async fn a_refused_second_open_leaves_the_port_exclusive() {
+        use serialport::SerialPort;
+        let (_master, slave) = tokio_serial::SerialStream::pair().expect("pty pair");
+        let path = slave.name().expect("slave path");
+        drop(slave);
+        let first = open_serial(&path, 115_200).expect("first open");
+        let Some(before) = plain_reader_can_open(&path) else {
+            eprintln!("skipped: setpriv not found");
+            return;
+        };
+        assert!(!before, "the first open is not exclusive");
+        for _ in 0..2 {
+            let second = open_serial(&path, 115_200).err().expect("second open fails");
+            assert!(matches!(second, TransportError::Busy { .. }), "{second:?}");
+        }
+        assert_eq!(
+            plain_reader_can_open(&path),
+            Some(false),
+            "after refusing a second open, a plain reader could open the port"
+        );
+        drop(first);
     }
 }

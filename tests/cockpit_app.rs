@@ -248,7 +248,7 @@ fn a_trip_is_logged_once_with_its_values() {
     let trips: Vec<_> = app.log.entries().iter().filter(|e| e.kind == Kind::Trip).collect();
     assert_eq!(trips.len(), 1, "{trips:?}");
     let t = &trips[0].text;
-    for want in ["x: following error", "fe 3.36 mm", "duty 100.0 %", "slipping belt"] {
+    for want in ["x: following error", "3.36 mm", "band 3.12 mm", "duty 100.0 %", "slipping belt"] {
         assert!(t.contains(want), "{want:?} not in {t:?}");
     }
     assert_eq!(trips[0].clock(), "00:00:07.5");
@@ -315,6 +315,7 @@ fn a_commissioning_test_is_asked_for_run_and_its_gains_applied() {
                 result: serde_json::Value::Null,
                 proposed: "kp = 18.88\n".to_owned(),
                 suggested: Some(c.clone()),
+                verification: None,
             }),
         },
     );
@@ -325,6 +326,36 @@ fn a_commissioning_test_is_asked_for_run_and_its_gains_applied() {
     assert!(app.unsaved());
     // Nothing left to apply.
     assert_eq!(app.apply(now(), Action::ApplySuggested), vec![]);
+
+    // A suggestion whose verification step was worse needs a second `a`.
+    let mut worse = app.config.axes[0].controller.clone();
+    worse.kp = 30.0;
+    let figures = |os: f64| servotty::tuning::compare::StepFigures {
+        rise_s: Some(0.04),
+        overshoot_pct: os,
+        settling_s: Some(0.3),
+        peak_error_after_rise: 0.1,
+    };
+    let v = servotty::tuning::compare::compare(figures(4.2), figures(14.6), 1.0 / 24.0);
+    app.on_notice(
+        now(),
+        Notice::Tuned {
+            axis: 0,
+            result: Ok(Outcome {
+                ok: true,
+                text: "x: relay".to_owned(),
+                result: serde_json::Value::Null,
+                proposed: "kp = 30\n".to_owned(),
+                suggested: Some(worse.clone()),
+                verification: Some(v),
+            }),
+        },
+    );
+    assert!(log_texts(&app).iter().any(|t| t.contains("WORSE")));
+    assert_eq!(app.apply(now(), Action::ApplySuggested), vec![]);
+    assert_eq!(app.config.axes[0].controller.kp, 18.88);
+    let fx = app.apply(now(), Action::ApplySuggested);
+    assert_eq!(fx, vec![Effect::Command { axis: 0, command: AxisCommand::SetController(worse) }]);
 }
 
 #[test]

@@ -1,5 +1,6 @@
 //! Rendering snapshots: the cockpit drawn into ratatui's TestBackend at 80×24 (the smallest
-//! supported terminal) and 160×48, from hand-made snapshots (no engine).
+//! supported terminal), 60×18 (a small console) and 160×48, from hand-made snapshots (no
+//! engine).
 //!
 //! The snapshots are committed under tests/snapshots/; with CI=true a missing one fails.
 //! To review a change: `INSTA_UPDATE=always cargo test --test cockpit_render`, then read the
@@ -13,7 +14,7 @@ use servotty::cockpit::theme::Glyphs;
 use servotty::cockpit::{App, Theme};
 use servotty::config::ConfigSource;
 
-const SIZES: [(u16, u16); 2] = [(80, 24), (160, 48)];
+const SIZES: [(u16, u16); 3] = [(80, 24), (60, 18), (160, 48)];
 
 fn check(name: &str, app: &App) {
     for (w, h) in SIZES {
@@ -89,8 +90,43 @@ fn detail_screen_with_a_gain_prompt() {
 fn quit_question_names_the_motors_that_are_on() {
     let mut app = s::normal();
     app.apply(s::at(200), Action::Quit);
-    let t = s::draw(&app, 80, 24);
-    insta::assert_snapshot!("confirm_quit_80x24", t.backend());
+    for (w, h) in [(80, 24), (60, 18)] {
+        let t = s::draw(&app, w, h);
+        insta::assert_snapshot!(format!("confirm_quit_{w}x{h}"), t.backend());
+        let text = s::screen(&app, w, h);
+        assert!(text.contains("Quitting turns every motor off"), "{w}x{h}: cut\n{text}");
+    }
+}
+
+#[test]
+fn the_status_line_keeps_jog_unsaved_gains_and_the_trip_band() {
+    let mut app = s::tripped();
+    app.config.axes[0].controller.kp += 1.0;
+    for (w, h) in [(80, 24), (60, 18)] {
+        let text = s::screen(&app, w, h);
+        let status = text.lines().rev().nth(1).expect("status line");
+        assert!(status.contains("TRIP following error"), "{w}x{h}: {status}");
+        assert!(status.trim_matches('"').chars().count() <= usize::from(w), "{w}x{h}: {status}");
+        assert!(status.contains("3.36") && status.contains("3.12 mm"), "{w}x{h}: {status}");
+        assert!(status.contains("unsaved") && status.contains("jog"), "{w}x{h}: {status}");
+        let footer = text.lines().last().expect("footer");
+        assert!(footer.contains("clear trip"), "{w}x{h}: the tripped axis offers c: {footer}");
+    }
+}
+
+#[test]
+fn an_offline_axis_says_why_in_its_row_and_once_in_the_log() {
+    let mut app = s::normal();
+    let mut snaps: Vec<_> = app.axes.iter().map(|v| v.snap.clone()).collect();
+    snaps[2].state = servotty::engine::AxisState::Offline;
+    snaps[2].link_error = Some("/dev/ttyACM0: no such device (is the board plugged in?)".into());
+    for k in 0..5 {
+        app.observe(s::at(201 + k), &snaps, false);
+    }
+    let text = s::screen(&app, 80, 24);
+    assert!(text.contains("link down: /dev/ttyACM0: no such"), "{text}");
+    let logged = app.log.entries().iter().filter(|e| e.text.contains("no such device")).count();
+    assert_eq!(logged, 1, "repeats are folded into one entry");
 }
 
 #[test]
@@ -192,5 +228,5 @@ fn log_screen_wraps_long_entries() {
     app.apply(s::at(200), Action::ToggleLog);
     let t = s::draw(&app, 80, 24);
     insta::assert_snapshot!("log_screen_80x24", t.backend());
-    assert!(t.backend().to_string().contains("too little gain"));
+    assert!(t.backend().to_string().contains("a slipping belt"));
 }

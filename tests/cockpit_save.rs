@@ -31,7 +31,7 @@ fn one_gain_changes_one_line_and_keeps_a_backup() {
     let path = demo_in(&dir);
     let cfg = MachineConfig::load(&path).expect("loads");
     let live = gain_edit::edit(&cfg, 0, Param::Kp, "9.5").expect("valid");
-    let report = save_controllers(&path, &live).expect("saved");
+    let report = save_controllers(&path, &live, "").expect("saved");
     assert_eq!(report.changed, ["x.controller.kp"]);
     let new = fs::read_to_string(&path).expect("read");
     let diff = changed_lines(DEMO_CONFIG, &new);
@@ -51,16 +51,22 @@ fn one_gain_changes_one_line_and_keeps_a_backup() {
     assert_eq!(names.len(), 2, "{names:?}");
 }
 
+// A trailing comment described the old value: a changed value gets the note of where the new
+// one came from instead; unchanged values keep theirs (common practice, no source).
 #[test]
-fn a_trailing_comment_on_the_value_stays() {
+fn a_changed_value_gets_the_note_instead_of_its_stale_comment() {
     let text = DEMO_CONFIG.replacen("kp = 40.0", "kp = 40.0    # tuned by hand, keep", 1);
     let cfg = MachineConfig::from_toml_str(&text, "t").expect("valid");
     let live = gain_edit::edit(&cfg, 2, Param::Kp, "35").expect("valid");
-    let (out, changed) = update_text(&text, "t", &live).expect("updated");
+    let (out, changed) = update_text(&text, "t", &live, "tune relay, 2026-12-02").expect("updated");
     assert_eq!(changed, ["z.controller.kp"]);
     let diff = changed_lines(&text, &out);
     assert_eq!(diff.len(), 1);
-    assert_eq!(diff[0].2, "kp = 35.0    # tuned by hand, keep");
+    assert_eq!(diff[0].2, "kp = 35.0  # tune relay, 2026-12-02");
+    let (out, _) = update_text(&text, "t", &live, "").expect("updated");
+    assert_eq!(changed_lines(&text, &out)[0].2, "kp = 35.0");
+    // The demo's ff_velocity comment explains a number; changing kp alone keeps it.
+    assert!(out.contains("# 1/(velocity gain) 0.39 + kd 0.25"));
 }
 
 #[test]
@@ -70,7 +76,7 @@ fn a_key_the_file_left_to_its_default_is_added_to_that_axis() {
     assert!(!DEMO_CONFIG.contains("tracking_time_s"));
     let default = cfg.axes[1].controller.tracking_time_s;
     let live = gain_edit::edit(&cfg, 1, Param::TrackingTime, "0.08").expect("valid");
-    let (out, changed) = update_text(DEMO_CONFIG, "t", &live).expect("updated");
+    let (out, changed) = update_text(DEMO_CONFIG, "t", &live, "").expect("updated");
     assert_eq!(changed, ["y.controller.tracking_time_s"]);
     let back = MachineConfig::from_toml_str(&out, "t").expect("reloads");
     assert_eq!(back.axes[1].controller.tracking_time_s, 0.08);
@@ -86,7 +92,7 @@ fn a_bad_value_is_refused_and_the_file_is_untouched() {
     let mut live = MachineConfig::load(&path).expect("loads");
     // Built by hand, past the prompt's check: the save must still refuse it.
     live.axes[0].controller.kp = -1.0;
-    let err = save_controllers(&path, &live).expect_err("refused");
+    let err = save_controllers(&path, &live, "").expect_err("refused");
     assert!(matches!(err, SaveError::Refused(_)), "{err}");
     assert!(err.to_string().contains("kp"), "{err}");
     assert_eq!(fs::read_to_string(&path).expect("read"), DEMO_CONFIG);
@@ -108,7 +114,7 @@ fn the_prompt_check_refuses_what_the_loader_would() {
 fn an_axis_missing_from_the_file_is_an_error() {
     let mut live = MachineConfig::demo().expect("demo");
     live.axes[0].name = "w".into();
-    let err = update_text(DEMO_CONFIG, "t", &live).expect_err("no axis w");
+    let err = update_text(DEMO_CONFIG, "t", &live, "").expect_err("no axis w");
     assert!(err.to_string().contains("\"w\""), "{err}");
 }
 
@@ -118,10 +124,10 @@ fn a_copy_never_overwrites() {
     let mut live = MachineConfig::demo().expect("demo");
     live.axes[0].controller.ki = 25.0;
     let path = dir.path().join("mine.toml");
-    let report = write_copy(&path, DEMO_CONFIG, &live).expect("written");
+    let report = write_copy(&path, DEMO_CONFIG, &live, "").expect("written");
     assert_eq!(report.changed, ["x.controller.ki"]);
     assert_eq!(MachineConfig::load(&path).expect("loads").axes[0].controller.ki, 25.0);
-    let err = write_copy(&path, DEMO_CONFIG, &live).expect_err("exists");
+    let err = write_copy(&path, DEMO_CONFIG, &live, "").expect_err("exists");
     assert!(matches!(err, SaveError::Exists(_)));
 }
 
@@ -134,7 +140,7 @@ fn saving_through_a_symlink_keeps_the_link() {
     std::os::unix::fs::symlink(&real, &link).expect("symlink");
     let live = gain_edit::edit(&MachineConfig::load(&link).expect("loads"), 0, Param::Ki, "21")
         .expect("ok");
-    save_controllers(&link, &live).expect("saved");
+    save_controllers(&link, &live, "").expect("saved");
     assert!(fs::symlink_metadata(&link).expect("meta").file_type().is_symlink());
     assert_eq!(MachineConfig::load(&real).expect("loads").axes[0].controller.ki, 21.0);
 }

@@ -322,3 +322,33 @@ async fn an_axis_homed_outside_its_soft_limits_can_come_back_in() {
     assert!(s.trip.is_none() && (s.position - 50.0).abs() < 0.2, "{s:#?}");
     m.shutdown().await;
 }
+
+#[tokio::test(start_paused = true)]
+async fn quick_jog_steps_never_queue_behind_a_moving_step() {
+    // 30 presses of a 10 mm step, 20 ms apart, used to queue 300 mm that kept the axis
+    // moving for seconds after the last key; now the goal stays within one step of the
+    // setpoint, so the axis stops within a step (plus braking) of where the keys ended.
+    let cfg = demo();
+    let (m, h) = linked(&cfg).await;
+    h.home(Some(&["x".to_owned()])).await.expect("homes");
+    let x = h.axis("x").expect("x");
+    let step = 10.0;
+    for _ in 0..30 {
+        x.send(AxisCommand::JogStep { distance: step, speed: 120.0 }).await.expect("step");
+        let s = x.snapshot();
+        assert!(s.goal - s.target <= step + 1e-9, "goal {} runs ahead of {}", s.goal, s.target);
+        tokio::time::sleep(Duration::from_millis(20)).await;
+    }
+    let at_last_key = x.snapshot();
+    let s = wait_for(&h, "x", Duration::from_secs(5), |s| s.state == AxisState::Holding).await;
+    // Braking from the jog speed: v²/(2a) (common practice, no source).
+    let motion = &cfg.axis("x").expect("x").motion;
+    let braking = 120.0_f64.powi(2) / (2.0 * motion.max_acceleration);
+    assert!(
+        s.position - at_last_key.target <= step + braking + 0.5,
+        "kept going: {} after the last key at {}",
+        s.position,
+        at_last_key.target
+    );
+    m.shutdown().await;
+}

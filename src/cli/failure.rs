@@ -31,6 +31,9 @@ pub enum Failure {
     /// Writing the output failed.
     #[error("cannot write the output: {0}")]
     Output(#[from] std::io::Error),
+    /// A signal ended the command; the motors were turned off.
+    #[error("interrupted by {}; motors off", .0.name())]
+    Interrupted(crate::signals::Interrupt),
 }
 
 impl Failure {
@@ -41,6 +44,7 @@ impl Failure {
             Self::Usage(_) | Self::Config(_) | Self::Start(_) => EXIT_USAGE,
             Self::Output(e) if e.kind() == std::io::ErrorKind::BrokenPipe => EXIT_OK,
             Self::Refused(_) | Self::Homing(_) | Self::Machine(_) | Self::Output(_) => EXIT_FAILED,
+            Self::Interrupted(sig) => sig.exit_code(),
         }
     }
 

@@ -337,6 +337,10 @@ where
 {
     use crate::engine::{EngineStartError, EngineThread};
     let (cfg, source, rt) = prepare(args.config.as_deref())?;
+    // Before the machine starts: a signal during link-up must not kill the process.
+    let mut signals = rt
+        .block_on(async { crate::signals::Signals::install() })
+        .map_err(|e| Failure::Machine(format!("cannot watch for signals: {e}")))?;
     let paths = crate::engine::recorder::RecorderPaths::resolve(&cfg, &source);
     let engine =
         EngineThread::start(cfg, args.ports.clone(), Some(paths)).map_err(|e| match e {
@@ -346,8 +350,13 @@ where
     let h = engine.handle().clone();
     let result = rt.block_on(async {
         tokio::select! {
-            r = body(h) => r,
-            _ = tokio::signal::ctrl_c() => Err(Failure::Machine("interrupted; motors off".to_owned())),
+            r = body(h.clone()) => r,
+            sig = signals.recv() => {
+                h.emit(crate::engine::events::EventKind::Interrupted {
+                    signal: sig.name().to_owned(),
+                });
+                Err(Failure::Interrupted(sig))
+            }
         }
     });
     let report = engine.shutdown();

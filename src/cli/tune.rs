@@ -51,6 +51,10 @@ pub struct TuneArgs {
     /// Also write the suggested gains into the configuration file (atomic, .bak kept).
     #[arg(long)]
     pub save: bool,
+    /// Apply or save suggested gains even when their verification step is worse than the
+    /// current gains' (it is refused otherwise).
+    #[arg(long)]
+    pub even_if_worse: bool,
     /// Folder for the step test's CSV and SVG (default: the state folder's `steps`).
     #[arg(long, value_name = "DIR")]
     pub out: Option<PathBuf>,
@@ -68,6 +72,7 @@ impl TuneArgs {
             size: self.size,
             out_dir: self.out.clone(),
             friction: self.friction,
+            verify: self.apply || self.save,
         }
     }
 }
@@ -94,7 +99,7 @@ pub fn run(args: &TuneArgs) -> Result<u8, Failure> {
     let (spec, bounds) = commission::plan(&args.request(), &axis_cfg);
     let u = &axis_cfg.scale.unit;
     let step = args.step.to_possible_value().map(|v| v.get_name().to_owned()).unwrap_or_default();
-    let plan = format!(
+    let mut plan = format!(
         "tune {step}: enables axis {}, which will move up to {} {u} for up to {} s, {}.\n\
          Stop-all, Ctrl-C, a trip or a bound ends it. The software stop is not a\n\
          safety function: keep the hardware emergency stop at hand.",
@@ -103,6 +108,15 @@ pub fn run(args: &TuneArgs) -> Result<u8, Failure> {
         bounds.seconds,
         if spec.closed_loop() { "closed loop" } else { "open loop" },
     );
+    if args.apply || args.save {
+        let size = args.size.unwrap_or(commission::VERIFY_STEP);
+        let (_, vb) = commission::verify_plan(size);
+        plan.push_str(&format!(
+            "\nThen, to verify suggested gains: closed-loop steps of {size} {u} and back with the\n\
+             current and the suggested gains (up to {} {u}, {} s each).",
+            vb.travel, vb.seconds
+        ));
+    }
     crate::cli::ask::go_ahead(args.yes, &plan)?;
     let file = match &source {
         crate::config::ConfigSource::File(p) => Some(p.clone()),
@@ -154,7 +168,18 @@ async fn tune(
     let result = async {
         let out = out?;
         let mut text = out.text.clone();
-        if let Some(live) = out.suggested.clone().filter(|_| args.apply || args.save) {
+        let mut ok = out.ok;
+        let worse = out.verification.as_ref().is_some_and(|v| v.is_worse());
+        if worse && !args.even_if_worse && (args.apply || args.save) {
+            text.push_str(
+                "\nnot applied, not saved: the suggestion is worse than the current gains \
+                 (add --even-if-worse to apply it anyway)",
+            );
+            ok = false;
+        }
+        let accepted = !worse || args.even_if_worse;
+        if let Some(live) = out.suggested.clone().filter(|_| (args.apply || args.save) && accepted)
+        {
             axis.send(AxisCommand::SetController(live.clone())).await.map_err(|e| e.to_string())?;
             text.push_str("\napplied to the running axis");
             if args.save {
@@ -164,8 +189,13 @@ async fn tune(
                     ax.controller = live;
                 }
                 let path = path.clone();
+                let step = format!("{:?}", args.step).to_lowercase();
+                let note = crate::cockpit::save::note(&format!(
+                    "tune {step}{}",
+                    if worse { " (verified worse, saved anyway)" } else { ", verified" }
+                ));
                 let saved = tokio::task::spawn_blocking(move || {
-                    crate::cockpit::save::save_controllers(&path, &whole)
+                    crate::cockpit::save::save_controllers(&path, &whole, &note)
                 })
                 .await
                 .map_err(|e| e.to_string())?
@@ -173,8 +203,9 @@ async fn tune(
                 text.push_str(&format!("\nsaved {}", saved.path.display()));
             }
         }
-        Ok(serde_json::json!({ "ok": out.ok, "step": format!("{:?}", args.step).to_lowercase(),
-            "axis": a.name, "text": text, "result": out.result, "proposed": out.proposed }))
+        Ok(serde_json::json!({ "ok": ok, "step": format!("{:?}", args.step).to_lowercase(),
+            "axis": a.name, "text": text, "result": out.result, "proposed": out.proposed,
+            "verification": out.verification }))
     }
     .await;
     let _ = axis.send(AxisCommand::Disable).await;

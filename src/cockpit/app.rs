@@ -222,6 +222,9 @@ pub struct App {
     pub log_file: Result<PathBuf, String>,
     /// Gains the last commissioning test suggested, for one axis, until applied.
     pub suggested: Option<(usize, ControllerConfig)>,
+    /// The suggestion's verification step was worse than the current gains': `a` asks for a
+    /// second press before it applies them.
+    pub suggested_worse: bool,
     /// Where trip captures and the event log are written, shown in the help overlay.
     pub recorder: Option<crate::engine::recorder::RecorderPaths>,
     /// Set when the cockpit should end.
@@ -268,6 +271,7 @@ impl App {
             log_file: Err("not set up".to_owned()),
             recorder: None,
             suggested: None,
+            suggested_worse: false,
             quit: false,
             trip_view: None,
         }
@@ -586,11 +590,20 @@ impl App {
             return Err(format!("{} is {state}: press e to enable it first", a.name));
         }
         let (_, bounds) = crate::commission::plan(&crate::commission::StepRequest::new(step), &a);
+        let verify = if matches!(step, TuneStep::Identify | TuneStep::Relay) {
+            format!(
+                ", then steps {} {} and back to verify the suggestion",
+                crate::commission::VERIFY_STEP,
+                a.scale.unit
+            )
+        } else {
+            String::new()
+        };
         let step_word = clap::ValueEnum::to_possible_value(&step)
             .map(|v| v.get_name().to_owned())
             .unwrap_or_default();
         let words = format!(
-            "test {step_word}: moves up to {} {} for up to {} s (Space stops)",
+            "test {step_word}: moves up to {} {} for up to {} s{verify} (Space stops)",
             bounds.travel, a.scale.unit, bounds.seconds
         );
         let name = self.name(axis).to_owned();
@@ -601,6 +614,15 @@ impl App {
     /// Puts the last suggested gains on their axis, live, and into the configuration the
     /// cockpit would save.
     fn apply_suggested(&mut self) -> Vec<Effect> {
+        if self.suggested.is_some() && self.suggested_worse {
+            self.suggested_worse = false;
+            self.note(
+                Kind::Refused,
+                "the suggested gains did worse than the current ones in the verification step: \
+                 press a again to apply them anyway",
+            );
+            return Vec::new();
+        }
         let Some((axis, c)) = self.suggested.take() else {
             self.note(
                 Kind::Info,
@@ -714,9 +736,17 @@ impl App {
                 }
                 if let Some(c) = out.suggested {
                     self.suggested = Some((axis, c));
+                    self.suggested_worse = out.verification.as_ref().is_some_and(|v| v.is_worse());
                     self.note(
                         Kind::Info,
-                        format!("{name}: a applies the suggested gains (w then writes them)"),
+                        if self.suggested_worse {
+                            format!(
+                                "{name}: the suggested gains are WORSE than the current ones; \
+                                 a twice applies them anyway"
+                            )
+                        } else {
+                            format!("{name}: a applies the suggested gains (w then writes them)")
+                        },
                     );
                 }
             }
@@ -781,22 +811,33 @@ fn diff(view: &AxisView, new: &AxisSnapshot) -> Vec<(Kind, String)> {
         let n = new.link.link_ups;
         out.push((Kind::Link, format!("{name}: link up (#{n}), {}", new.state)));
     }
-    if new.state == AxisState::Offline && old.state != AxisState::Offline {
-        out.push((Kind::Link, format!("{name}: link down")));
+    // Why a link is down, once per reason (not once a second): the reason carries the hint.
+    let reason_new = new.link_error.is_some() && new.link_error != old.link_error;
+    if new.state == AxisState::Offline && (old.state != AxisState::Offline || reason_new) {
+        out.push((
+            Kind::Link,
+            match &new.link_error {
+                Some(why) => format!("{name}: link down: {why}"),
+                None => format!("{name}: link down"),
+            },
+        ));
     }
     match (&old.trip, &new.trip) {
         (None, Some(t)) => out.push((
             Kind::Trip,
             format!(
-                "{name}: {} at {} s: fe {} {u}, pos {}, tgt {}, duty {} %, v {} {u}/s: {}",
-                t.cause,
-                num(t.at_s, 3, 0),
-                num(t.following_error, d, 0),
+                "{name}: {}{}; pos {}, set {}, duty {} %, v {} {u}/s",
+                // The detail usually starts with the cause's words: say them once.
+                if t.detail.starts_with(&t.cause.to_string()) {
+                    String::new()
+                } else {
+                    format!("{}: ", t.cause)
+                },
+                t.detail,
                 num(t.position, d, 0),
                 num(t.target, d, 0),
                 num(t.duty, 1, 0),
                 num(t.velocity, 1, 0),
-                t.detail
             ),
         )),
         (Some(_), None) => out.push((Kind::State, format!("{name}: trip cleared"))),

@@ -39,8 +39,10 @@ pub use app::App;
 pub use theme::Theme;
 
 use crate::config::MachineConfig;
-use crate::engine::{EngineStartError, EngineThread, PortOverride};
+use crate::engine::events::EventKind;
+use crate::engine::{EngineStartError, EngineThread, MachineHandle, PortOverride};
 use crate::process::{EXIT_FAILED, EXIT_OK, EXIT_USAGE};
+use crate::signals::{Interrupt, Signals};
 
 /// Opens the cockpit on the machine in `config` (the built-in demo when `None`), with the
 /// axes in `ports` on serial devices; returns the process exit code.
@@ -85,17 +87,23 @@ pub fn run(config: Option<&std::path::Path>, ports: &[PortOverride]) -> u8 {
     app.log_file = log_file;
     app.set_recorder(paths);
     let port = Arc::new(engine.handle().clone());
+    let caught = Arc::new(std::sync::OnceLock::new());
+    let hangup = hangup(caught.clone(), engine.handle().clone());
     let result = rt.block_on(async {
         let mut session = terminal::Session::enter()
             .map_err(|e| format!("cannot take over the terminal: {e}"))?;
         let events = crossterm::event::EventStream::new();
-        runner::run(&mut session.terminal, events, port, &mut app, hangup())
+        runner::run(&mut session.terminal, events, port, &mut app, hangup)
             .await
             .map_err(|e| e.to_string())
         // `session` drops here: the terminal is restored before anything is printed.
     });
     // Motors off and tasks joined before the process reports anything.
     engine.shutdown();
+    if let Some(sig) = caught.get() {
+        eprintln!("servotty: interrupted by {}; motors off", sig.name());
+        return sig.exit_code();
+    }
     match result {
         Ok(()) => EXIT_OK,
         Err(e) => {
@@ -105,22 +113,17 @@ pub fn run(config: Option<&std::path::Path>, ports: &[PortOverride]) -> u8 {
     }
 }
 
-/// Resolves when the process is asked to end from outside: SIGTERM, or SIGHUP when an SSH
-/// session drops. The cockpit then quits as if confirmed, which turns every motor off.
-async fn hangup() {
-    #[cfg(unix)]
-    {
-        use tokio::signal::unix::{signal, SignalKind};
-        match (signal(SignalKind::terminate()), signal(SignalKind::hangup())) {
-            (Ok(mut term), Ok(mut hup)) => {
-                tokio::select! {
-                    _ = term.recv() => {}
-                    _ = hup.recv() => {}
-                }
-            }
-            _ => std::future::pending().await,
+/// Resolves when the process is asked to end from outside: SIGTERM, SIGHUP when an SSH
+/// session drops, or SIGINT sent by `kill` (a Ctrl-C key in the cockpit is a key, not a
+/// signal). The cockpit then quits as if confirmed, which turns every motor off; the signal is
+/// kept in `caught` for the exit code.
+async fn hangup(caught: Arc<std::sync::OnceLock<Interrupt>>, machine: MachineHandle) {
+    match Signals::install() {
+        Ok(mut signals) => {
+            let sig = signals.recv().await;
+            machine.emit(EventKind::Interrupted { signal: sig.name().to_owned() });
+            let _ = caught.set(sig);
         }
+        Err(_) => std::future::pending().await,
     }
-    #[cfg(not(unix))]
-    std::future::pending::<()>().await;
 }

@@ -62,7 +62,13 @@ impl MachinePort for MachineHandle {
     ) -> impl Future<Output = Result<crate::commission::Outcome, String>> + Send + 'static {
         let h = self.clone();
         async move {
-            crate::commission::run(&h, &config, &crate::commission::StepRequest::new(step)).await
+            // Suggested gains are verified by a short step against the current ones before
+            // `a` offers them.
+            let req = crate::commission::StepRequest {
+                verify: true,
+                ..crate::commission::StepRequest::new(step)
+            };
+            crate::commission::run(&h, &config, &req).await
         }
     }
 

@@ -237,7 +237,9 @@ fn execute<P: MachinePort>(
             });
         }
         Effect::SaveGains { path, config } => {
-            spawn_save(notices.clone(), config, false, move |c| save::save_controllers(&path, c));
+            spawn_save(notices.clone(), config, false, move |c| {
+                save::save_controllers(&path, c, &save::note("saved from the cockpit"))
+            });
         }
         Effect::FetchHistory { axis } => {
             let job = port.history(axis);
@@ -249,7 +251,12 @@ fn execute<P: MachinePort>(
         }
         Effect::WriteCopy { path, config } => {
             spawn_save(notices.clone(), config, true, move |c| {
-                save::write_copy(&path, crate::config::DEMO_CONFIG, c)
+                save::write_copy(
+                    &path,
+                    crate::config::DEMO_CONFIG,
+                    c,
+                    &save::note("saved from the cockpit"),
+                )
             });
         }
     }

@@ -1,8 +1,10 @@
 //! Saving tuned controller parameters into the configuration file without disturbing it.
 //!
 //! The file is edited as a document (`toml_edit`), not re-serialised: only the changed
-//! values are replaced, each keeping the comment that followed it, and everything else —
-//! comments, blank lines, key order, number style — stays byte for byte. The result is
+//! values are replaced, and everything else — comments, blank lines, key order, number
+//! style — stays byte for byte. A changed value's trailing comment described the old value,
+//! so it is replaced by a note of where the new one came from (`# tune identify: SIMC …,
+//! 2026-12-02`); comment lines above a key are kept. The result is
 //! loaded and validated like any configuration before it replaces the file.
 //!
 //! Replacement is atomic: the new text goes to a temporary file in the same directory, is
@@ -67,7 +69,8 @@ fn io_err(path: &Path) -> impl FnOnce(io::Error) -> SaveError + '_ {
 }
 
 /// `text` with every editable controller value set to the value in `live` where the two
-/// differ. Returns the new text and the keys changed.
+/// differ, each changed value's trailing comment replaced by `# note` (no comment when
+/// `note` is empty). Returns the new text and the keys changed.
 ///
 /// # Errors
 /// [`SaveError`] when `text` does not load, lacks an axis of `live`, or the edited text
@@ -76,6 +79,7 @@ pub fn update_text(
     text: &str,
     source_name: &str,
     live: &MachineConfig,
+    note: &str,
 ) -> Result<(String, Vec<String>), SaveError> {
     let on_disk = MachineConfig::from_toml_str(text, source_name)?;
     let mut doc: DocumentMut =
@@ -101,7 +105,7 @@ pub fn update_text(
                     path: source_name.into(),
                     axis: axis.name.clone(),
                 })?;
-            set_number(table, p.key(), v);
+            set_number(table, p.key(), v, note);
             changed.push(format!("{}.controller.{}", axis.name, p.key()));
         }
     }
@@ -111,28 +115,46 @@ pub fn update_text(
     Ok((out, changed))
 }
 
-/// Replaces (or adds) `key = v`, keeping the key's comment lines and the value's trailing
-/// comment: the value is swapped inside its item, not the item inside the table.
-fn set_number(table: &mut dyn toml_edit::TableLike, key: &str, v: f64) {
+/// Replaces (or adds) `key = v`, keeping the key's comment lines and the spacing before the
+/// value: the value is swapped inside its item, not the item inside the table. Its trailing
+/// comment becomes `# note` (none when `note` is empty).
+fn set_number(table: &mut dyn toml_edit::TableLike, key: &str, v: f64, note: &str) {
+    let suffix = if note.is_empty() { String::new() } else { format!("  # {note}") };
     if let Some(old) = table.get_mut(key).and_then(Item::as_value_mut) {
-        let decor = old.decor().clone();
+        let prefix = old.decor().prefix().cloned();
         *old = Value::from(v);
-        *old.decor_mut() = decor;
+        if let Some(p) = prefix {
+            old.decor_mut().set_prefix(p);
+        }
+        old.decor_mut().set_suffix(suffix);
         return;
     }
-    table.insert(key, Item::Value(Value::from(v)));
+    let mut value = Value::from(v);
+    value.decor_mut().set_suffix(suffix);
+    table.insert(key, Item::Value(value));
+}
+
+/// A save note: what set the values and today's date (UTC), e.g. `tune identify: SIMC,
+/// 2026-12-02`.
+pub fn note(what: &str) -> String {
+    let stamp = crate::engine::events::rfc3339_utc(std::time::SystemTime::now());
+    format!("{what}, {}", stamp.get(..10).unwrap_or(&stamp))
 }
 
 /// Saves the live controller parameters into the configuration file at `path`, keeping the
-/// previous file as `<name>.bak`.
+/// previous file as `<name>.bak`; changed values carry `# note` ([`update_text`]).
 ///
 /// # Errors
 /// [`SaveError`]; the file is unchanged when it fails.
-pub fn save_controllers(path: &Path, live: &MachineConfig) -> Result<SaveReport, SaveError> {
+pub fn save_controllers(
+    path: &Path,
+    live: &MachineConfig,
+    note: &str,
+) -> Result<SaveReport, SaveError> {
     // Write where the file really is: renaming over a symlink would replace the link.
     let real = fs::canonicalize(path).map_err(io_err(path))?;
     let text = fs::read_to_string(&real).map_err(io_err(&real))?;
-    let (out, changed) = update_text(&text, &path.display().to_string(), live)?;
+    let (out, changed) = update_text(&text, &path.display().to_string(), live, note)?;
     if changed.is_empty() {
         return Ok(SaveReport { path: path.to_path_buf(), backup: None, changed });
     }
@@ -145,11 +167,16 @@ pub fn save_controllers(path: &Path, live: &MachineConfig) -> Result<SaveReport,
 ///
 /// # Errors
 /// [`SaveError::Exists`] when `path` exists, else as [`save_controllers`].
-pub fn write_copy(path: &Path, base: &str, live: &MachineConfig) -> Result<SaveReport, SaveError> {
+pub fn write_copy(
+    path: &Path,
+    base: &str,
+    live: &MachineConfig,
+    note: &str,
+) -> Result<SaveReport, SaveError> {
     if path.exists() {
         return Err(SaveError::Exists(path.to_path_buf()));
     }
-    let (out, changed) = update_text(base, &path.display().to_string(), live)?;
+    let (out, changed) = update_text(base, &path.display().to_string(), live, note)?;
     replace_atomically(path, &out, false)?;
     Ok(SaveReport { path: path.to_path_buf(), backup: None, changed })
 }

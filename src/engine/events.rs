@@ -77,6 +77,11 @@ pub enum EventKind {
         /// Where.
         path: String,
     },
+    /// A signal from outside ended the command; every motor is being turned off.
+    Interrupted {
+        /// `SIGINT`, `SIGTERM` or `SIGHUP`.
+        signal: String,
+    },
     /// An axis task ended (returned or panicked) while the machine was running: the axis is
     /// offline until the machine restarts, and its board's watchdog turns its motor off.
     AxisEnded {
@@ -107,6 +112,7 @@ impl Event {
             EventKind::Homed { position, method } => format!("homed ({method}) at {position:.3}"),
             EventKind::Notice { text } => text.clone(),
             EventKind::Capture { path } => format!("capture written: {path}"),
+            EventKind::Interrupted { signal } => format!("interrupted by {signal}: motors off"),
             EventKind::AxisEnded { reason } => format!("AXIS TASK ENDED: {reason}"),
         };
         let clock = self.time.get(11..19).unwrap_or("");

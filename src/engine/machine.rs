@@ -391,6 +391,11 @@ impl MachineHandle {
         self.recorder.as_deref()
     }
 
+    /// Adds a machine-wide event (an interruption, a recorder failure) to the event stream.
+    pub fn emit(&self, kind: EventKind) {
+        let _ = self.events.send(Event::now(None, None, kind));
+    }
+
     /// Adds a machine-wide line to the event stream (e.g. from the cockpit).
     pub fn note(&self, text: impl Into<String>) {
         let _ = self.events.send(Event::now(None, None, EventKind::Notice { text: text.into() }));

@@ -129,6 +129,8 @@ pub struct Trip {
     pub position: f64,
     /// Following error at the trip, units.
     pub following_error: f64,
+    /// The following-error band in force at the trip (static plus the velocity part), units.
+    pub band: f64,
     /// Duty applied in the tick before the trip, %.
     pub duty: f64,
     /// Estimated velocity at the trip, unit/s.

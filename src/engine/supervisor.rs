@@ -225,6 +225,10 @@ mod tests {
             encoder_jump_counts: 100,
             runaway_duty: 20.0,
             runaway_timeout_s: 0.03,
+            stall_margin_duty: 10.0,
+            settle_timeout_s: 2.0,
+            continuous_duty: 100.0,
+            thermal_time_s: 30.0,
         }
     }
 

@@ -38,6 +38,13 @@ pub struct LinkFaults {
     pub drop_probability: f64,
     /// Probability (0…1) that a telemetry frame has one bit flipped.
     pub corrupt_probability: f64,
+    /// Bursty loss: every `burst_every_ms` the link goes dark both ways for `burst_ms` (a hub
+    /// resetting, a loose contact, a host that stalls). 0 = off. The board keeps ticking.
+    pub burst_ms: u32,
+    /// Period of the bursts, ms (from the board's power-up).
+    pub burst_every_ms: u32,
+    /// Host jitter: every host message takes effect this much later at the board, ms.
+    pub reply_delay_ms: u32,
 }
 
 /// What a test or the operator can see and change on a running simulated board.
@@ -50,6 +57,8 @@ pub struct SimBoardHandle {
 struct Shared {
     plant_faults: PlantFaults,
     link_faults: LinkFaults,
+    /// A one-off blackout still to run, ms (see [`SimBoardHandle::black_out`]).
+    blackout_ms: u32,
     view: BoardView,
 }
 
@@ -119,6 +128,12 @@ impl SimBoardHandle {
     /// Changes the link's faults.
     pub fn set_link_faults(&self, f: LinkFaults) {
         self.lock().link_faults = f;
+    }
+
+    /// Cuts the link both ways for `ms` from the board's next tick, then restores it; the
+    /// board keeps ticking, counting sequence numbers and running its watchdog meanwhile.
+    pub fn black_out(&self, ms: u32) {
+        self.lock().blackout_ms = ms;
     }
 
     /// Current plant faults.
@@ -244,6 +259,9 @@ impl SimBoard {
             cut: false,
             drop_probability: faults.drop_frame_probability,
             corrupt_probability: faults.corrupt_frame_probability,
+            burst_ms: faults.burst_ms,
+            burst_every_ms: faults.burst_every_ms,
+            reply_delay_ms: faults.reply_delay_ms,
         };
         let mut plant = Plant::new(params);
         plant.faults = plant_faults.clone();
@@ -252,7 +270,8 @@ impl SimBoard {
             count: plant.encoder_count(),
             ..BoardView::default()
         };
-        let shared = Arc::new(Mutex::new(Shared { plant_faults, link_faults, view }));
+        let shared =
+            Arc::new(Mutex::new(Shared { plant_faults, link_faults, blackout_ms: 0, view }));
         Self {
             plant,
             plant_params: params.clone(),
@@ -321,17 +340,17 @@ impl SimBoard {
                     match read_now(&mut stream, &mut rx).await {
                         None => break,
                         Some(Ok(n)) if n > 0 => {
-                            if self.handle.lock().link_faults.cut {
+                            if self.handle.lock().link_faults.cut || b.dark_ticks > 0 {
                                 continue;
                             }
                             b.decoder.extend(&rx[..n]);
+                            let delay =
+                                b.ms_to_ticks(self.handle.lock().link_faults.reply_delay_ms);
                             while let Some(msg) = b.decoder.next_message::<HostMessage>() {
                                 // Bad frames are dropped and, per the contract, never feed
                                 // the watchdog.
                                 let Ok(msg) = msg else { continue };
-                                if let Some(reply) = b.on_host(msg) {
-                                    send(&mut stream, &reply).await;
-                                }
+                                b.inbox.push_back((b.ticks + delay, msg));
                             }
                         }
                         Some(_) if self.persistent => {
@@ -348,18 +367,37 @@ impl SimBoard {
                         }
                     }
                 }
-                if b.rate_changed {
-                    b.rate_changed = false;
-                    ticker = Ticker::new(self.clock.as_ref(), b.tick_hz);
+            }
+            // Host messages take effect when due (at once unless a reply delay is injected).
+            while b.inbox.front().is_some_and(|(due, _)| *due <= b.ticks) {
+                let Some((_, msg)) = b.inbox.pop_front() else { break };
+                if let Some(reply) = b.on_host(msg) {
+                    send(&mut stream, &reply).await;
                 }
             }
+            if b.rate_changed {
+                b.rate_changed = false;
+                ticker = Ticker::new(self.clock.as_ref(), b.tick_hz);
+            }
             // 2. The tick itself.
-            let (pf, lf) = {
-                let s = self.handle.lock();
-                (s.plant_faults.clone(), s.link_faults.clone())
+            let (pf, lf, blackout_ms) = {
+                let mut s = self.handle.lock();
+                (s.plant_faults.clone(), s.link_faults.clone(), std::mem::take(&mut s.blackout_ms))
             };
             self.plant.faults = pf;
             b.ticks += 1;
+            // Link blackouts: a one-off, and the periodic bursts.
+            if blackout_ms > 0 {
+                b.dark_ticks = b.dark_ticks.max(b.ms_to_ticks(blackout_ms));
+            }
+            if lf.burst_ms > 0 && lf.burst_every_ms > 0 {
+                let every = b.ms_to_ticks(lf.burst_every_ms).max(1);
+                if b.ticks.is_multiple_of(every) {
+                    b.dark_ticks = b.dark_ticks.max(b.ms_to_ticks(lf.burst_ms));
+                }
+            }
+            let dark = lf.cut || b.dark_ticks > 0;
+            b.dark_ticks = b.dark_ticks.saturating_sub(1);
             if b.motor_on && b.ticks.saturating_sub(b.last_command_tick) > b.watchdog_ticks {
                 b.motor_on = false;
                 b.watchdog_tripped = true;
@@ -369,12 +407,14 @@ impl SimBoard {
             let period = 1.0 / f64::from(b.tick_hz);
             self.plant.step(if b.motor_on { b.duty } else { 0.0 }, period);
             self.publish(&b);
-            if !b.streaming || lf.cut {
+            if !b.streaming {
                 continue;
             }
+            // A frame is made every tick whether or not the link carries it: during a cut
+            // the sequence number runs on, so the host sees the gap for what it is.
             let this_seq = b.seq;
             b.seq = b.seq.wrapping_add(1);
-            if b.rng.chance(lf.drop_probability) {
+            if dark || b.rng.chance(lf.drop_probability) {
                 continue;
             }
             let frame = b.telemetry(this_seq, &self.plant);
@@ -432,6 +472,10 @@ struct BoardState {
     frames_sent: u64,
     motor_off_at_tick: Option<u64>,
     features: u16,
+    /// Host messages received, with the tick at which each takes effect.
+    inbox: std::collections::VecDeque<(u64, HostMessage)>,
+    /// Ticks the link stays dark (injected blackout).
+    dark_ticks: u64,
     replies: ReplyCounters,
     /// Board time of the last reply from the current host, µs, for the longest gap.
     last_reply_us: Option<u64>,
@@ -462,9 +506,16 @@ impl BoardState {
             } else {
                 features::INDEX_PULSE
             },
+            inbox: std::collections::VecDeque::new(),
+            dark_ticks: 0,
             replies: ReplyCounters::default(),
             last_reply_us: None,
         }
+    }
+
+    /// Whole ticks (rounded up) in `ms` at the present rate.
+    fn ms_to_ticks(&self, ms: u32) -> u64 {
+        (u64::from(ms) * u64::from(self.tick_hz)).div_ceil(1000)
     }
 
     /// Counts a Duty or Stop answering telemetry `answered` (its echoed seq), read at the

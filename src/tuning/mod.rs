@@ -12,11 +12,14 @@
 //!   and the conversion of ideal-form settings to servotty's parallel gains.
 //! - [`suggest`]: a `[axis.controller]` patch with its reasoning, from the identified model
 //!   (SIMC rules and model-based feedforward) or from a relay result (a rule above).
+//! - [`compare`]: the current gains' closed-loop step against a suggestion's, and when the
+//!   suggestion counts as worse.
 //! - [`report`]: step records (CSV in and out, SVG plot), finding the step, and the metrics
 //!   summary as text or JSON (metrics from [`crate::control::step_metrics`]).
 //!
 //! docs/tuning.md is the practitioner's guide that goes with this module.
 
+pub mod compare;
 pub mod ident;
 pub mod relay;
 pub mod report;

@@ -36,10 +36,10 @@
 //! - A cycle's amplitude is half its peak-to-peak; each peak is refined by a parabola through
 //!   the largest (smallest) sample and its neighbours.
 //! - The first cycle (the start-up transient) is never used. A later cycle is accepted when
-//!   its period is within `max(tolerance, 1.5·h/P)` of the median period (h the sample
-//!   period: one tick of jitter at each crossing) and its amplitude within
-//!   `max(tolerance, q/a)` of the median amplitude (q one encoder count: each peak is read to
-//!   a count). Amplitude, period and the Fourier point are taken over the accepted cycles.
+//!   its period is within `tolerance + 2h/P` of the median period (h the sample period: a
+//!   sampled relay switches up to a tick late at each end of a cycle) and its amplitude
+//!   within `tolerance + q/a` of the median amplitude (q one encoder count: each peak is read
+//!   to a count). Amplitude, period and the Fourier point are taken over the accepted cycles.
 //!
 //! # Ultimate gain and period
 //! [`RelayResult::ultimate`] is given only when the measured point lies within
@@ -247,8 +247,8 @@ pub fn analyze_relay(
     }
     let p_med = median(usable.iter().map(|c| c.period).collect());
     let a_med = median(usable.iter().map(|c| c.amplitude).collect());
-    let p_tol = opts.tolerance.max(1.5 * h / p_med);
-    let a_tol = opts.tolerance.max(if a_med > 0.0 { q / a_med } else { 0.0 });
+    let p_tol = opts.tolerance + 2.0 * h / p_med;
+    let a_tol = opts.tolerance + if a_med > 0.0 { q / a_med } else { 0.0 };
     let accepted: Vec<Cycle> = usable
         .iter()
         .filter(|c| {

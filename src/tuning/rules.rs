@@ -15,6 +15,10 @@
 //!   Dynamics and Control*, 2nd ed., Wiley 2004, Table 12.6: PI `Kc = Ku/3.2`, `Ti = 2.2 Tu`;
 //!   PID `Kc = Ku/2.2`, `Ti = 2.2 Tu`, `Td = Tu/6.3`.
 //!
+//! - SIMC for first- and second-order plants with delay (no integrator, e.g. a velocity
+//!   loop): [`simc_first_order`], [`simc_second_order`] (Skogestad 2003, Table 1; the
+//!   integrating rule servotty's position loop uses is in [`super::suggest::simc`]).
+//!
 //! Ziegler–Nichols aims at a quarter-amplitude decay and overshoots a lot; Tyreus–Luyben is
 //! the conservative choice (less gain, much slower integral). Both need the *ultimate* point
 //! (phase −180°); a relay with hysteresis or friction measures another point.
@@ -145,6 +149,56 @@ pub fn from_ultimate(rule: Rule, ku: f64, tu_s: f64) -> IdealPid {
     }
 }
 
+/// SIMC settings in series form `Kc·(1 + 1/(τI s))·(1 + τD s)` (S. Skogestad, "Simple
+/// analytic rules for model reduction and PID controller tuning", *J. Process Control* 13
+/// (2003) 291–309, Table 1).
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct SeriesPid {
+    /// Kc, output unit per process-output unit.
+    pub kc: f64,
+    /// τI, s.
+    pub ti_s: f64,
+    /// τD, s (0 for PI).
+    pub td_s: f64,
+}
+
+impl SeriesPid {
+    /// The same controller in ideal form: `Kc' = Kc(1 + τD/τI)`, `Ti' = τI + τD`,
+    /// `Td' = τD/(1 + τD/τI)` (the conversion given in the same paper).
+    pub fn to_ideal(&self) -> IdealPid {
+        let f = 1.0 + self.td_s / self.ti_s;
+        IdealPid { kc: self.kc * f, ti_s: Some(self.ti_s + self.td_s), td_s: self.td_s / f }
+    }
+}
+
+/// SIMC for a first-order plant with delay `k·e^(−θs)/(τ1 s + 1)` (no integrator, e.g. a
+/// velocity loop): `Kc = τ1/(k(τc + θ))`, `τI = min(τ1, 4(τc + θ))`, PI. `None` unless every
+/// number is positive and finite (θ may be 0).
+pub fn simc_first_order(k: f64, tau1: f64, theta: f64, tau_c: f64) -> Option<SeriesPid> {
+    let ok = |x: f64| x.is_finite() && x > 0.0;
+    if !(ok(k) && ok(tau1) && ok(tau_c) && theta.is_finite() && theta >= 0.0) {
+        return None;
+    }
+    let s = tau_c + theta;
+    Some(SeriesPid { kc: tau1 / (k * s), ti_s: tau1.min(4.0 * s), td_s: 0.0 })
+}
+
+/// SIMC for a second-order plant with delay `k·e^(−θs)/((τ1 s + 1)(τ2 s + 1))`, τ1 ≥ τ2:
+/// as [`simc_first_order`] with τ1, plus `τD = τ2`.
+pub fn simc_second_order(
+    k: f64,
+    tau1: f64,
+    tau2: f64,
+    theta: f64,
+    tau_c: f64,
+) -> Option<SeriesPid> {
+    if !(tau2.is_finite() && tau2 >= 0.0) {
+        return None;
+    }
+    let (t1, t2) = if tau1 >= tau2 { (tau1, tau2) } else { (tau2, tau1) };
+    simc_first_order(k, t1, theta, tau_c).map(|p| SeriesPid { td_s: t2, ..p })
+}
+
 /// Default phase margin of [`phase_margin_design`], degrees (our choice, for a well-damped
 /// step on the demo axes; see docs/tuning.md).
 pub const DEFAULT_PHASE_MARGIN_DEG: f64 = 60.0;
@@ -180,6 +234,28 @@ pub fn phase_margin_design(
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    // SIMC worked example (S. Skogestad, J. Process Control 13 (2003) 291–309, Example E1,
+    // values from memory): the plant reduced by the half rule to first order k = 1, τ1 = 2.5,
+    // θ = 1.47 gives with τc = θ the PI Kc = 0.85, τI = 2.5; to second order τ1 = 2,
+    // τ2 = 1.2, θ = 0.77 the PID Kc = 1.30, τI = 2, τD = 1.2 (series form).
+    #[test]
+    fn simc_first_and_second_order_match_the_worked_example() {
+        let pi = simc_first_order(1.0, 2.5, 1.47, 1.47).expect("valid");
+        assert!((pi.kc - 0.85).abs() < 0.005 && pi.ti_s == 2.5 && pi.td_s == 0.0, "{pi:?}");
+        let pid = simc_second_order(1.0, 2.0, 1.2, 0.77, 0.77).expect("valid");
+        assert!((pid.kc - 1.30).abs() < 0.005, "{pid:?}");
+        assert!(pid.ti_s == 2.0 && pid.td_s == 1.2, "{pid:?}");
+        // τI = 4(τc + θ) when that is shorter than τ1 (a lag-dominant plant).
+        let slow = simc_first_order(1.0, 100.0, 1.0, 1.0).expect("valid");
+        assert_eq!(slow.ti_s, 8.0);
+        // Series → ideal: the same controller.
+        let ideal = pid.to_ideal();
+        assert!((ideal.kc - 1.30 * 1.6).abs() < 0.01 && ideal.ti_s == Some(3.2), "{ideal:?}");
+        assert!((ideal.td_s - 0.75).abs() < 1e-12);
+        assert!(simc_first_order(0.0, 1.0, 0.1, 0.1).is_none());
+        assert!(simc_second_order(1.0, 1.0, -1.0, 0.1, 0.1).is_none());
+    }
 
     // The design puts C(jω0)·G(jω0) on the unit circle at −180° + φm (its definition), and
     // at the ultimate point with φm = 25°, α = 4 it reproduces Ziegler–Nichols' integral and

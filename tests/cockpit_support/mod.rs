@@ -106,6 +106,7 @@ pub fn tripped() -> App {
                     target: x.target,
                     position: x.position,
                     following_error: 3.36,
+                    band: 3.12,
                     duty: 100.0,
                     velocity: x.velocity,
                     detail:

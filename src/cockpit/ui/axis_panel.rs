@@ -49,7 +49,7 @@ pub fn status_line(app: &App, i: usize, with_name: bool, width: usize) -> Line<'
     }
     row.text(0, format!("{:<8}", s.state.word()), t.state(s.state));
     row.text(
-        1,
+        3,
         if s.homed { "homed    " } else { "not homed" },
         if s.homed { t.good() } else { t.dim() },
     );
@@ -62,22 +62,32 @@ pub fn status_line(app: &App, i: usize, with_name: bool, width: usize) -> Line<'
             Span::styled(format!(" {u}"), t.dim()),
         ],
     );
+    // `set` is the moving setpoint, `goal` where the motion will end: a step press shows
+    // at once in the goal even while the setpoint is still on its way.
     row.push(
         2,
         vec![
-            Span::styled("tgt ", t.dim()),
+            Span::styled("set ", t.dim()),
             Span::raw(val(s.target)),
             Span::styled(format!(" {u}"), t.dim()),
         ],
     );
-    let duty = if linked { signed(s.duty, 1, 6) } else { format!("{:>6}", "-") };
-    row.push(1, vec![Span::styled("duty ", t.dim()), Span::raw(duty), Span::styled(" %", t.dim())]);
-    if matches!(
+    let moving = matches!(
         s.state,
         AxisState::Moving | AxisState::Jogging | AxisState::Homing | AxisState::Stopping
-    ) {
-        row.push(4, vec![Span::styled("goal ", t.dim()), Span::raw(num(s.goal, d, w))]);
+    );
+    if moving {
+        row.push(
+            1,
+            vec![
+                Span::styled("goal ", t.dim()),
+                Span::styled(num(s.goal, d, w), t.bold()),
+                Span::styled(format!(" {u}"), t.dim()),
+            ],
+        );
     }
+    let duty = if linked { signed(s.duty, 1, 6) } else { format!("{:>6}", "-") };
+    row.push(2, vec![Span::styled("duty ", t.dim()), Span::raw(duty), Span::styled(" %", t.dim())]);
     row.push(
         5,
         vec![
@@ -162,7 +172,15 @@ pub fn measures_line(app: &App, i: usize, width: usize, indent: usize) -> Line<'
         );
     } else {
         row.text(0, "-", t.dim());
-        row.text(0, "link down", t.warn());
+        // Why the link is down and what to do, as far as the row has room.
+        let why = s
+            .link_error
+            .as_deref()
+            .map_or_else(|| "link down".to_owned(), |e| format!("link down: {e}"));
+        let room = width.saturating_sub(indent + 8).max(9);
+        row.text(0, cut(&why, room), t.warn());
+        // The reason is worth more than the frame counters.
+        return row.fit(width, 2);
     }
     let bad_style = if s.link.bad_frames > 0 { t.warn() } else { t.dim() };
     row.text(3, format!("bad {}", s.link.bad_frames), bad_style);
@@ -174,6 +192,16 @@ pub fn measures_line(app: &App, i: usize, width: usize, indent: usize) -> Line<'
     row.fit(width, 2)
 }
 
+/// `text` cut to `width` characters, with an ellipsis when cut.
+fn cut(text: &str, width: usize) -> String {
+    if text.chars().count() <= width {
+        return text.to_owned();
+    }
+    let mut s: String = text.chars().take(width.saturating_sub(1)).collect();
+    s.push('…');
+    s
+}
+
 /// The trip's cause and values, and its hint, when tripped.
 pub fn trip_lines(app: &App, i: usize, width: usize) -> Vec<Line<'static>> {
     let t = app.theme;
@@ -183,12 +211,15 @@ pub fn trip_lines(app: &App, i: usize, width: usize) -> Vec<Line<'static>> {
     let d = v.decimals;
     let mut row = Row::new();
     row.push(0, vec![Span::styled(format!(" TRIP: {} ", trip.cause), t.alarm())]);
-    row.text(1, format!("fe {} {u}", num(trip.following_error, d, 0)), t.bold());
+    row.text(
+        1,
+        format!("fe {} > band {} {u}", num(trip.following_error, d, 0), num(trip.band, d, 0)),
+        t.bold(),
+    );
     row.text(2, format!("pos {}", num(trip.position, d, 0)), t.text());
-    row.text(3, format!("tgt {}", num(trip.target, d, 0)), t.text());
+    row.text(3, format!("set {}", num(trip.target, d, 0)), t.text());
     row.text(2, format!("duty {} %", num(trip.duty, 1, 0)), t.text());
     row.text(4, format!("v {} {u}/s", num(trip.velocity, 1, 0)), t.text());
-    row.text(5, format!("at {} s", num(trip.at_s, 3, 0)), t.dim());
     let hint = format!("{}  (c clears)", trip.detail);
     vec![row.fit(width, 2), Line::from(Span::styled(hint, t.dim()))]
 }

@@ -1,4 +1,4 @@
-//! The bottom line: the main keys of the current mode, stop-all always first.
+//! The bottom line: the keys that work in this screen now, stop-all always first.
 
 use ratatui::buffer::Buffer;
 use ratatui::layout::Rect;
@@ -6,42 +6,52 @@ use ratatui::text::{Line, Span};
 
 use crate::cockpit::app::App;
 use crate::cockpit::keys::Mode;
+use crate::engine::AxisState;
 
 /// The stop-all label: shown in every mode, and honest about what it is.
 pub const STOP_ALL_LABEL: &str = "stop-all (not safety-rated)";
 
-fn items(app: &App) -> &'static [(&'static str, &'static str)] {
+/// The keys that do something now, most useful first: on the overview and detail screens
+/// they follow the selected axis's state (a tripped axis offers `c` first, a disabled one
+/// `e`), so the few that fit at 80 columns are the ones worth pressing.
+fn items(app: &App) -> Vec<(&'static str, &'static str)> {
+    let state = app.axes.get(app.selected).map(|v| v.snap.state);
+    let for_axis: &[(&str, &str)] = match state {
+        Some(AxisState::Tripped) => &[("c", "clear trip"), ("v", "why")],
+        Some(AxisState::Offline) => &[("l", "log: why")],
+        Some(AxisState::Disabled) => &[("e", "enable"), ("H", "home all")],
+        Some(AxisState::Stopped) => &[("R", "release")],
+        Some(AxisState::Holding) => {
+            &[("←→", "jog"), ("g", "go to"), ("h", "home"), ("[ ]", "step"), ("d", "off")]
+        }
+        _ => &[("s", "stop axis"), ("←→", "jog")],
+    };
+    let mut out: Vec<(&str, &str)> = Vec::new();
     match app.mode() {
-        Mode::Overview => &[
-            ("?", "help"),
-            ("q", "quit"),
-            ("↑↓", "axis"),
-            ("Enter", "detail"),
-            ("e/d", "on/off"),
-            ("g", "go to"),
-            ("c", "clear trip"),
-            ("s", "stop axis"),
-            ("←→", "jog"),
-            ("h", "home"),
-            ("l", "log"),
-        ],
-        Mode::Detail => &[
-            ("?", "help"),
-            ("Esc", "back"),
-            ("↑↓", "parameter"),
-            ("Enter", "edit"),
-            ("w", "write file"),
-            ("Tab", "axis"),
-            ("e/d", "on/off"),
-            ("g", "go to"),
-            ("←→", "jog"),
-        ],
-        Mode::Log => &[("?", "help"), ("Esc", "back"), ("↑↓", "scroll"), ("End", "newest")],
-        Mode::Trip => &[("?", "help"), ("Esc", "back"), ("l", "log")],
-        Mode::Help => &[("Esc", "close")],
-        Mode::ConfirmQuit => &[("y", "quit, motors off"), ("n", "stay")],
-        Mode::Entry => &[("Enter", "apply"), ("Esc", "cancel")],
+        Mode::Overview => {
+            out.extend_from_slice(for_axis);
+            out.extend_from_slice(&[
+                ("↑↓", "axis"),
+                ("Enter", "detail"),
+                ("?", "help"),
+                ("q", "quit"),
+            ]);
+        }
+        Mode::Detail => {
+            out.extend_from_slice(&[("Esc", "back"), ("↑↓", "parameter"), ("Enter", "edit")]);
+            if app.unsaved() {
+                out.push(("w", "write file"));
+            }
+            out.extend_from_slice(for_axis);
+            out.extend_from_slice(&[("t", "test"), ("Tab", "axis"), ("?", "help")]);
+        }
+        Mode::Log => out.extend_from_slice(&[("Esc", "back"), ("↑↓", "scroll"), ("End", "newest")]),
+        Mode::Trip => out.extend_from_slice(&[("Esc", "back"), ("l", "log"), ("?", "help")]),
+        Mode::Help => out.push(("Esc", "close")),
+        Mode::ConfirmQuit => out.extend_from_slice(&[("y", "quit, motors off"), ("n", "stay")]),
+        Mode::Entry => out.extend_from_slice(&[("Enter", "apply"), ("Esc", "cancel")]),
     }
+    out
 }
 
 /// Draws the footer into one line.
@@ -59,7 +69,11 @@ pub fn render(app: &App, area: Rect, buf: &mut Buffer) {
     {
         more.push(("R", "release"));
     }
-    more.extend(items(app).iter().copied());
+    for item in items(app) {
+        if !more.contains(&item) {
+            more.push(item);
+        }
+    }
     for (k, label) in more {
         let w = k.chars().count() + label.chars().count() + 5;
         if used + w > width {

@@ -1,5 +1,5 @@
-//! The top line: machine name, stop-all state and category, homed summary, jog settings,
-//! unsaved gains.
+//! The top line: machine name, stop-all state and category, homed summary (jog settings
+//! and unsaved gains are on the status line, which never drops them).
 
 use ratatui::buffer::Buffer;
 use ratatui::layout::Rect;
@@ -22,17 +22,9 @@ pub fn render(app: &App, area: Rect, buf: &mut Buffer) {
         stop_seg.push(Span::styled(" R releases", t.dim()));
     }
     let (homed, total) = app.homed();
-    let unit = app.config.axes.get(app.selected).map_or("", |a| a.scale.unit.as_str());
     row.push(0, stop_seg);
     row.text(1, format!("stop cat {}", app.stop_category), t.dim());
     row.text(1, format!("homed {homed}/{total}"), if homed == total { t.good() } else { t.warn() });
-    if let Some(j) = app.config.axes.get(app.selected).map(|a| &a.jog) {
-        let (step, speed) = (app.jog.step(j), app.jog.speed(j));
-        row.text(3, format!("jog {step} {unit} · {speed} {unit}/s"), t.dim());
-    }
-    if app.unsaved() {
-        row.text(2, "gains unsaved", t.warn());
-    }
     let name = format!(" {}", app.config.machine.name);
     // The name keeps up to 30 columns; the least important status goes first.
     let name_keep = name.chars().count().min(30) + 2;

@@ -50,8 +50,9 @@ pub fn render_panel(app: &App, area: Rect, buf: &mut Buffer) {
     }
 }
 
-/// Panels at least this tall wrap long entries instead of cutting them.
-const WRAP_FROM_ROWS: u16 = 8;
+/// Panels at least this tall wrap long entries instead of cutting them (always: a cut line
+/// loses the capture's file name or the hint).
+const WRAP_FROM_ROWS: u16 = 1;
 /// Columns before an entry's text: "hh:mm:ss.d TAG   ".
 const PREFIX_WIDTH: usize = 17;
 
@@ -84,11 +85,20 @@ fn render_entries(app: &App, inner: Rect, back: usize, buf: &mut Buffer) {
     let end = entries.len().saturating_sub(back);
     let mut y = inner.bottom();
     for e in entries.iter().take(end).rev() {
-        let chunks = wrap(&e.text_with_count(), text_w);
-        let rows = chunks.len() as u16;
-        if y < inner.y + rows {
+        let mut chunks = wrap(&e.text_with_count(), text_w);
+        let room = y.saturating_sub(inner.y);
+        if room == 0 {
             break;
         }
+        if chunks.len() as u16 > room {
+            if y < inner.bottom() {
+                // An older entry that does not fit whole is left out...
+                break;
+            }
+            // ...but the newest shows as much of itself as there is room for.
+            chunks.truncate(room as usize);
+        }
+        let rows = chunks.len() as u16;
         y -= rows;
         for (k, chunk) in chunks.into_iter().enumerate() {
             let line = if k == 0 {

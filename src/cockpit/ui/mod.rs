@@ -1,7 +1,8 @@
 //! Drawing: a pure function of [`App`], no I/O and no waiting.
 //!
-//! - [`header`] and [`footer`]: the top and bottom lines, on every screen.
-//! - [`overview`], [`detail`], [`log_panel`]: the three screens.
+//! - [`header`] and [`footer`]: the top and bottom lines, on every screen; [`status`]: the
+//!   line above the footer (selected axis, jog step and speed, unsaved gains, its trip).
+//! - [`overview`], [`detail`], [`log_panel`], [`trip`]: the screens.
 //! - [`axis_panel`]: one axis's lines, shared by overview and detail.
 //! - [`overlay`]: help, quit question, prompts.
 //! - [`row`]: fitting labelled values into the width available.
@@ -14,6 +15,7 @@ pub mod log_panel;
 pub mod overlay;
 pub mod overview;
 pub mod row;
+pub mod status;
 pub mod trip;
 
 use ratatui::buffer::Buffer;
@@ -39,10 +41,15 @@ pub fn render(app: &App, area: Rect, buf: &mut Buffer) {
         buf.set_stringn(area.x, area.y, msg, area.width as usize, app.theme.bold());
         return;
     }
-    let [head, body, foot] =
-        Layout::vertical([Constraint::Length(1), Constraint::Fill(1), Constraint::Length(1)])
-            .areas(area);
+    let [head, body, status, foot] = Layout::vertical([
+        Constraint::Length(1),
+        Constraint::Fill(1),
+        Constraint::Length(1),
+        Constraint::Length(1),
+    ])
+    .areas(area);
     header::render(app, head, buf);
+    status::render(app, status, buf);
     match app.screen {
         Screen::Overview => overview::render(app, body, buf),
         Screen::Detail => detail::render(app, body, buf),

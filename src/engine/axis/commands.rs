@@ -230,18 +230,32 @@ impl AxisCore {
         }
         self.require_motion_ready(Asked::Jog)?;
         let reach = self.jog_reach(distance.signum());
-        let from = self.goal;
-        let goal = if distance > 0.0 {
-            (from + distance).min(reach)
-        } else {
-            (from + distance).max(reach)
-        };
+        let capped = self.step_goal(distance);
+        let goal = if distance > 0.0 { capped.min(reach) } else { capped.max(reach) };
+        let dir = distance.signum();
         // Outside a limit, a step outwards would be clamped into a step inwards: refuse it.
-        if (goal - from).abs() < f64::EPSILON || (goal - from).signum() != distance.signum() {
+        if (goal - self.setpoint.position) * dir < f64::EPSILON {
             return Err(self.refuse(Refusal::AtSoftLimit));
         }
-        self.plan_move(goal, self.jog_speed(speed));
+        // Already a full step ahead: the press changes nothing (nothing queues).
+        if (goal - self.goal) * dir > f64::EPSILON {
+            self.plan_move(goal, self.jog_speed(speed));
+        }
         Ok(Reply::Done)
+    }
+
+    /// Where a jog step of `distance` may aim: one step beyond the present goal, but never
+    /// more than one step beyond where the setpoint is now, so presses made while a step is
+    /// still moving never queue up (30 quick presses of 10 mm once queued 300 mm that kept
+    /// the axis moving long after the last key). Standing still, both are the same.
+    fn step_goal(&self, distance: f64) -> f64 {
+        let beyond_goal = self.goal + distance;
+        let beyond_here = self.setpoint.position + distance;
+        if distance > 0.0 {
+            beyond_goal.min(beyond_here)
+        } else {
+            beyond_goal.max(beyond_here)
+        }
     }
 
     fn jog_pulse(
@@ -292,11 +306,8 @@ impl AxisCore {
                 }
                 let step = self.cfg.jog.first_step * dir;
                 let reach = self.jog_reach(dir);
-                let goal = if dir > 0.0 {
-                    (self.goal + step).min(reach)
-                } else {
-                    (self.goal + step).max(reach)
-                };
+                let capped = self.step_goal(step);
+                let goal = if dir > 0.0 { capped.min(reach) } else { capped.max(reach) };
                 self.jog = Some(JogKeys { direction, first_at: now, deadman: None });
                 if (goal - self.goal) * dir > f64::EPSILON {
                     self.plan_move(goal, self.jog_speed(speed));

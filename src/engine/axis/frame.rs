@@ -365,6 +365,7 @@ impl AxisCore {
             target: self.setpoint.position,
             position: self.position,
             following_error: self.setpoint.position - self.position,
+            band: self.supervisor.following_error_band(self.setpoint.velocity),
             duty: self.duty,
             velocity: self.velocity,
             detail,
