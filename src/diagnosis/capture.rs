@@ -241,6 +241,17 @@ impl CaptureFile {
         self.trip.cause = text(&t["cause"]).or(self.trip.cause.take());
         self.trip.at_s = t["board_time_s"].as_f64().or(self.trip.at_s);
         self.trip.detail = text(&t["detail"]).or(self.trip.detail.take());
+        // The file's time is seconds from the trip; the rules read board time, as the
+        // history holds it.
+        let from_trip =
+            v["time_base"].as_str().is_some_and(|b| b.starts_with("t_s: seconds from the trip"));
+        if let (true, Some(at)) = (from_trip, t["board_time_s"].as_f64()) {
+            for rows in self.rows.values_mut() {
+                for r in rows.iter_mut() {
+                    r.t += at;
+                }
+            }
+        }
         for a in v["axes"].as_array().into_iter().flatten() {
             let Some(name) = a["axis"].as_str() else { continue };
             let num =
