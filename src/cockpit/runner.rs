@@ -256,6 +256,14 @@ fn execute<P: MachinePort>(
                     notices.send(Notice::Engine(crate::engine::Event::now(None, None, kind))).await;
             });
         }
+        Effect::FetchHistory { axis } => {
+            let job = port.history(axis);
+            let notices = notices.clone();
+            tokio::spawn(async move {
+                let result = job.await;
+                let _ = notices.send(Notice::History { axis, result }).await;
+            });
+        }
         Effect::WriteCopy { path, config } => {
             spawn_save(notices.clone(), config, true, move |c| {
                 save::write_copy(
