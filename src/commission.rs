@@ -301,7 +301,7 @@ async fn run_experiment(
 }
 
 /// Runs one step on axis `a` (which must be linked; it is enabled if it is not). The axis is
-/// left holding (or as the test left it); `a` is the axis's live configuration.
+/// left steady (or as the test left it); `a` is the axis's live configuration.
 ///
 /// # Errors
 /// A sentence: the axis refused, the test did not finish, or the analysis failed.

@@ -282,3 +282,25 @@ fn analyze_step_never_mixes_the_axes_of_a_capture() {
     assert_eq!(out.status.code(), Some(2));
     assert!(text(&out.stderr).contains("no such axis"), "{}", text(&out.stderr));
 }
+
+#[test]
+fn old_homing_key_names_still_read_with_a_warning_naming_the_new_key() {
+    let body = demo_text().replacen("seek_speed", "search_velocity", 1).replacen(
+        "home_sequence",
+        "homing_order",
+        1,
+    );
+    assert!(body.contains("search_velocity") && body.contains("homing_order"));
+    let (_d, path) = write_tmp("old-names.toml", &body);
+    let out = servotty(&["check", &path]);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let err = text(&out.stderr);
+    assert!(
+        err.contains("homing.search_velocity is now") && err.contains("homing.seek_speed"),
+        "{err}"
+    );
+    assert!(err.contains("machine.homing_order is now machine.home_sequence"), "{err}");
+    // The new names give no warning.
+    let out = servotty(&["check", &repo("configs/demo-greenhouse.toml")]);
+    assert!(!text(&out.stderr).contains("warning"), "{}", text(&out.stderr));
+}

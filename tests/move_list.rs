@@ -240,7 +240,7 @@ async fn pause_waits_at_the_end_of_a_step_and_abort_stops_at_once() {
     let operator = async {
         // Once paused, the first step has finished: x stands at tray 1.
         let mut x = h.axis("x").expect("x").watch();
-        let _ = x.wait_for(|s| s.moves_done > 0 && s.state == AxisState::Holding).await;
+        let _ = x.wait_for(|s| s.moves_done > 0 && s.state == AxisState::Steady).await;
         tokio::time::sleep(Duration::from_millis(500)).await;
         let _ = tx.send(ListControl::Run);
         // Abort during the long move to tray 3.

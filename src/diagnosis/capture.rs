@@ -520,7 +520,7 @@ impl Columns {
 /// The state for its screen word.
 pub fn state_of(word: &str) -> Option<AxisState> {
     use AxisState::*;
-    [Offline, Disabled, Holding, Moving, Jogging, Homing, Testing, Stopping, Stopped, Tripped]
+    [Offline, Disabled, Steady, Moving, Jogging, Homing, Testing, Stopping, Stopped, Tripped]
         .into_iter()
         .find(|s| s.word() == word)
 }
