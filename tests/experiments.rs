@@ -192,6 +192,6 @@ async fn the_guided_pass_runs_every_step_and_writes_a_report() {
     let exts: Vec<&str> = names.iter().filter_map(|n| n.rsplit('.').next()).collect();
     assert_eq!(exts, ["csv", "svg", "txt"], "{names:?}");
     let x = h.axis("x").expect("x");
-    assert_eq!(x.snapshot().state, AxisState::Holding);
+    assert_eq!(x.snapshot().state, AxisState::Steady);
     m.shutdown().await;
 }
