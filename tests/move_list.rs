@@ -139,6 +139,7 @@ async fn a_coordinated_move_arrives_together_within_one_tick() {
     assert!(out.ok, "{out:#?}");
     let tick = Duration::from_millis(1); // the demo boards run at 1 kHz
     let gap = if at[0] > at[1] { at[0] - at[1] } else { at[1] - at[0] };
+    println!("arrivals {gap:?} apart, planned {:.3} s", out.planned_s);
     assert!(gap <= tick, "arrivals {gap:?} apart");
     for a in &out.axes {
         assert!((a.final_position - a.target).abs() <= 0.1, "{a:#?}");
