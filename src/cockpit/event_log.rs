@@ -56,12 +56,18 @@ pub struct Entry {
     pub text: String,
     /// How many times it happened in a row (1 normally).
     pub count: u32,
+    /// Local time of day at cockpit time zero, s since midnight (0 in tests: the clock then
+    /// reads as time since start).
+    pub day_origin_s: f64,
 }
 
 impl Entry {
-    /// `hh:mm:ss.d` since the cockpit started.
+    /// `hh:mm:ss.d`, the local time of day (one clock for everything a person reads; files
+    /// carry the date).
     pub fn clock(&self) -> String {
-        let ds = self.at.as_millis() / 100;
+        let day_ms = 86_400_000_u128;
+        let origin_ms = (self.day_origin_s.max(0.0) * 1000.0) as u128;
+        let ds = (origin_ms + self.at.as_millis()) % day_ms / 100;
         let (h, m, s, d) = (ds / 36_000, ds / 600 % 60, ds / 10 % 60, ds % 10);
         format!("{h:02}:{m:02}:{s:02}.{d}")
     }
@@ -80,9 +86,18 @@ impl Entry {
 #[derive(Debug, Clone, Default)]
 pub struct EventLog {
     entries: VecDeque<Entry>,
+    day_origin_s: f64,
 }
 
 impl EventLog {
+    /// Sets the local time of day at cockpit time zero (s since midnight), for every entry.
+    pub fn set_day_origin(&mut self, seconds: f64) {
+        self.day_origin_s = seconds;
+        for e in &mut self.entries {
+            e.day_origin_s = seconds;
+        }
+    }
+
     /// Adds an entry at time `at`.
     pub fn push(&mut self, at: Duration, kind: Kind, text: impl Into<String>) {
         let text = text.into();
@@ -97,7 +112,7 @@ impl EventLog {
         if self.entries.len() == CAPACITY {
             self.entries.pop_front();
         }
-        self.entries.push_back(Entry { at, kind, text, count: 1 });
+        self.entries.push_back(Entry { at, kind, text, count: 1, day_origin_s: self.day_origin_s });
     }
 
     /// Entries held, oldest first.
@@ -139,8 +154,12 @@ mod tests {
             kind: Kind::Info,
             text: String::new(),
             count: 1,
+            day_origin_s: 0.0,
         };
         assert_eq!(e.clock(), "01:02:03.4");
+        // Started at 23:59:00 local: the clock wraps at midnight.
+        let late = Entry { day_origin_s: 86_340.0, at: Duration::from_secs(90), ..e };
+        assert_eq!(late.clock(), "00:00:30.0");
     }
 
     #[test]

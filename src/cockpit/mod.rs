@@ -64,6 +64,9 @@ pub fn run(config: Option<&std::path::Path>, ports: &[PortOverride]) -> u8 {
         );
         return EXIT_USAGE;
     }
+    // Read the local offset now, while the process has one thread (the OS-level lookup is
+    // not safe once threads run); the event panel then shows local time of day.
+    let day_origin = local_seconds_of_day();
     let log_file = logging::init();
     let paths = crate::engine::recorder::RecorderPaths::resolve(&cfg, &source);
     let engine = match EngineThread::start(cfg.clone(), ports.to_vec(), Some(paths.clone())) {
@@ -85,6 +88,7 @@ pub fn run(config: Option<&std::path::Path>, ports: &[PortOverride]) -> u8 {
     };
     let mut app = App::new(cfg, source, Theme::from_env());
     app.log_file = log_file;
+    app.log.set_day_origin(day_origin);
     app.set_recorder(paths);
     let port = Arc::new(engine.handle().clone());
     let caught = Arc::new(std::sync::OnceLock::new());
@@ -111,6 +115,16 @@ pub fn run(config: Option<&std::path::Path>, ports: &[PortOverride]) -> u8 {
             EXIT_FAILED
         }
     }
+}
+
+/// Seconds since local midnight now (UTC when the local offset cannot be known).
+fn local_seconds_of_day() -> f64 {
+    let now = time::OffsetDateTime::now_local().unwrap_or_else(|_| time::OffsetDateTime::now_utc());
+    let t = now.time();
+    f64::from(t.hour()) * 3600.0
+        + f64::from(t.minute()) * 60.0
+        + f64::from(t.second())
+        + f64::from(t.nanosecond()) * 1e-9
 }
 
 /// Resolves when the process is asked to end from outside: SIGTERM, SIGHUP when an SSH
