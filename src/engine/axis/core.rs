@@ -80,6 +80,11 @@ pub struct AxisCore {
     /// In-position dwell (moves) or standstill wait (category 1 stop) started at, board s.
     pub(super) settle_since: Option<f64>,
     pub(super) moves: MoveStats,
+    /// Board time the running move's profile ends, s (for the not-in-position rule).
+    pub(super) move_planned_end: f64,
+    /// Seq of the first duty answer of the present drive (None while the answers are Stop):
+    /// the board's status counts once its ack_seq has reached it.
+    pub(super) drive_since_seq: Option<u16>,
     pub(super) history: History,
     /// Events raised since the shell last took them, with the board time they happened at.
     events: Vec<(Option<f64>, EventKind)>,
@@ -125,6 +130,8 @@ impl AxisCore {
             duty: 0.0,
             settle_since: None,
             moves: MoveStats::default(),
+            move_planned_end: 0.0,
+            drive_since_seq: None,
             history,
             events: Vec::new(),
         }
@@ -154,7 +161,14 @@ impl AxisCore {
     /// (duty or stop) is in `send`; after a backlog the shell writes only the last one.
     pub fn on_frame(&mut self, tm: &Telemetry, host_now: Instant) -> Output {
         let ticks = self.on_telemetry(tm, host_now);
-        Output { send: Some(self.answer()), ticks }
+        let send = self.answer();
+        match send {
+            HostMessage::Duty { seq, .. } => {
+                self.drive_since_seq.get_or_insert(seq);
+            }
+            _ => self.drive_since_seq = None,
+        }
+        Output { send: Some(send), ticks }
     }
 
     /// An operator command at `host_now`. `send` holds Stop when the motor must go off at
@@ -226,6 +240,7 @@ impl AxisCore {
     /// Stop, at once: the duty is zero from now on (disable, stop-all category 0, shutdown).
     pub fn motor_off(&mut self) -> Output {
         self.duty = 0.0;
+        self.drive_since_seq = None;
         Output { send: Some(HostMessage::Stop { seq: self.echo_seq() }), ticks: 0 }
     }
 
