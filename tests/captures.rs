@@ -1,0 +1,94 @@
+//! Every trip capture has its data: the real binary, a headless `move` that trips, and the
+//! capture file it leaves must hold rows for every axis, also when the trip is a link loss.
+//! (Before, the recorder asked for history 200 ms after the trip, when `move` had already
+//! ended the axes: the file had its header and no rows.)
+//!
+//! The demo gantry (configs/demo-greenhouse.toml, invented numbers) with faults injected in
+//! the simulator; real time, polling under generous bounds.
+
+use std::path::PathBuf;
+use std::process::Command;
+
+fn repo(p: &str) -> PathBuf {
+    PathBuf::from(env!("CARGO_MANIFEST_DIR")).join(p)
+}
+
+/// Runs `servotty move --home --to x=600 --yes` on the demo edited by `edit`; returns the
+/// capture files written and the event log.
+fn tripping_move(edit: impl Fn(String) -> String) -> (Vec<String>, String) {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let text = std::fs::read_to_string(repo("configs/demo-greenhouse.toml")).expect("demo");
+    let text = edit(text).replacen(
+        "capture_seconds = 10.0",
+        &format!(
+            "capture_seconds = 2.0\ncaptures_dir = {:?}\nevent_log = {:?}",
+            dir.path().join("captures"),
+            dir.path().join("events.jsonl")
+        ),
+        1,
+    );
+    let cfg = dir.path().join("machine.toml");
+    std::fs::write(&cfg, text).expect("write config");
+    let out = Command::new(env!("CARGO_BIN_EXE_servotty"))
+        .args(["move", "--home", "--to", "x=600", "--yes", "--config"])
+        .arg(&cfg)
+        .env("XDG_STATE_HOME", dir.path())
+        .output()
+        .expect("runs");
+    assert_eq!(out.status.code(), Some(1), "{}", String::from_utf8_lossy(&out.stderr));
+    let captures: Vec<String> = std::fs::read_dir(dir.path().join("captures"))
+        .map(|d| {
+            d.filter_map(Result::ok)
+                .map(|e| std::fs::read_to_string(e.path()).expect("capture readable"))
+                .collect()
+        })
+        .unwrap_or_default();
+    let log = std::fs::read_to_string(dir.path().join("events.jsonl")).unwrap_or_default();
+    (captures, log)
+}
+
+fn axes_with_rows(capture: &str) -> Vec<String> {
+    let mut seen: Vec<String> = Vec::new();
+    for line in capture.lines().filter(|l| !l.starts_with('#')).skip(1) {
+        let axis = line.split(',').next().unwrap_or_default().to_owned();
+        if !seen.contains(&axis) {
+            seen.push(axis);
+        }
+    }
+    seen.sort();
+    seen
+}
+
+fn check(captures: &[String], log: &str, cause: &str) {
+    assert_eq!(captures.len(), 1, "one trip, one capture; log: {log}");
+    let c = &captures[0];
+    assert!(c.contains(&format!("# trip cause: {cause}")), "{}", &c[..c.len().min(600)]);
+    assert_eq!(axes_with_rows(c), ["x", "y", "z"], "rows for every axis");
+    assert!(log.contains("\"event\":\"capture\""), "the log points to the capture: {log}");
+}
+
+#[test]
+fn a_headless_move_that_trips_leaves_a_capture_with_rows_for_every_axis() {
+    // X's motor leads swapped, homing declared (method none): the move runs away.
+    let (captures, log) = tripping_move(|t| {
+        t.replacen("method = \"switch\"", "method = \"none\"", 1).replacen(
+            "home_switch_mm = 2.0            # switch closes within 2 mm of the lower end stop",
+            "home_switch_mm = 2.0\n\n[axis.transport.faults]\nreversed_motor = true",
+            1,
+        )
+    });
+    check(&captures, &log, "runaway");
+}
+
+#[test]
+fn a_link_loss_leaves_a_capture_with_rows_for_every_axis() {
+    // X's link goes dark for 150 ms (over the 100 ms link timeout) every 2 s.
+    let (captures, log) = tripping_move(|t| {
+        t.replacen(
+            "home_switch_mm = 2.0            # switch closes within 2 mm of the lower end stop",
+            "home_switch_mm = 2.0\n\n[axis.transport.faults]\nburst_ms = 150\nburst_every_ms = 2000",
+            1,
+        )
+    });
+    check(&captures, &log, "link loss");
+}
