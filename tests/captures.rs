@@ -16,13 +16,21 @@ fn repo(p: &str) -> PathBuf {
 /// Runs `servotty move --home --to x=600 --yes` on the demo edited by `edit`; returns the
 /// capture files written and the event log.
 fn tripping_move(edit: impl Fn(String) -> String) -> (Vec<String>, String) {
+    tripping_move_into(None, edit)
+}
+
+/// As [`tripping_move`], with captures going to `captures_dir` when given.
+fn tripping_move_into(
+    captures_dir: Option<&str>,
+    edit: impl Fn(String) -> String,
+) -> (Vec<String>, String) {
     let dir = tempfile::tempdir().expect("tempdir");
     let text = std::fs::read_to_string(repo("configs/demo-greenhouse.toml")).expect("demo");
     let text = edit(text).replacen(
         "capture_seconds = 10.0",
         &format!(
             "capture_seconds = 2.0\ncaptures_dir = {:?}\nevent_log = {:?}",
-            dir.path().join("captures"),
+            captures_dir.map_or_else(|| dir.path().join("captures"), PathBuf::from),
             dir.path().join("events.jsonl")
         ),
         1,
@@ -91,4 +99,24 @@ fn a_link_loss_leaves_a_capture_with_rows_for_every_axis() {
         )
     });
     check(&captures, &log, "link loss");
+}
+
+fn reversed_x(t: String) -> String {
+    t.replacen("method = \"switch\"", "method = \"none\"", 1).replacen(
+        "home_switch_mm = 2.0            # switch closes within 2 mm of the lower end stop",
+        "home_switch_mm = 2.0\n\n[axis.transport.faults]\nreversed_motor = true",
+        1,
+    )
+}
+
+#[test]
+fn a_capture_that_cannot_be_written_is_an_event_not_only_a_trace() {
+    // A folder under a regular file cannot be created.
+    let (captures, log) = tripping_move_into(Some("/dev/null/captures"), reversed_x);
+    assert!(captures.is_empty());
+    let line = log
+        .lines()
+        .find(|l| l.contains("\"event\":\"recorder_failed\""))
+        .unwrap_or_else(|| panic!("no recorder_failed event: {log}"));
+    assert!(line.contains("/dev/null/captures"), "{line}");
 }

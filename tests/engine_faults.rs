@@ -107,3 +107,63 @@ async fn a_board_watchdog_during_a_move_latches_a_trip() {
     assert!(saw, "a trip event with the board-watchdog cause");
     m.shutdown().await;
 }
+
+/// Collects the events that arrived so far.
+fn drained(rx: &mut tokio::sync::broadcast::Receiver<servotty::engine::Event>) -> Vec<EventKind> {
+    let mut out = Vec::new();
+    while let Ok(ev) = rx.try_recv() {
+        out.push(ev.kind);
+    }
+    out
+}
+
+/// A quarter of the frames lost: the operator hears it once, and hears the recovery.
+#[tokio::test(start_paused = true)]
+async fn a_poor_link_and_its_recovery_are_events() {
+    let cfg = demo();
+    let (m, h) = started(&cfg).await;
+    let mut events = h.events();
+    let sim = m.sim("x").expect("sim");
+    sim.set_link_faults(servotty::sim::board::LinkFaults {
+        drop_probability: 0.25,
+        ..Default::default()
+    });
+    tokio::time::sleep(Duration::from_secs(3)).await;
+    sim.set_link_faults(servotty::sim::board::LinkFaults::default());
+    tokio::time::sleep(Duration::from_secs(3)).await;
+    let q: Vec<bool> = drained(&mut events)
+        .into_iter()
+        .filter_map(|k| match k {
+            EventKind::LinkQuality { poor, missed, window, .. } => {
+                if poor {
+                    assert!(missed * 10 > window, "{missed} of {window}");
+                }
+                Some(poor)
+            }
+            _ => None,
+        })
+        .collect();
+    assert_eq!(q, [true, false]);
+    m.shutdown().await;
+}
+
+/// Gains changed while the axis runs are an event naming each key, old → new.
+#[tokio::test(start_paused = true)]
+async fn a_live_gain_change_is_an_event_with_old_and_new() {
+    let cfg = demo();
+    let (m, h) = started(&cfg).await;
+    let mut events = h.events();
+    let mut c = cfg.axes[0].controller.clone();
+    c.kp = 25.0;
+    h.axis("x").expect("x").send(AxisCommand::SetController(c)).await.expect("set");
+    let changes: Vec<String> = drained(&mut events)
+        .into_iter()
+        .filter_map(|k| match k {
+            EventKind::Gains { changes } => Some(changes),
+            _ => None,
+        })
+        .flatten()
+        .collect();
+    assert_eq!(changes, ["kp 20.0 → 25.0"]);
+    m.shutdown().await;
+}

@@ -121,7 +121,14 @@ impl Event {
     /// One line for screens.
     pub fn summary(&self) -> String {
         let who = self.axis.as_deref().unwrap_or("machine");
-        let what = match &self.kind {
+        let what = self.what();
+        let clock = self.time.get(11..19).unwrap_or("");
+        format!("{clock} {who}: {what}")
+    }
+
+    /// What happened, in words (no time, no axis).
+    pub fn what(&self) -> String {
+        match &self.kind {
             EventKind::State { from, to } => format!("{from} → {to}"),
             EventKind::Trip { trip } => format!("TRIP {}: {}", trip.cause, trip.detail),
             EventKind::Operator { action, accepted: true, .. } => action.clone(),
@@ -144,9 +151,7 @@ impl Event {
             }
             EventKind::RecorderFailed { what } => format!("RECORDER FAILED: {what}"),
             EventKind::AxisEnded { reason } => format!("AXIS TASK ENDED: {reason}"),
-        };
-        let clock = self.time.get(11..19).unwrap_or("");
-        format!("{clock} {who}: {what}")
+        }
     }
 }
 

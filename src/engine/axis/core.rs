@@ -22,6 +22,7 @@ use crate::engine::events::EventKind;
 use crate::engine::experiment::{ExperimentResult, ExperimentRun};
 use crate::engine::history::History;
 use crate::engine::homing::HomingRun;
+use crate::engine::link_quality::LinkQuality;
 use crate::engine::snapshot::{AxisSnapshot, AxisState, Trip, TripCause};
 use crate::engine::supervisor::Supervisor;
 use crate::protocol::{self, HostMessage, Telemetry};
@@ -85,6 +86,8 @@ pub struct AxisCore {
     /// Seq of the first duty answer of the present drive (None while the answers are Stop):
     /// the board's status counts once its ack_seq has reached it.
     pub(super) drive_since_seq: Option<u16>,
+    /// Bad and missed frames over the last second, for link-quality events.
+    quality: LinkQuality,
     pub(super) history: History,
     /// Events raised since the shell last took them, with the board time they happened at.
     events: Vec<(Option<f64>, EventKind)>,
@@ -101,6 +104,7 @@ impl AxisCore {
             cfg.motion.max_velocity,
         );
         let history = History::new(history_seconds, cfg.board.tick_hz);
+        let tick_hz = cfg.board.tick_hz;
         Self {
             name: Arc::from(cfg.name.as_str()),
             cfg,
@@ -132,6 +136,7 @@ impl AxisCore {
             moves: MoveStats::default(),
             move_planned_end: 0.0,
             drive_since_seq: None,
+            quality: LinkQuality::new(tick_hz),
             history,
             events: Vec::new(),
         }
@@ -161,6 +166,9 @@ impl AxisCore {
     /// (duty or stop) is in `send`; after a backlog the shell writes only the last one.
     pub fn on_frame(&mut self, tm: &Telemetry, host_now: Instant) -> Output {
         let ticks = self.on_telemetry(tm, host_now);
+        if let Some(e) = self.quality.frame(ticks) {
+            self.event(e);
+        }
         let send = self.answer();
         match send {
             HostMessage::Duty { seq, .. } => {
@@ -197,6 +205,7 @@ impl AxisCore {
     pub fn link_up(&mut self, detail: String) {
         self.link_up = true;
         self.last = None;
+        self.quality = LinkQuality::new(self.cfg.board.tick_hz);
         self.event(EventKind::Link { up: true, detail });
         if self.state == AxisState::Offline {
             self.state = if self.stop.latched { AxisState::Stopped } else { AxisState::Disabled };
@@ -207,6 +216,11 @@ impl AxisCore {
     pub fn telemetry_resumed(&mut self) {
         self.link_up = true;
         self.event(EventKind::Link { up: true, detail: "telemetry resumed".to_owned() });
+    }
+
+    /// A frame the decoder rejected (CRC, framing): counts against the link's quality.
+    pub fn bad_frame(&mut self) {
+        self.quality.bad_frame();
     }
 
     /// Whether the core counts the link as up.
