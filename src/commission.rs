@@ -173,6 +173,44 @@ fn breakaway_of(r: &ExperimentResult, resolution: f64) -> Result<ident::Breakawa
     ident::breakaway(&samples, Some(resolution)).map_err(|e| e.to_string())
 }
 
+/// What identification found, one paragraph (shared with `analyze identify`); `u` the unit.
+pub fn identify_text(id: &ident::Identification, s: &suggest::Suggestion, u: &str) -> String {
+    let u = if u.is_empty() { "unit" } else { u };
+    let m = id.model;
+    format!(
+        "velocity gain {:.4} {u}/s per %, time constant {:.4} s, friction offset {:.2} %, \
+         delay {} (fit R² {:.4}, position RMS {:.4} {u})\n{}",
+        m.gain,
+        m.time_constant_s,
+        m.offset_pct,
+        m.delay_s.map_or_else(|| "not measured".to_owned(), |d| format!("{d:.4} s")),
+        id.r_squared,
+        id.position_rms,
+        s.method
+    )
+}
+
+/// What a relay experiment measured, one paragraph (shared with `analyze relay`).
+pub fn relay_text(rr: &relay::RelayResult, s: &suggest::Suggestion, u: &str) -> String {
+    let u = if u.is_empty() { "unit" } else { u };
+    let p = rr.point;
+    format!(
+        "oscillation ±{:.4} {u}, period {:.4} s over {} cycles → |G| {:.5} {u}/% at phase \
+         {:.1}° (ω {:.1} rad/s){}\n{}",
+        rr.amplitude,
+        rr.period_s,
+        rr.cycles,
+        p.gain,
+        p.phase_deg,
+        p.omega_rad_s,
+        rr.ultimate.map_or(String::new(), |x| format!(
+            "; ultimate point: Ku {:.2} %/{u}, Tu {:.4} s",
+            x.ku, x.tu_s
+        )),
+        s.method
+    )
+}
+
 /// A breakaway duty as a minimum duty: its magnitude rounded up to the next 0.5 %.
 fn round_up_half(d: f64) -> f64 {
     (d.abs() * 2.0).ceil() / 2.0
@@ -395,14 +433,7 @@ pub async fn run(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
             so.breakaway_reverse_pct =
                 Some(br.map_or(a.controller.min_duty_reverse, |b| round_up_half(b.duty_pct)));
             let s = suggest::simc(&id.model, &a.controller, &so).map_err(|e| e.to_string())?;
-            let m = id.model;
-            let text = format!(
-                "{}: velocity gain {:.4} {u}/s per %, time constant {:.4} s, friction offset {:.2} %, \
-                 delay {} (fit R² {:.4}, position RMS {:.4} {u})\n{}",
-                a.name, m.gain, m.time_constant_s, m.offset_pct,
-                m.delay_s.map_or_else(|| "not measured".to_owned(), |d| format!("{:.4} s", d)),
-                id.r_squared, id.position_rms, s.method
-            );
+            let text = format!("{}: {}", a.name, identify_text(&id, &s, &u));
             patch_text = s.patch.to_toml_lines();
             let extra = serde_json::to_value(&id).unwrap_or_default();
             suggestion = Some(s);
@@ -425,23 +456,7 @@ pub async fn run(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
                 relay::analyze_relay(&t, &y, &duty, &opts).map_err(|e| format!("relay: {e}"))?;
             let s = suggest::from_relay(&rr, suggest::RelayDesign::default(), &a.controller, 10.0)
                 .map_err(|e| e.to_string())?;
-            let p = rr.point;
-            let mut text = format!(
-                "{}: oscillation ±{:.4} {u}, period {:.4} s over {} cycles → |G| {:.5} {u}/% at \
-                 phase {:.1}° (ω {:.1} rad/s){}\n{}",
-                a.name,
-                rr.amplitude,
-                rr.period_s,
-                rr.cycles,
-                p.gain,
-                p.phase_deg,
-                p.omega_rad_s,
-                rr.ultimate.map_or(String::new(), |x| format!(
-                    "; ultimate point: Ku {:.2} %/{u}, Tu {:.4} s",
-                    x.ku, x.tu_s
-                )),
-                s.method
-            );
+            let mut text = format!("{}: {}", a.name, relay_text(&rr, &s, &u));
             if args.friction.is_none() {
                 text.push_str(
                     "\n  note: sliding friction not corrected (pass --friction PCT, the offset \

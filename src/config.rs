@@ -1470,7 +1470,7 @@ fn display_path(path: &[String], cfg: &MachineConfig) -> String {
 }
 
 /// 1-based line and column (in characters) of a byte offset.
-fn line_col(text: &str, offset: usize) -> (usize, usize) {
+pub(crate) fn line_col(text: &str, offset: usize) -> (usize, usize) {
     let offset = offset.min(text.len());
     let before = &text[..offset];
     let line = before.matches('\n').count() + 1;

@@ -24,6 +24,7 @@ pub mod config;
 pub mod control;
 pub mod diagnosis;
 pub mod engine;
+pub mod move_list;
 pub mod process;
 pub mod protocol;
 pub mod signals;

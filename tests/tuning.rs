@@ -845,3 +845,106 @@ fn step_record_round_trips_through_files_and_the_binary() {
     let direct = step_metrics(&t, &y, 0.0, 20.0, here.step.t, 0.02).expect("metrics");
     assert_eq!(direct.rise_s, m.rise_s);
 }
+
+// `analyze step` on what is not a clean step: a ramped target is refused with the reason (not
+// "needs at least 2 samples"), a record that never settles reports no steady-state error, and
+// a noisy record is measured on a stated moving average with a warning when the noise
+// exceeds the band (definitions in src/tuning/report.rs; common practice, no source).
+#[test]
+fn analyze_step_handles_ramps_unsettled_and_noisy_records() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let write = |name: &str, rows: &[StepRow]| -> String {
+        let p = dir.path().join(name);
+        write_step_csv(&p, rows).expect("writes");
+        p.to_str().expect("utf-8").to_owned()
+    };
+    // A 2,001-row ramp from 0 to 20 mm.
+    let ramp: Vec<StepRow> = (0..2001)
+        .map(|k| {
+            let t = k as f64 * H;
+            StepRow { t, target: 10.0 * t, position: 10.0 * t - 0.1, duty: None }
+        })
+        .collect();
+    let out = servotty(&["analyze", "step", &write("ramp.csv", &ramp)]);
+    let err = text(&out.stderr);
+    assert_eq!(out.status.code(), Some(2), "{err}");
+    assert!(err.contains("the target ramps rather than steps"), "{err}");
+    // Still rising at the end: not settled, no steady-state error.
+    let slow: Vec<StepRow> = (0..1000)
+        .map(|k| {
+            let t = k as f64 * H;
+            let target = if t >= 0.1 { 5.0 } else { 0.0 };
+            StepRow {
+                t,
+                target,
+                position: if t >= 0.1 { 5.0 * (t - 0.1) } else { 0.0 },
+                duty: None,
+            }
+        })
+        .collect();
+    let path = write("slow.csv", &slow);
+    let table = text(&servotty(&["analyze", "step", &path]).stdout);
+    assert!(table.contains("none reported: the response did not settle"), "{table}");
+    let json: serde_json::Value =
+        serde_json::from_slice(&servotty(&["analyze", "step", &path, "--json"]).stdout)
+            .expect("json");
+    assert!(json["steady_state_error"].is_null(), "{json}");
+    // A clean first-order step with ±0.2 mm of noise on a 5 mm step (band ±0.1 mm).
+    let mut seed = 0x9e37_79b9_7f4a_7c15_u64;
+    let mut noise = || {
+        seed ^= seed << 13;
+        seed ^= seed >> 7;
+        seed ^= seed << 17;
+        ((seed >> 11) as f64 / (1u64 << 53) as f64 - 0.5) * 0.4
+    };
+    let noisy: Vec<StepRow> = (0..1000)
+        .map(|k| {
+            let t = k as f64 * H;
+            let (target, clean) =
+                if t >= 0.1 { (5.0, 5.0 * (1.0 - (-(t - 0.1) / 0.03).exp())) } else { (0.0, 0.0) };
+            StepRow { t, target, position: clean + noise(), duty: None }
+        })
+        .collect();
+    let table = text(&servotty(&["analyze", "step", &write("noisy.csv", &noisy)]).stdout);
+    assert!(table.contains("5-sample centred moving average"), "{table}");
+    assert!(table.contains("WARNING"), "{table}");
+}
+
+// `analyze relay` and `analyze identify` on recorded files give what `tune relay` and `tune
+// identify` give: the relay fixture's point (as in the reference check above) and the demo X
+// model from open-loop pulses (as in the identification check above).
+#[test]
+fn analyze_relay_and_identify_read_records() {
+    let fixture = reference("relay_axis.csv");
+    let out = servotty(&[
+        "analyze",
+        "relay",
+        fixture.to_str().expect("utf-8"),
+        "--friction",
+        "3.5",
+        "--hysteresis",
+        "0.3125",
+        "--json",
+    ]);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).expect("json");
+    let true_gain = num(&reference_json("relay_axis.json")["cases"][0]["true_gain"]);
+    assert!(rel(num(&v["relay"]["point"]["gain"]), true_gain) < 0.05, "{v}");
+    assert!(v["suggestion"]["patch"]["kp"].as_f64().is_some_and(|kp| kp > 0.0), "{v}");
+
+    let p = mid_rail("x");
+    let rows = standard_experiment(&p);
+    let dir = tempfile::tempdir().expect("temp dir");
+    let path = dir.path().join("pulses.csv");
+    let mut csv = String::from("# open-loop pulses\nt,duty,position\n");
+    for r in &rows {
+        csv.push_str(&format!("{},{},{}\n", r.t, r.duty, r.position));
+    }
+    std::fs::write(&path, csv).expect("writes");
+    let out = servotty(&["analyze", "identify", path.to_str().expect("utf-8")]);
+    let table = text(&out.stdout);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let (k, _, _) = true_model(&p);
+    assert!(table.contains(&format!("velocity gain {:.2}", k)), "{table}");
+    assert!(table.contains("SIMC") && table.contains("kp = "), "{table}");
+}

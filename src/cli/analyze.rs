@@ -5,6 +5,13 @@
 //! ([`crate::tuning::report`] has the definitions). Any problem with the file is reported
 //! with the file name and line, exit code 2.
 //!
+//! `servotty analyze relay FILE.csv` and `servotty analyze identify FILE.csv` read a record
+//! with the columns `t` (s), `position` (axis units) and `duty` (%, held from that row to the
+//! next), in any order with more columns allowed and `#` comment lines skipped, and run the
+//! same analysis as `tune relay` and `tune identify` ([`crate::tuning::relay`],
+//! [`crate::tuning::ident`]). With no axis configuration they assume no minimum duty (gains
+//! not scaled by a compensation slope) and say so.
+//!
 //! `servotty analyze trip CAPTURE [--axis A] [--json] [--svg OUT]` reads a trip capture and
 //! names the most likely cause with its evidence ([`crate::diagnosis`] states the rules);
 //! `--svg` also draws the trip chart.
@@ -37,6 +44,51 @@ pub enum AnalyzeWhat {
         after_help = "Example:\n  servotty analyze trip capture-2026-05-04t10-12-03z-x-stall.csv --svg trip.svg"
     )]
     Trip(TripArgs),
+    /// A relay experiment (columns t, position, duty): the oscillation, the frequency-response
+    /// point it measured and phase-margin PID gains, as `tune relay` reports them.
+    #[command(after_help = "Example:\n  servotty analyze relay x-relay.csv --friction 3.5")]
+    Relay(RelayArgs),
+    /// Open-loop duty steps (columns t, position, duty): the velocity model (gain, time
+    /// constant, friction offset, delay), its fit, and SIMC gains, as `tune identify` reports.
+    #[command(
+        after_help = "Example:\n  servotty analyze identify x-pulses.csv --resolution 0.0416667"
+    )]
+    Identify(IdentifyArgs),
+}
+
+/// `servotty analyze relay`.
+#[derive(Debug, Args)]
+pub struct RelayArgs {
+    /// CSV file with a header naming at least t, position and duty.
+    pub file: PathBuf,
+    /// Relay amplitude d, % (default: half the duty's range in the file).
+    #[arg(long, value_name = "PCT")]
+    pub duty: Option<f64>,
+    /// Relay hysteresis ε, axis units (default 0), for the describing-function comparison.
+    #[arg(long, value_name = "UNITS", default_value_t = 0.0)]
+    pub hysteresis: f64,
+    /// Sliding-friction offset to correct for, % (default: none).
+    #[arg(long, value_name = "PCT", default_value_t = 0.0)]
+    pub friction: f64,
+    /// One encoder count, axis units (default: the smallest position change in the file).
+    #[arg(long, value_name = "UNITS")]
+    pub resolution: Option<f64>,
+    /// Print one JSON object instead of text.
+    #[arg(long)]
+    pub json: bool,
+}
+
+/// `servotty analyze identify`.
+#[derive(Debug, Args)]
+pub struct IdentifyArgs {
+    /// CSV file with a header naming at least t, position and duty.
+    pub file: PathBuf,
+    /// One encoder count, axis units (default: the smallest position change in the file).
+    #[arg(long, value_name = "UNITS")]
+    pub resolution: Option<f64>,
+    /// Print one JSON object instead of text.
+    #[arg(long)]
+    pub json: bool,
 }
 
 /// `servotty analyze trip`.
@@ -75,6 +127,8 @@ impl AnalyzeArgs {
         match &self.what {
             AnalyzeWhat::Step(a) => a.json,
             AnalyzeWhat::Trip(a) => a.json,
+            AnalyzeWhat::Relay(a) => a.json,
+            AnalyzeWhat::Identify(a) => a.json,
         }
     }
 }
@@ -93,7 +147,85 @@ pub fn run(args: &AnalyzeArgs) -> Result<u8, Failure> {
             emit(&trip(a).map_err(Failure::Usage)?)?;
             Ok(EXIT_OK)
         }
+        AnalyzeWhat::Relay(a) => {
+            emit(&relay(a).map_err(Failure::Usage)?)?;
+            Ok(EXIT_OK)
+        }
+        AnalyzeWhat::Identify(a) => {
+            emit(&identify(a).map_err(Failure::Usage)?)?;
+            Ok(EXIT_OK)
+        }
     }
+}
+
+/// The columns every duty record has.
+const DUTY_COLUMNS: [&str; 3] = ["t", "position", "duty"];
+
+fn read_duty_record(file: &Path) -> Result<Vec<Vec<f64>>, String> {
+    let text = read_text(file)?;
+    crate::tuning::columns::read_columns(&text, &DUTY_COLUMNS)
+        .map_err(|e| format!("{}:{}: {}", file.display(), e.line, e.message))
+}
+
+/// The report for `analyze relay`.
+fn relay(a: &RelayArgs) -> Result<String, String> {
+    use crate::tuning::{relay, suggest};
+    let name = a.file.display();
+    let c = read_duty_record(&a.file)?;
+    let (lo, hi) =
+        c[2].iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(l, h), &v| (l.min(v), h.max(v)));
+    let d = a.duty.unwrap_or(0.5 * (hi - lo));
+    let opts = relay::RelayOptions {
+        hysteresis: a.hysteresis,
+        resolution: a.resolution,
+        friction_pct: a.friction,
+        ..relay::RelayOptions::ideal(d)
+    };
+    let r = relay::analyze_relay(&c[0], &c[1], &c[2], &opts).map_err(|e| format!("{name}: {e}"))?;
+    let base = crate::config::ControllerConfig::default();
+    let s = suggest::from_relay(&r, suggest::RelayDesign::default(), &base, 10.0)
+        .map_err(|e| format!("{name}: {e}"))?;
+    if a.json {
+        let v = serde_json::json!({ "relay": r, "suggestion": s });
+        return Ok(format!("{v}\n"));
+    }
+    let mut out = format!("{name}\n{}\n", crate::commission::relay_text(&r, &s, ""));
+    out.push_str(&format!("proposed [axis.controller] lines:\n{}", s.patch.to_toml_lines()));
+    for n in &s.notes {
+        out.push_str(&format!("  note: {n}\n"));
+    }
+    out.push_str("  note: no axis configuration: gains not scaled for a minimum duty\n");
+    Ok(out)
+}
+
+/// The report for `analyze identify`.
+fn identify(a: &IdentifyArgs) -> Result<String, String> {
+    use crate::tuning::{ident, suggest};
+    let name = a.file.display();
+    let c = read_duty_record(&a.file)?;
+    let samples: Vec<ident::DutySample> = (0..c[0].len())
+        .map(|k| ident::DutySample { t: c[0][k], position: c[1][k], duty: c[2][k] })
+        .collect();
+    let opts = ident::IdentOptions { resolution: a.resolution, ..Default::default() };
+    let id = ident::identify(&samples, &opts).map_err(|e| format!("{name}: {e}"))?;
+    let base = crate::config::ControllerConfig::default();
+    let mut so = suggest::SimcOptions::new(id.sample_period_s);
+    so.resolution = Some(id.resolution);
+    let s = suggest::simc(&id.model, &base, &so).map_err(|e| format!("{name}: {e}"))?;
+    if a.json {
+        let v = serde_json::json!({ "identification": id, "suggestion": s });
+        return Ok(format!("{v}\n"));
+    }
+    let mut out = format!("{name}\n{}\n", crate::commission::identify_text(&id, &s, ""));
+    out.push_str(&format!("proposed [axis.controller] lines:\n{}", s.patch.to_toml_lines()));
+    for n in &s.notes {
+        out.push_str(&format!("  note: {n}\n"));
+    }
+    out.push_str(
+        "  note: no axis configuration and no breakaway measured: minimum duty from the friction \
+         offset, gains not scaled for the configured one\n",
+    );
+    Ok(out)
 }
 
 /// The report for `analyze trip`, or the message for a bad file.

@@ -21,6 +21,7 @@ pub mod linktest;
 pub mod manual;
 pub mod move_cmd;
 pub mod progress;
+pub mod run;
 pub mod sim_pty;
 pub mod tune;
 
@@ -84,6 +85,12 @@ pub enum Command {
     #[command(after_help = "Examples:\n  servotty move --to x=300,y=150\n  \
         servotty -c gantry.toml move --home --to z=20 --json")]
     Move(MoveArgs),
+    /// Carry out a move list: moves, dwells and waits, step by step (or check it: --dry-run).
+    #[command(
+        after_help = "Examples:\n  servotty run configs/tray-inspection-list.toml --home --dry-run\n  \
+        servotty -c gantry.toml run trays.toml --home --from 4 --json"
+    )]
+    Run(run::RunArgs),
     /// Link and home every axis in the configured order.
     #[command(after_help = "Example:\n  servotty -c gantry.toml home")]
     Home(HomeArgs),
@@ -248,6 +255,7 @@ pub fn dispatch(cli: &Cli) -> Result<u8, Failure> {
         }
         Some(Command::Sim(a)) => Ok(sim_pty::run(a)),
         Some(Command::Move(a)) => move_cmd::run(a),
+        Some(Command::Run(a)) => run::run(a),
         Some(Command::Home(a)) => home_cmd::run(a),
         Some(Command::Tune(a)) => tune::run(a),
         Some(Command::Linktest(a)) => linktest::run(a),
@@ -273,6 +281,7 @@ impl Cli {
     pub fn json(&self) -> bool {
         match &self.command {
             Some(Command::Move(a)) => a.json,
+            Some(Command::Run(a)) => a.json,
             Some(Command::Home(a)) => a.json,
             Some(Command::Linktest(a)) => a.json,
             Some(Command::Tune(a)) => a.json,

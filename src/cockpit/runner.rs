@@ -185,7 +185,7 @@ fn describe(c: &AxisCommand) -> &'static str {
     match c {
         AxisCommand::Enable => "enable",
         AxisCommand::Disable => "disable",
-        AxisCommand::MoveTo(_) => "go to",
+        AxisCommand::MoveTo(_) | AxisCommand::MoveWithin { .. } => "go to",
         AxisCommand::Stop => "stop",
         AxisCommand::ClearTrip => "clear trip",
         AxisCommand::SetController(_) => "new gains",

@@ -292,6 +292,21 @@ impl Limits {
         Self { velocity: velocity.min(self.velocity), ..self }
     }
 
+    /// Each limit no higher than `own`'s. A jerk limit from either side applies (the smaller
+    /// when both have one).
+    #[must_use]
+    pub fn within(self, own: Self) -> Self {
+        let jerk = match (self.jerk, own.jerk) {
+            (Some(a), Some(b)) => Some(a.min(b)),
+            (a, b) => a.or(b),
+        };
+        Self {
+            velocity: self.velocity.min(own.velocity),
+            acceleration: self.acceleration.min(own.acceleration),
+            jerk,
+        }
+    }
+
     /// Every limit multiplied by `k` (> 0): from rest, the profile over `k·D` with limits
     /// `k·(v, a, j)` is `k` times the profile over `D`, in the same time.
     #[must_use]

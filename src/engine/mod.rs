@@ -19,6 +19,7 @@ pub mod events;
 pub mod experiment;
 pub mod history;
 pub mod homing;
+pub mod line_move;
 pub mod link_meter;
 pub mod link_quality;
 pub mod machine;

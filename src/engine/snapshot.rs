@@ -215,6 +215,8 @@ pub struct AxisSnapshot {
     pub move_peak_following_error: f64,
     /// Time from the start of the last completed move to in-position, s (board time).
     pub move_settle_s: Option<f64>,
+    /// The board's input bits in the latest frame ([`crate::protocol::inputs`]).
+    pub inputs: u8,
 }
 
 impl AxisSnapshot {
@@ -242,6 +244,7 @@ impl AxisSnapshot {
             moves_done: 0,
             move_peak_following_error: 0.0,
             move_settle_s: None,
+            inputs: 0,
         }
     }
 }

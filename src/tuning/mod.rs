@@ -12,6 +12,7 @@
 //!   and the conversion of ideal-form settings to servotty's parallel gains.
 //! - [`suggest`]: a `[axis.controller]` patch with its reasoning, from the identified model
 //!   (SIMC rules and model-based feedforward) or from a relay result (a rule above).
+//! - [`columns`]: named numeric columns of a recorded CSV (for `analyze relay|identify`).
 //! - [`compare`]: the current gains' closed-loop step against a suggestion's, and when the
 //!   suggestion counts as worse.
 //! - [`report`]: step records (CSV in and out, SVG plot), finding the step, and the metrics
@@ -19,6 +20,7 @@
 //!
 //! docs/tuning.md is the practitioner's guide that goes with this module.
 
+pub mod columns;
 pub mod compare;
 pub mod ident;
 pub mod relay;

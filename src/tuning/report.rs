@@ -10,6 +10,18 @@
 //! and the step = new target − old target; everything is therefore relative to the commanded
 //! step, and the settling band is a fraction of it. Times are from the step instant.
 //!
+//! A target that *ramps* (its largest single jump under half of its whole change) is refused
+//! with that reason: a profiled move is not a step.
+//!
+//! # Noise
+//! The noise is estimated from the window's second differences, `σ = RMS(Δ²y)/√6` (exact for
+//! white noise on a smooth signal; common practice, no source). When σ exceeds a quarter of
+//! the settling band's half-width, single samples would decide the overshoot and the
+//! settling time: the metrics are then taken on the position smoothed by a centred moving
+//! average of [`SMOOTHING_SAMPLES`] samples (zero phase, so times do not shift), and the
+//! report says so; when σ exceeds the half-width itself it also warns that the band is inside
+//! the noise. The steady-state error is reported only when the response settled in the band.
+//!
 //! Two extra numbers for a servo: the peak following error `max |target − position|` over the
 //! window (for an instantaneous step that is at least the step itself, at its first row), and
 //! the peak `|duty|` when the record has a duty column.
@@ -68,6 +80,12 @@ pub enum StepAnalysisError {
     NoStep,
     #[error("the settling band must be between 0 and 100 % (found {0} %)")]
     BadBand(f64),
+    #[error(
+        "the target ramps rather than steps: it changes on {changes} rows and its largest \
+         single jump ({jump}) is {pct:.0} % of its whole change ({total}); a step record needs \
+         the target to jump once (record with `tune step`, or use a move's following error)"
+    )]
+    Ramp { changes: usize, jump: f64, total: f64, pct: f64 },
     #[error("{0}")]
     Metrics(#[from] StepError),
 }
@@ -208,6 +226,10 @@ pub struct StepSummary {
     pub peak_duty: Option<f64>,
     /// Rows analysed.
     pub rows: usize,
+    /// Noise estimate σ of the position, units (module docs).
+    pub noise: f64,
+    /// Whether the metrics were taken on the smoothed position (module docs).
+    pub smoothed: bool,
 }
 
 /// Finds the step and measures it with a settling band of `band_frac` of the step.
@@ -223,13 +245,30 @@ pub fn summarize_step(rows: &[StepRow], band_frac: f64) -> Result<StepSummary, S
         return Err(StepAnalysisError::BadBand(100.0 * band_frac));
     }
     let step = find_step(rows).ok_or(StepAnalysisError::NoStep)?;
+    let changes = rows.windows(2).filter(|w| w[1].target != w[0].target).count();
+    let (tlo, thi) = rows
+        .iter()
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(l, h), r| (l.min(r.target), h.max(r.target)));
+    let jump = (step.to - step.from).abs();
+    if changes > 2 && jump < 0.5 * (thi - tlo) {
+        return Err(StepAnalysisError::Ramp {
+            changes,
+            jump,
+            total: thi - tlo,
+            pct: 100.0 * jump / (thi - tlo),
+        });
+    }
     let end = rows[step.index..]
         .iter()
         .position(|r| r.target != step.to)
         .map_or(rows.len(), |p| step.index + p);
     let window = &rows[step.index..end];
     let t: Vec<f64> = window.iter().map(|r| r.t).collect();
-    let y: Vec<f64> = window.iter().map(|r| r.position).collect();
+    let raw: Vec<f64> = window.iter().map(|r| r.position).collect();
+    let noise = noise_sigma(&raw);
+    let half_band = band_frac * (step.to - step.from).abs();
+    let smoothed = noise > 0.25 * half_band;
+    let y = if smoothed { centred_average(&raw, SMOOTHING_SAMPLES) } else { raw };
     let mut metrics = step_metrics(&t, &y, step.from, step.to - step.from, step.t, band_frac)?;
     // `max(0.0)` of a negated zero is −0.0; print and serialise it as 0.
     metrics.overshoot_pct += 0.0;
@@ -245,7 +284,32 @@ pub fn summarize_step(rows: &[StepRow], band_frac: f64) -> Result<StepSummary, S
         peak_following_error,
         peak_duty,
         rows: window.len(),
+        noise,
+        smoothed,
     })
+}
+
+/// Width of the centred moving average used on noisy records, samples.
+pub const SMOOTHING_SAMPLES: usize = 5;
+
+/// Noise estimate σ = RMS(second difference)/√6 (module docs); 0 for fewer than 3 samples.
+fn noise_sigma(y: &[f64]) -> f64 {
+    if y.len() < 3 {
+        return 0.0;
+    }
+    let ss: f64 = y.windows(3).map(|w| (w[2] - 2.0 * w[1] + w[0]).powi(2)).sum();
+    (ss / (y.len() - 2) as f64 / 6.0).sqrt()
+}
+
+/// Centred moving average over `n` samples (odd), shrinking at the ends.
+fn centred_average(y: &[f64], n: usize) -> Vec<f64> {
+    let h = n / 2;
+    (0..y.len())
+        .map(|k| {
+            let (a, b) = (k.saturating_sub(h), (k + h + 1).min(y.len()));
+            y[a..b].iter().sum::<f64>() / (b - a) as f64
+        })
+        .collect()
 }
 
 impl StepSummary {
@@ -258,7 +322,7 @@ impl StepSummary {
             "rise_s": m.rise_s,
             "overshoot_pct": m.overshoot_pct,
             "settling_s": m.settling_s,
-            "steady_state_error": m.steady_state_error,
+            "steady_state_error": m.settling_s.map(|_| m.steady_state_error),
             "peak_time_s": m.peak_time_s,
             "undershoot_pct": m.undershoot_pct,
             "step_at_s": self.step.t,
@@ -267,6 +331,8 @@ impl StepSummary {
             "band_pct": 100.0 * self.band_frac,
             "peak_following_error": self.peak_following_error,
             "peak_duty": self.peak_duty,
+            "noise": self.noise,
+            "smoothed": self.smoothed,
         })
     }
 
@@ -300,10 +366,28 @@ impl StepSummary {
         row("undershoot", format!("{:.2} %", m.undershoot_pct));
         row("peak time", format!("{:.4} s", m.peak_time_s));
         row("settling time", secs(m.settling_s, "not settled by the end of the record"));
-        row("steady-state error", format!("{:.4}{u}", m.steady_state_error));
+        row(
+            "steady-state error",
+            match m.settling_s {
+                Some(_) => format!("{:.4}{u}", m.steady_state_error),
+                None => "none reported: the response did not settle".to_owned(),
+            },
+        );
         row("peak following error", format!("{:.4}{u}", self.peak_following_error));
         if let Some(d) = self.peak_duty {
             row("peak duty", format!("{d:.1} %"));
+        }
+        if self.smoothed {
+            row(
+                "note",
+                format!(
+                    "noise σ {:.4}{u}: metrics on a {SMOOTHING_SAMPLES}-sample centred moving average",
+                    self.noise
+                ),
+            );
+        }
+        if self.noise > self.band_frac * step.abs() {
+            row("WARNING", "the noise exceeds the settling band: widen --band".to_owned());
         }
         s
     }

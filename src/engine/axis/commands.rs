@@ -66,7 +66,10 @@ impl AxisCore {
                 }
                 (Ok(Reply::Done), was_on)
             }
-            AxisCommand::MoveTo(goal) => (self.start_move(goal), false),
+            AxisCommand::MoveTo(goal) => {
+                (self.start_move(goal, Limits::of(&self.cfg.motion)), false)
+            }
+            AxisCommand::MoveWithin { goal, limits } => (self.start_move(goal, limits), false),
             AxisCommand::Stop => {
                 if self.state == AxisState::Testing {
                     self.end_experiment(Some("stopped by the operator".to_owned()));
@@ -181,7 +184,8 @@ impl AxisCore {
         }
     }
 
-    fn start_move(&mut self, goal: f64) -> Result<Reply, CommandError> {
+    /// An absolute move within `lim`, each limit capped at the axis's own.
+    fn start_move(&mut self, goal: f64, lim: Limits) -> Result<Reply, CommandError> {
         if !self.homed {
             return Err(self.refuse(Refusal::NotHomed));
         }
@@ -191,15 +195,13 @@ impl AxisCore {
             return Err(self.refuse(Refusal::OutsideSoftLimits { goal, min, max, unit }));
         }
         self.require_motion_ready(Asked::Move)?;
-        let m = &self.cfg.motion;
-        self.plan_move(goal, m.max_velocity);
+        self.plan_move(goal, lim.within(Limits::of(&self.cfg.motion)));
         Ok(Reply::Done)
     }
 
     /// A profiled move whose completion waits for the in-position dwell.
-    fn plan_move(&mut self, goal: f64, velocity: f64) {
-        let profile =
-            Profile::plan(self.setpoint, goal, Limits::of(&self.cfg.motion).slower(velocity));
+    fn plan_move(&mut self, goal: f64, lim: Limits) {
+        let profile = Profile::plan(self.setpoint, goal, lim);
         self.profile = Some(ActiveProfile { profile, t0: self.t, purpose: Purpose::Move });
         self.move_planned_end = self.t + profile.duration();
         self.goal = goal;
@@ -244,7 +246,7 @@ impl AxisCore {
         }
         // Already a full step ahead: the press changes nothing (nothing queues).
         if (goal - self.goal) * dir > f64::EPSILON {
-            self.plan_move(goal, self.jog_speed(speed));
+            self.plan_move(goal, Limits::of(&self.cfg.motion).slower(self.jog_speed(speed)));
         }
         Ok(Reply::Done)
     }
@@ -315,7 +317,10 @@ impl AxisCore {
                 let goal = if dir > 0.0 { capped.min(reach) } else { capped.max(reach) };
                 self.jog = Some(JogKeys { direction, first_at: now, deadman: None });
                 if (goal - self.goal) * dir > f64::EPSILON {
-                    self.plan_move(goal, self.jog_speed(speed));
+                    self.plan_move(
+                        goal,
+                        Limits::of(&self.cfg.motion).slower(self.jog_speed(speed)),
+                    );
                 }
                 Ok(Reply::Done)
             }

@@ -308,6 +308,7 @@ impl AxisCore {
         s.moves_done = self.moves.moves_done;
         s.move_peak_following_error = self.moves.peak_following_error;
         s.move_settle_s = self.moves.settle_s;
+        s.inputs = self.inputs;
     }
 }
 

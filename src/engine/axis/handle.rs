@@ -20,6 +20,15 @@ pub enum AxisCommand {
     Disable,
     /// Profiled move to an absolute position, units (refused before homing).
     MoveTo(f64),
+    /// As `MoveTo`, planned within `limits` (each capped at the axis's own): several axes
+    /// given limits in proportion to their distances move on one straight line
+    /// ([`crate::engine::line_move`]).
+    MoveWithin {
+        /// Absolute position, units.
+        goal: f64,
+        /// Velocity, acceleration and jerk limits for this move.
+        limits: crate::control::Limits,
+    },
     /// Decelerate to rest and hold (the motor stays on).
     Stop,
     /// Clear a latched trip, if its cause has gone; the axis comes back disabled.
@@ -79,6 +88,7 @@ impl AxisCommand {
             Self::Enable => "enable".into(),
             Self::Disable => "disable".into(),
             Self::MoveTo(p) => format!("move to {p}"),
+            Self::MoveWithin { goal, .. } => format!("move to {goal} (line)"),
             Self::Stop => "stop".into(),
             Self::ClearTrip => "clear trip".into(),
             Self::Home => "home".into(),
