@@ -6,22 +6,20 @@
 #include "trellis.h"
 
 /*
- * CRC-16/IBM-3740 four bits at a time. Each entry is the CRC register change for one
- * nibble: 32 bytes of table instead of 512, about four times faster than bit by bit, which
- * matters on an 8-bit core sending 18 CRC bytes per tick.
+ * CRC-16/IBM-3740 a byte at a time without a table: the register's high byte meets the
+ * data byte, and the polynomial 0x1021 = x^16 + x^12 + x^5 + 1 turns into three shifted
+ * copies of that byte (after folding its high nibble into its low one). A common form of
+ * this CRC (common practice, no source); the host tests check it against servotty's table
+ * CRC on random data. No table means no RAM on chips that keep constants there, and on an
+ * 8-bit core it is several times faster than a nibble table indexed by 12-bit shifts.
  */
-static const uint16_t crc_nibble[16] = {
-    0x0000, 0x1021, 0x2042, 0x3063, 0x4084, 0x50a5, 0x60c6, 0x70e7,
-    0x8108, 0x9129, 0xa14a, 0xb16b, 0xc18c, 0xd1ad, 0xe1ce, 0xf1ef,
-};
-
 uint16_t trellis_crc16(const uint8_t *bytes, size_t len)
 {
     uint16_t crc = 0xffffu;
     for (size_t i = 0; i < len; i++) {
-        uint8_t b = bytes[i];
-        crc = (uint16_t)((crc << 4) ^ crc_nibble[(uint8_t)((crc >> 12) ^ (b >> 4))]);
-        crc = (uint16_t)((crc << 4) ^ crc_nibble[(uint8_t)((crc >> 12) ^ (b & 0x0fu))]);
+        uint8_t x = (uint8_t)((crc >> 8) ^ bytes[i]);
+        x = (uint8_t)(x ^ (x >> 4));
+        crc = (uint16_t)((crc << 8) ^ ((uint16_t)x << 12) ^ ((uint16_t)x << 5) ^ x);
     }
     return crc;
 }

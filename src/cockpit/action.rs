@@ -125,6 +125,8 @@ pub enum Action {
     EntrySubmit,
     /// Prompt: abandon.
     EntryCancel,
+    /// Open the trip screen of the selected axis: its history and why it tripped.
+    TripView,
 }
 
 /// Work outside the cockpit's own state, carried out by the runner without waiting in the
@@ -166,5 +168,10 @@ pub enum Effect {
         path: PathBuf,
         /// The live configuration.
         config: MachineConfig,
+    },
+    /// Fetch an axis's full-rate history for the trip screen.
+    FetchHistory {
+        /// Axis index.
+        axis: usize,
     },
 }

@@ -45,6 +45,8 @@ pub enum Screen {
     Detail,
     /// The event log.
     Log,
+    /// One axis's trip: history and diagnosis.
+    Trip,
 }
 
 /// What a prompt is for.
@@ -121,6 +123,13 @@ pub enum Notice {
     HomeAll {
         /// `Err(reason)` when an axis failed.
         result: Result<(), String>,
+    },
+    /// An axis's history arrived for the trip screen.
+    History {
+        /// Axis index.
+        axis: usize,
+        /// The rows, or why there are none.
+        result: Result<Vec<crate::engine::history::Sample>, String>,
     },
     /// A save finished.
     Saved {
@@ -220,6 +229,8 @@ pub struct App {
     pub recorder: Option<crate::engine::recorder::RecorderPaths>,
     /// Set when the cockpit should end.
     pub quit: bool,
+    /// The trip screen's history and diagnosis, once fetched.
+    pub trip_view: Option<crate::cockpit::trip_view::TripView>,
 }
 
 impl App {
@@ -262,6 +273,7 @@ impl App {
             suggested: None,
             suggested_worse: false,
             quit: false,
+            trip_view: None,
         }
     }
 
@@ -274,6 +286,7 @@ impl App {
             (Overlay::None, Screen::Overview) => Mode::Overview,
             (Overlay::None, Screen::Detail) => Mode::Detail,
             (Overlay::None, Screen::Log) => Mode::Log,
+            (Overlay::None, Screen::Trip) => Mode::Trip,
         }
     }
 
@@ -367,6 +380,11 @@ impl App {
                 self.param_cursor = self.param_cursor.min(self.params().len().saturating_sub(1));
             }
             Action::Back => self.screen = Screen::Overview,
+            Action::TripView => {
+                self.trip_view = None;
+                self.screen = Screen::Trip;
+                return vec![Effect::FetchHistory { axis: sel }];
+            }
             Action::ToggleLog => {
                 if self.screen == Screen::Log {
                     self.screen = self.log_return;
@@ -663,6 +681,22 @@ impl App {
         self.now = self.now.max(now);
         match notice {
             Notice::Reply { result: Ok(()), .. } => {}
+            Notice::History { axis, result: Ok(rows) } => {
+                if let Some(cfg) = self.config.axes.get(axis) {
+                    let trip = self.axes[axis].snap.trip.clone();
+                    self.trip_view = Some(crate::cockpit::trip_view::TripView::new(
+                        axis,
+                        cfg,
+                        rows,
+                        trip.as_ref(),
+                    ));
+                }
+            }
+            Notice::History { axis, result: Err(why) } => {
+                let name = self.name(axis).to_owned();
+                self.note(Kind::Refused, format!("{name}: no history for the trip screen: {why}"));
+                self.screen = Screen::Overview;
+            }
             Notice::Reply { axis, what, result: Err(why) } => {
                 let name = self.name(axis).to_owned();
                 self.note(Kind::Refused, format!("{name}: {what} refused: {why}"));

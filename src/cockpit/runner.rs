@@ -245,6 +245,14 @@ fn execute<P: MachinePort>(
                 save::save_controllers(&path, c, &save::note("saved from the cockpit"))
             });
         }
+        Effect::FetchHistory { axis } => {
+            let job = port.history(axis);
+            let notices = notices.clone();
+            tokio::spawn(async move {
+                let result = job.await;
+                let _ = notices.send(Notice::History { axis, result }).await;
+            });
+        }
         Effect::WriteCopy { path, config } => {
             spawn_save(notices.clone(), config, true, move |c| {
                 save::write_copy(

@@ -15,12 +15,12 @@ use tokio::io::AsyncWriteExt;
 use tokio::time::MissedTickBehavior;
 
 use crate::config::{PlantParams, SimFaults};
+use crate::link::BoardStream;
 use crate::protocol::{
     self, features, inputs, status, BoardMessage, Capabilities, FrameDecoder, HostMessage,
     Telemetry,
 };
 use crate::sim::plant::{Plant, PlantFaults};
-use crate::transport::BoardStream;
 
 /// Tick rate the simulated board runs at before the host configures it, Hz.
 const POWER_UP_TICK_HZ: u16 = 1000;
