@@ -41,6 +41,37 @@ impl Output {
     const NOTHING: Self = Self { send: None, ticks: 0 };
 }
 
+/// A stretch of duty answers, from the first Duty after Stop answers.
+#[derive(Debug, Clone, Copy)]
+pub(super) struct Drive {
+    /// Seq echoed by the first duty answer.
+    pub(super) since_seq: u16,
+    /// The board showed its motor on with an `ack_seq` of this drive: from then on a motor
+    /// it reports off is a trip.
+    pub(super) confirmed: bool,
+    /// Board ticks since the drive began.
+    pub(super) ticks: u32,
+}
+
+impl Drive {
+    /// Feeds one frame; true once the board's status counts: confirmed (motor on with an
+    /// ack of this drive), or never confirmed within `grace_ticks` (a board that ignores its
+    /// duty is as wrong as one that drops it). An ack alone is not proof: after Configure
+    /// the board's ack_seq starts at 0, which a drive beginning at seq 0 would match.
+    pub(super) fn frame(
+        &mut self,
+        ack_seq: u16,
+        motor_on: bool,
+        ticks: u32,
+        grace_ticks: u32,
+    ) -> bool {
+        self.ticks = self.ticks.saturating_add(ticks);
+        let acked = ack_seq.wrapping_sub(self.since_seq) < u16::MAX / 2;
+        self.confirmed |= acked && motor_on;
+        self.confirmed || self.ticks > grace_ticks
+    }
+}
+
 /// One axis's state and decisions.
 pub struct AxisCore {
     pub(super) cfg: AxisConfig,
@@ -83,9 +114,9 @@ pub struct AxisCore {
     pub(super) moves: MoveStats,
     /// Board time the running move's profile ends, s (for the not-in-position rule).
     pub(super) move_planned_end: f64,
-    /// Seq of the first duty answer of the present drive (None while the answers are Stop):
-    /// the board's status counts once its ack_seq has reached it.
-    pub(super) drive_since_seq: Option<u16>,
+    /// The present drive (None while the answers are Stop): whether the board has confirmed
+    /// it, which is when its status bits start to count.
+    pub(super) drive: Option<Drive>,
     /// Bad and missed frames over the last second, for link-quality events.
     quality: LinkQuality,
     pub(super) history: History,
@@ -135,7 +166,7 @@ impl AxisCore {
             settle_since: None,
             moves: MoveStats::default(),
             move_planned_end: 0.0,
-            drive_since_seq: None,
+            drive: None,
             quality: LinkQuality::new(tick_hz),
             history,
             events: Vec::new(),
@@ -172,9 +203,9 @@ impl AxisCore {
         let send = self.answer();
         match send {
             HostMessage::Duty { seq, .. } => {
-                self.drive_since_seq.get_or_insert(seq);
+                self.drive.get_or_insert(Drive { since_seq: seq, confirmed: false, ticks: 0 });
             }
-            _ => self.drive_since_seq = None,
+            _ => self.drive = None,
         }
         Output { send: Some(send), ticks }
     }
@@ -254,7 +285,7 @@ impl AxisCore {
     /// Stop, at once: the duty is zero from now on (disable, stop-all category 0, shutdown).
     pub fn motor_off(&mut self) -> Output {
         self.duty = 0.0;
-        self.drive_since_seq = None;
+        self.drive = None;
         Output { send: Some(HostMessage::Stop { seq: self.echo_seq() }), ticks: 0 }
     }
 
@@ -488,5 +519,19 @@ mod tests {
             core.on_frame(&f.next(0), now);
         }
         assert_ne!(core.state(), AxisState::Testing, "the steps and settle time have passed");
+    }
+
+    // The board's fresh ack_seq after Configure is 0, the same number a drive that begins
+    // with frame 0 echoes: only the motor-on bit with that ack proves the duty arrived.
+    #[test]
+    fn a_drive_counts_once_the_board_shows_it_applied_or_after_the_grace() {
+        let mut d = Drive { since_seq: 0, confirmed: false, ticks: 0 };
+        assert!(!d.frame(0, false, 1, 100), "ack 0 before any duty arrived");
+        assert!(d.frame(0, true, 1, 100), "motor on with the drive's ack");
+        assert!(d.frame(5, false, 1, 100), "confirmed: a motor off now counts");
+        let mut d = Drive { since_seq: 7, confirmed: false, ticks: 0 };
+        assert!(!d.frame(6, true, 1, 100), "an older duty's ack is not this drive's");
+        assert!(!d.frame(6, false, 99, 100));
+        assert!(d.frame(6, false, 1, 100), "never applied within the grace");
     }
 }

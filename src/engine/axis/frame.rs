@@ -88,12 +88,14 @@ impl AxisCore {
             self.outside_limits = !(l.soft_min..=l.soft_max).contains(&self.position);
         }
         let testing = self.state == AxisState::Testing;
-        let c = &self.cfg.controller;
-        let host_drives = self.state.motor_on() && self.drive_since_seq.is_some();
-        // The board has applied a duty of this drive once its ack_seq reaches the drive's
-        // first seq (wrapping seq arithmetic, docs/protocol.md).
+        let host_drives = self.state.motor_on() && self.drive.is_some();
+        // The board's status counts once it has shown this drive applied (wrapping seq
+        // arithmetic for the ack, docs/protocol.md), or after a grace of a link timeout.
+        let grace = (self.cfg.limits.link_timeout_s * f64::from(self.cfg.board.tick_hz)) as u32;
+        let board_on = tm.status & status::MOTOR_ON != 0;
         let drive_acked =
-            self.drive_since_seq.is_some_and(|s| tm.ack_seq.wrapping_sub(s) < u16::MAX / 2);
+            self.drive.as_mut().is_some_and(|d| d.frame(tm.ack_seq, board_on, ticks, grace));
+        let c = &self.cfg.controller;
         let obs = Observation {
             t: self.t,
             target: self.setpoint.position,
@@ -111,7 +113,7 @@ impl AxisCore {
             following_active: !testing,
             host_drives,
             drive_acked,
-            board_motor_on: tm.status & status::MOTOR_ON != 0,
+            board_motor_on: board_on,
             board_watchdog: tm.status & status::WATCHDOG_TRIPPED != 0,
             breakaway: if applied >= 0.0 { c.min_duty_forward } else { c.min_duty_reverse },
             position_band: self.cfg.motion.in_position_band,
