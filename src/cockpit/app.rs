@@ -71,6 +71,8 @@ pub enum Purpose {
         /// Axis index.
         axis: usize,
     },
+    /// A name for the present position (a spot).
+    StoreSpot,
 }
 
 /// A prompt being typed.
@@ -415,6 +417,8 @@ impl App {
             }
             Action::GoTo if n > 0 => self.prompt(Purpose::GoTo { axis: sel }, String::new()),
             Action::GoTo => {}
+            Action::StoreSpot if n > 0 => self.prompt(Purpose::StoreSpot, String::new()),
+            Action::StoreSpot => {}
             Action::Test if n > 0 => self.prompt(Purpose::Test { axis: sel }, String::new()),
             Action::Test => {}
             Action::ApplySuggested => return self.apply_suggested(),
@@ -549,6 +553,7 @@ impl App {
             Purpose::GoTo { axis } => self.submit_goto(axis, &text),
             Purpose::Gain { axis, param } => self.submit_gain(axis, param, &text),
             Purpose::Test { axis } => self.submit_test(axis, &text),
+            Purpose::StoreSpot => self.submit_store_spot(&text),
             Purpose::SaveCopy => {
                 if text.is_empty() {
                     Err("type a file name".to_owned())
@@ -569,6 +574,59 @@ impl App {
                     p.error = Some(e);
                 }
                 vec![]
+            }
+        }
+    }
+
+    /// `@spot` in the go-to prompt: every axis the spot names to its position there.
+    fn submit_goto_spot(&mut self, text: &str) -> Result<Vec<Effect>, String> {
+        let targets = crate::spots::targets(&self.config, text)?;
+        let mut fx = Vec::new();
+        for t in targets {
+            let Some(i) = self.config.axes.iter().position(|a| a.name == t.axis) else { continue };
+            let words = format!("go to {} {} ({text})", plain(t.position), self.unit(i));
+            fx.push(self.command(i, AxisCommand::MoveTo(t.position), &words));
+        }
+        Ok(fx)
+    }
+
+    /// Stores the homed axes' present positions as a spot: in the live configuration at once,
+    /// and in the configuration file when there is one (off the key path).
+    fn submit_store_spot(&mut self, name: &str) -> Result<Vec<Effect>, String> {
+        if !crate::spots::valid_name(name) {
+            return Err("type a name: letters, digits, _ or -".to_owned());
+        }
+        let position: Vec<(String, f64)> = self
+            .axes
+            .iter()
+            .filter(|v| v.snap.homed)
+            .map(|v| (v.snap.axis.to_string(), v.snap.position))
+            .collect();
+        if position.is_empty() {
+            return Err("no axis is homed: its position is not trusted yet".to_owned());
+        }
+        let mut next = self.config.clone();
+        next.spots.0.insert(name.to_owned(), position.iter().cloned().collect());
+        if let Some(bad) = crate::spots::check(&next).into_iter().next() {
+            return Err(bad.message);
+        }
+        self.config = next;
+        let axes: Vec<&str> = position.iter().map(|(a, _)| a.as_str()).collect();
+        match &self.source {
+            ConfigSource::File(path) => {
+                let path = path.clone();
+                self.note(
+                    Kind::Operator,
+                    format!("storing @{name} ({}) in {}", axes.join(", "), path.display()),
+                );
+                Ok(vec![Effect::StoreSpot { path, name: name.to_owned(), position }])
+            }
+            ConfigSource::BuiltInDemo => {
+                self.note(
+                    Kind::Info,
+                    format!("@{name} kept for this session (the built-in demo has no file)"),
+                );
+                Ok(vec![])
             }
         }
     }
@@ -647,6 +705,9 @@ impl App {
     }
 
     fn submit_goto(&mut self, axis: usize, text: &str) -> Result<Vec<Effect>, String> {
+        if text.starts_with('@') {
+            return self.submit_goto_spot(text);
+        }
         let v: f64 = text.parse().map_err(|_| format!("{text:?} is not a number"))?;
         let a = self.config.axes.get(axis).ok_or("no such axis")?;
         let (lo, hi) = (a.limits.soft_min, a.limits.soft_max);

@@ -226,6 +226,7 @@ pub const BINDINGS: &[Binding] = &[
     bind(&[Char('c')], "c C", Action::ClearTrip, Modes::AXIS, Group::Axis, "clear trip / all"),
     bind(&[Char('C')], "", Action::ClearAllTrips, Modes::AXIS, Group::Axis, ""),
     bind(&[Char('g')], "g", Action::GoTo, Modes::AXIS, Group::Axis, "go to a typed position"),
+    bind(&[Char('P')], "P", Action::StoreSpot, Modes::AXIS, Group::Axis, "store position as @spot"),
     bind(&[Char('s')], "s", Action::StopAxis, Modes::AXIS, Group::Axis, "stop axis, keep holding"),
     bind(
         &[Code(KeyCode::Enter)],

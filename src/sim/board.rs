@@ -141,6 +141,11 @@ impl SimBoardHandle {
         self.lock().plant_faults.clone()
     }
 
+    /// Current link faults (for drills that change one of them).
+    pub fn link_faults(&self) -> LinkFaults {
+        self.lock().link_faults.clone()
+    }
+
     fn lock(&self) -> std::sync::MutexGuard<'_, Shared> {
         self.shared.lock().unwrap_or_else(PoisonError::into_inner)
     }
