@@ -822,7 +822,12 @@ fn step_record_round_trips_through_files_and_the_binary() {
     let dir = tempfile::tempdir().expect("temp dir");
     let csv = dir.path().join("x-step.csv");
     let svg = dir.path().join("x-step.svg");
-    write_step_csv(&csv, &rows).expect("CSV");
+    write_step_csv(&csv, &rows, "mm").expect("CSV");
+    // One header row with units, read back by a general CSV reader.
+    let mut rdr = csv::Reader::from_path(&csv).expect("opens");
+    let header: Vec<String> = rdr.headers().expect("header").iter().map(str::to_owned).collect();
+    assert_eq!(header, ["t_s", "target_mm", "position_mm", "duty_pct"]);
+    assert_eq!(rdr.records().count(), rows.len());
     write_step_svg(&svg, &rows, "x: 20 mm step", "mm").expect("SVG");
     assert!(std::fs::read_to_string(&svg).expect("svg").contains("</svg>"));
     let here = summarize_step(&rows, 0.02).expect("summary");
@@ -855,7 +860,7 @@ fn analyze_step_handles_ramps_unsettled_and_noisy_records() {
     let dir = tempfile::tempdir().expect("temp dir");
     let write = |name: &str, rows: &[StepRow]| -> String {
         let p = dir.path().join(name);
-        write_step_csv(&p, rows).expect("writes");
+        write_step_csv(&p, rows, "mm").expect("writes");
         p.to_str().expect("utf-8").to_owned()
     };
     // A 2,001-row ramp from 0 to 20 mm.
@@ -947,4 +952,35 @@ fn analyze_relay_and_identify_read_records() {
     let (k, _, _) = true_model(&p);
     assert!(table.contains(&format!("velocity gain {:.2}", k)), "{table}");
     assert!(table.contains("SIMC") && table.contains("kp = "), "{table}");
+}
+
+// Gravity on the demo lift Z (a 4 kg load on its lead screw, static friction raised to 90 N
+// so the screw holds it unpowered): breakaway differs by direction, and the one breakaway
+// analysis reads each within 0.1 pp of the plant's own value (src/sim/plant.rs
+// `breakaway_duties`: static friction plus or minus the weight m·g, g = 9.80665 m/s²,
+// ISO 80000-3, reflected through the screw; the driver deadband as the floor).
+#[test]
+fn gravity_makes_the_lift_break_away_differently_each_way() {
+    let mut p = mid_rail("z");
+    p.gravity_load_kg = 4.0;
+    p.static_friction_n = 90.0;
+    let (up, down) = servotty::sim::plant::breakaway_duties(&p);
+    assert!(up > down + 0.005, "up {up} down {down}");
+    for (sign, truth) in [(1.0, 100.0 * up), (-1.0, 100.0 * down)] {
+        let b = breakaway(&ramp_experiment(&p, sign), None).expect("breaks away");
+        let over = b.duty_pct.abs() - truth;
+        println!("sign {sign}: {} vs {truth}", b.duty_pct);
+        assert!((0.0..=0.1).contains(&over), "{sign}: {} vs {truth}", b.duty_pct);
+    }
+    // Unpowered, the load stays where it is; with static friction below the weight it sinks
+    // (slowly: the shorted bridge brakes the motor through its resistance).
+    let mut held = Plant::new(&p);
+    held.step(0.0, 0.5);
+    assert_eq!(held.position_mm(), p.start_mm);
+    let mut loose = p.clone();
+    loose.static_friction_n = 30.0;
+    loose.coulomb_friction_n = 20.0;
+    let mut falls = Plant::new(&loose);
+    falls.step(0.0, 0.5);
+    assert!(falls.position_mm() < p.start_mm - 0.1, "{}", falls.position_mm());
 }

@@ -252,6 +252,9 @@ impl App {
             .collect();
         let mut log = EventLog::default();
         log.push(Duration::ZERO, Kind::Info, format!("cockpit started on {source}"));
+        for w in &config.renamed_keys {
+            log.push(Duration::ZERO, Kind::Info, format!("warning: {w}"));
+        }
         Self {
             saved: config.axes.iter().map(|a| a.controller.clone()).collect(),
             stop_category: config.machine.stop_category,
@@ -639,7 +642,8 @@ impl App {
             "i" => TuneStep::Identify,
             "r" => TuneStep::Relay,
             "s" => TuneStep::Step,
-            _ => return Err("type d, b, i, r or s".to_owned()),
+            "p" => TuneStep::All,
+            _ => return Err("type d, b, i, r, s or p (the guided pass)".to_owned()),
         };
         let a = self.config.axes.get(axis).ok_or("no such axis")?.clone();
         // Never enable an axis behind the operator's back: `e` first.
@@ -648,7 +652,7 @@ impl App {
             return Err(format!("{} is {state}: press e to enable it first", a.name));
         }
         let (_, bounds) = crate::commission::plan(&crate::commission::StepRequest::new(step), &a);
-        let verify = if matches!(step, TuneStep::Identify | TuneStep::Relay) {
+        let verify = if matches!(step, TuneStep::Identify | TuneStep::Relay | TuneStep::All) {
             format!(
                 ", then steps {} {} and back to verify the suggestion",
                 crate::commission::VERIFY_STEP,

@@ -6,7 +6,8 @@
 //! that is unplugged is looked for again every second, a path that is not a serial device or
 //! a board that speaks another protocol version is reported once and not retried.
 //!
-//! - [`serial`]: serial devices (USB CDC or UART);
+//! - [`serial`]: serial devices (USB CDC or UART), read through [`tty`] (one read(2) per
+//!   readiness event, no EAGAIN reads);
 //! - [`once`]: a stream handed over once (the in-process simulator, tests);
 //! - [`factory`]: builds an axis's link from its configuration — the only place that knows
 //!   every kind. A network link would be one more file here plus one configuration variant
@@ -15,6 +16,7 @@
 pub mod factory;
 pub mod once;
 pub mod serial;
+pub mod tty;
 
 use std::time::Duration;
 

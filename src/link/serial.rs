@@ -3,6 +3,7 @@
 
 use futures::future::BoxFuture;
 
+use super::tty::TtyStream;
 use super::{BoxStream, Link, LinkError};
 
 /// Opens a serial device exclusively, in raw mode.
@@ -10,15 +11,18 @@ use super::{BoxStream, Link, LinkError};
 /// # Errors
 /// [`LinkError`] saying what to do about it.
 pub fn open_serial(device: &str, baud: u32) -> Result<BoxStream, LinkError> {
-    use tokio_serial::SerialPortBuilderExt;
     refuse_if_held(device)?;
-    let stream = tokio_serial::new(device, baud)
-        .timeout(std::time::Duration::from_millis(100))
-        .open_native_async()
-        .map_err(|e| classify(device, &e))?;
+    let builder = tokio_serial::new(device, baud).timeout(std::time::Duration::from_millis(100));
+    // Opened non-blocking, exclusive, raw: the same open as tokio-serial's, wrapped in our
+    // own stream that reads only when there is something to read (see `tty`).
+    let port = mio_serial::SerialStream::open(&builder).map_err(|e| classify(device, &e))?;
     // Frames queued while nobody listened are stale (a PTY holds about a second of them);
     // the axis starts from the newest.
-    let _ = serialport::SerialPort::clear(&stream, serialport::ClearBuffer::Input);
+    let _ = serialport::SerialPort::clear(&port, serialport::ClearBuffer::Input);
+    let stream = TtyStream::new(port).map_err(|e| LinkError::Other {
+        device: device.to_owned(),
+        message: format!("cannot wait on the device: {e}"),
+    })?;
     Ok(Box::new(stream))
 }
 
