@@ -485,7 +485,7 @@ impl Columns {
         // rules, and those are kept.
         let state = match self.state {
             Some(i) if f[i].is_empty() => return Err(format!("field {} (state) is empty", i + 1)),
-            Some(i) => state_of(f[i]).unwrap_or(AxisState::Holding),
+            Some(i) => state_of(f[i]).unwrap_or(AxisState::Steady),
             None => AxisState::Moving,
         };
         let target = num(self.target)?;
@@ -571,9 +571,9 @@ mod tests {
 
     #[test]
     fn a_state_word_from_another_version_still_reads() {
-        let text = "axis,t,position,state\nx,0.1,2,standing\nx,0.2,2,tripped\n";
+        let text = "axis,t,position,state\nx,0.1,2,holding\nx,0.2,2,tripped\n";
         let r = CaptureFile::parse(text).expect("reads").record(None).expect("x");
-        assert_eq!(r.rows[0].state, AxisState::Holding);
+        assert_eq!(r.rows[0].state, AxisState::Steady);
         assert_eq!(r.rows[1].state, AxisState::Tripped);
         assert!(CaptureFile::parse("axis,t,position,state\nx,0.1,2,\n").is_err());
     }
