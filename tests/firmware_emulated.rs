@@ -56,7 +56,12 @@ fn missing_tools() -> Vec<&'static str> {
     if !runs("avr-gcc", "--version") {
         missing.push("avr-gcc (gcc-avr)");
     }
-    if !Path::new("/usr/lib/avr/include/avr/io.h").exists() && !runs("avr-gcc", "-print-sysroot") {
+    // avr-gcc runs without avr-libc, so look for its headers (Debian's path, then the
+    // usual cross-toolchain one).
+    if !["/usr/lib/avr/include/avr/io.h", "/usr/avr/include/avr/io.h"]
+        .iter()
+        .any(|p| Path::new(p).exists())
+    {
         missing.push("avr-libc");
     }
     if !Path::new("/usr/include/simavr/sim_avr.h").exists() {
@@ -170,21 +175,51 @@ impl RawHost {
 
     /// The next valid board message.
     fn next(&mut self) -> BoardMessage {
-        let end = Instant::now() + DEADLINE;
+        self.next_within(DEADLINE)
+            .unwrap_or_else(|| panic!("no frame from the board within {DEADLINE:?}"))
+    }
+
+    /// The next valid board message, if one arrives within `wait`.
+    fn next_within(&mut self, wait: Duration) -> Option<BoardMessage> {
+        let end = Instant::now() + wait;
         let mut buf = [0u8; 256];
         loop {
             while let Some(m) = self.decoder.next_message::<BoardMessage>() {
                 if let Ok(m) = m {
-                    return m;
+                    return Some(m);
                 }
             }
-            assert!(Instant::now() < end, "no frame from the board within {DEADLINE:?}");
+            if Instant::now() >= end {
+                return None;
+            }
             match self.port.read(&mut buf) {
                 Ok(n) => self.decoder.extend(&buf[..n]),
                 Err(e) if e.kind() == std::io::ErrorKind::TimedOut => {}
                 Err(e) => panic!("read from the rig: {e}"),
             }
         }
+    }
+
+    /// Sends `m` until the board answers with a message `pick` accepts, as a host does
+    /// (docs/protocol.md §7): a frame sent while the chip is still starting is lost.
+    fn ask<T>(&mut self, m: HostMessage, mut pick: impl FnMut(BoardMessage) -> Option<T>) -> T {
+        let end = Instant::now() + DEADLINE;
+        while Instant::now() < end {
+            self.send_bytes(&[0]);
+            self.send(m);
+            let retry = Instant::now() + Duration::from_millis(300);
+            while let Some(left) = retry.checked_duration_since(Instant::now()) {
+                match self.next_within(left) {
+                    Some(reply) => {
+                        if let Some(v) = pick(reply) {
+                            return v;
+                        }
+                    }
+                    None => break,
+                }
+            }
+        }
+        panic!("no answer to {m:?} within {DEADLINE:?}");
     }
 
     fn next_telemetry(&mut self) -> Telemetry {
@@ -259,13 +294,10 @@ fn firmware_on_an_emulated_board_serves_servotty() {
     // 1. Handshake, capabilities and corrupted frames, through servotty's protocol code.
     {
         let mut host = RawHost::open(&pty);
-        host.send_bytes(&[0]);
-        host.send(HostMessage::Hello);
-        let caps = loop {
-            if let BoardMessage::Hello(c) = host.next() {
-                break c;
-            }
-        };
+        let caps = host.ask(HostMessage::Hello, |m| match m {
+            BoardMessage::Hello(c) => Some(c),
+            BoardMessage::Telemetry(_) => None,
+        });
         assert_eq!(caps.protocol_version, 1);
         assert_eq!(caps.board_name, "trellis-328p");
         assert_eq!(caps.max_tick_hz, 1000);
@@ -273,8 +305,10 @@ fn firmware_on_an_emulated_board_serves_servotty() {
             caps.features,
             features::INDEX_PULSE | features::HOME_INPUT | features::LIMIT_INPUTS
         );
-        host.send(HostMessage::Configure { tick_hz, watchdog_ms: 1000 });
-        let first = host.next_telemetry();
+        let first = host.ask(HostMessage::Configure { tick_hz, watchdog_ms: 1000 }, |m| match m {
+            BoardMessage::Telemetry(t) => Some(t),
+            BoardMessage::Hello(_) => None,
+        });
         assert_eq!((first.seq, first.ack_seq, first.status), (0, 0, 0), "{first:?}");
 
         let duty = |seq: u16| {
