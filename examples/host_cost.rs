@@ -4,6 +4,7 @@
 //! ```sh
 //! cargo run --release --example host_cost -- --axes 8 --seconds 20
 //! cargo run --release --example host_cost -- --axes 16 --seconds 20 --rounds 3
+//! cargo run --release --example host_cost -- --axes 8 --seconds 20 --rounds 3 --together
 //! ```
 //!
 //! Each round runs, one after the other and each against a fresh `servotty sim --pty` serving
@@ -13,7 +14,9 @@
 //! and missed frames with servotty's link meter. When each host is done the simulator is sent
 //! SIGTERM and its per-axis report (late replies, watchdog trips, longest gap between
 //! replies, its own rushed ticks and longest stall) is added. It then prints one table row per
-//! host and round and the ratio servotty/bare of CPU per round.
+//! host and round and the ratio servotty/bare of CPU per round. With `--together` both hosts
+//! run at the same time, each on its own N boards of one simulator serving 2N: on a machine
+//! shared with other work that gives the steadiest ratio, since any load weighs on both.
 //!
 //! Run under `cargo run`, it first brings `servotty` and `bare_host` up to date with the same
 //! cargo (a no-op when they are). The figures are ratios measured side by side: other load on
@@ -40,6 +43,10 @@ struct Args {
     /// Rounds (bare, then servotty, each round).
     #[arg(long, default_value_t = 2)]
     rounds: u32,
+    /// Run both hosts at once, each on its own N boards of one simulator, so that whatever
+    /// else the machine does weighs on both alike (the steadiest ratio on a shared machine).
+    #[arg(long)]
+    together: bool,
     /// Also write every host's and simulator's raw JSON here, one line each.
     #[arg(long)]
     raw: Option<PathBuf>,
@@ -98,47 +105,45 @@ fn run(args: &Args) -> Result<(), String> {
         Some(p) => Some(std::fs::File::create(p).map_err(|e| format!("{}: {e}", p.display()))?),
         None => None,
     };
-    let secs = format!("{}", args.seconds);
     let mut runs = Vec::new();
     for round in 1..=args.rounds {
+        if args.together {
+            // One simulator with 2N boards; each host takes N of them, at the same time.
+            let both = double_config(&config, args.axes)?;
+            let sim = Sim::start(&servotty, both.path(), 2 * args.axes)?;
+            let n = args.axes as usize;
+            let (bare_ports, servotty_ports) = sim.ports.split_at(n);
+            let renamed: Vec<(String, String)> = servotty_ports
+                .iter()
+                .enumerate()
+                .map(|(i, (_, p))| (format!("a{}", i + 1), p.clone()))
+                .collect();
+            let b = host_command(&bare, &servotty, &config, "bare", bare_ports, args.seconds);
+            let s = host_command(&bare, &servotty, &config, "servotty", &renamed, args.seconds);
+            let (b, s) = (spawn(b, "bare")?, spawn(s, "servotty")?);
+            let (b, s) = (finish(b, "bare"), finish(s, "servotty"));
+            let sim_wall = sim.started.elapsed().as_secs_f64();
+            let (sim_lines, sim_cpu) = sim.stop()?;
+            let (bare_sim, servotty_sim) = sim_lines.split_at(n.min(sim_lines.len()));
+            for (host, v, sim_part) in [("bare", b?, bare_sim), ("servotty", s?, servotty_sim)] {
+                write_raw(&mut raw, round, host, &v, sim_part);
+                let mut r = summarise(host, round, &v, sim_part)?;
+                // One simulator served both: its CPU is for 2N boards.
+                r.sim.cpu_pct = sim_cpu;
+                r.sim.ticks_per_s = r.sim.ticks as f64 / f64::from(args.axes) / sim_wall;
+                runs.push(r);
+            }
+            eprintln!("host_cost: round {round} done");
+            continue;
+        }
         for host in ["bare", "servotty"] {
             let sim = Sim::start(&servotty, &config, args.axes)?;
-            let out = match host {
-                "bare" => {
-                    let mut c = Command::new(&bare);
-                    c.args(["--seconds", &secs]);
-                    c.args(sim.ports.iter().map(|(a, p)| format!("{a}={p}")));
-                    c.output()
-                }
-                _ => {
-                    let mut c = Command::new(&servotty);
-                    c.arg("linktest").arg("--config").arg(&config);
-                    c.args(["--seconds", &secs, "--json"]);
-                    for (a, p) in &sim.ports {
-                        c.args(["--port", &format!("{a}={p}")]);
-                    }
-                    // Keep servotty's state files (logs) out of the user's directories.
-                    c.env("XDG_STATE_HOME", std::env::temp_dir()).output()
-                }
-            }
-            .map_err(|e| format!("{host}: {e}"))?;
-            let sim_started = sim.started;
+            let c = host_command(&bare, &servotty, &config, host, &sim.ports, args.seconds);
+            let v = spawn(c, host).and_then(|c| finish(c, host));
+            let sim_wall = sim.started.elapsed().as_secs_f64();
             let (sim_lines, sim_cpu) = sim.stop()?;
-            let sim_wall = sim_started.elapsed().as_secs_f64();
-            if !out.status.success() {
-                return Err(format!("{host}: {}", String::from_utf8_lossy(&out.stderr).trim()));
-            }
-            let text = String::from_utf8_lossy(&out.stdout);
-            let v: Value = serde_json::from_str(text.trim())
-                .map_err(|e| format!("{host} printed no JSON ({e}): {text}"))?;
-            if let Some(f) = &mut raw {
-                use std::io::Write as _;
-                let _ = writeln!(
-                    f,
-                    "{}",
-                    serde_json::json!({"round": round, "host": host, "result": v, "sim": sim_lines})
-                );
-            }
+            let v = v?;
+            write_raw(&mut raw, round, host, &v, &sim_lines);
             let mut r = summarise(host, round, &v, &sim_lines)?;
             r.sim.cpu_pct = sim_cpu;
             r.sim.ticks_per_s = r.sim.ticks as f64 / f64::from(args.axes) / sim_wall;
@@ -148,6 +153,72 @@ fn run(args: &Args) -> Result<(), String> {
     }
     print_table(args, &runs);
     Ok(())
+}
+
+/// The command line of one host on `ports` (`AXIS`, `PATH`) for `seconds`.
+fn host_command(
+    bare: &Path,
+    servotty: &Path,
+    config: &Path,
+    host: &str,
+    ports: &[(String, String)],
+    seconds: f64,
+) -> Command {
+    let secs = format!("{seconds}");
+    if host == "bare" {
+        let mut c = Command::new(bare);
+        c.args(["--seconds", &secs]);
+        c.args(ports.iter().map(|(a, p)| format!("{a}={p}")));
+        return c;
+    }
+    let mut c = Command::new(servotty);
+    c.arg("linktest").arg("--config").arg(config);
+    c.args(["--seconds", &secs, "--json"]);
+    for (a, p) in ports {
+        c.args(["--port", &format!("{a}={p}")]);
+    }
+    // Keep servotty's state files (logs) out of the user's directories.
+    c.env("XDG_STATE_HOME", std::env::temp_dir());
+    c
+}
+
+fn spawn(mut c: Command, host: &str) -> Result<Child, String> {
+    c.stdout(Stdio::piped()).stderr(Stdio::piped()).spawn().map_err(|e| format!("{host}: {e}"))
+}
+
+/// Waits for a host and parses the JSON it printed.
+fn finish(c: Child, host: &str) -> Result<Value, String> {
+    let out = c.wait_with_output().map_err(|e| format!("{host}: {e}"))?;
+    if !out.status.success() {
+        return Err(format!("{host}: {}", String::from_utf8_lossy(&out.stderr).trim()));
+    }
+    let text = String::from_utf8_lossy(&out.stdout);
+    serde_json::from_str(text.trim()).map_err(|e| format!("{host} printed no JSON ({e}): {text}"))
+}
+
+fn write_raw(raw: &mut Option<std::fs::File>, round: u32, host: &str, v: &Value, sim: &[Value]) {
+    if let Some(f) = raw {
+        use std::io::Write as _;
+        let line = serde_json::json!({"round": round, "host": host, "result": v, "sim": sim});
+        let _ = writeln!(f, "{line}");
+    }
+}
+
+/// The bench configuration with every axis twice (`aK` then `bK`), in a temporary file.
+fn double_config(config: &Path, axes: u32) -> Result<tempfile::NamedTempFile, String> {
+    let text = std::fs::read_to_string(config).map_err(|e| format!("{}: {e}", config.display()))?;
+    let mut cfg = servotty::config::MachineConfig::from_toml_str(&text, "bench")
+        .map_err(|e| e.to_string())?;
+    let mut twins = cfg.axes.clone();
+    for (i, a) in twins.iter_mut().enumerate() {
+        a.name = format!("b{}", i + 1);
+    }
+    cfg.axes.extend(twins);
+    debug_assert_eq!(cfg.axes.len(), 2 * axes as usize);
+    let out = tempfile::Builder::new().suffix(".toml").tempfile().map_err(|e| e.to_string())?;
+    let body = toml::to_string(&cfg).map_err(|e| e.to_string())?;
+    std::fs::write(out.path(), body).map_err(|e| e.to_string())?;
+    Ok(out)
 }
 
 /// Paths of the servotty binary and the bare host, built first when run under cargo.

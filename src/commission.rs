@@ -29,6 +29,9 @@ pub enum TuneStep {
     Relay,
     /// A closed-loop step: rise, overshoot, settling; CSV and SVG saved.
     Step,
+    /// The guided pass for a freshly wired axis: direction, breakaway, identify (gains),
+    /// verification step, step report; stops at the first failure.
+    All,
 }
 
 /// What to run, with the operator's overrides.
@@ -49,6 +52,9 @@ pub struct StepRequest {
     pub friction: Option<f64>,
     /// Run the verification steps on suggested gains ([`verify`]) before offering them.
     pub verify: bool,
+    /// Identify: breakaway duties already measured (forward, reverse magnitudes, %), so the
+    /// ramps are not run again.
+    pub breakaway: Option<(f64, f64)>,
 }
 
 impl StepRequest {
@@ -62,6 +68,7 @@ impl StepRequest {
             out_dir: None,
             friction: None,
             verify: false,
+            breakaway: None,
         }
     }
 }
@@ -124,6 +131,19 @@ pub fn plan(args: &StepRequest, a: &AxisConfig) -> (ExperimentSpec, ExperimentBo
             },
             ExperimentBounds { travel: args.travel.unwrap_or(30.0), seconds: 4.0 },
         ),
+        TuneStep::All => {
+            // The largest travel of its steps and the sum of their time bounds.
+            let mut total = 0.0;
+            let mut travel: f64 = 0.0;
+            for step in PASS {
+                let (_, b) = plan(&StepRequest { step, ..args.clone() }, a);
+                total += b.seconds;
+                travel = travel.max(b.travel);
+            }
+            let (_, v) = verify_plan(args.size.unwrap_or(VERIFY_STEP));
+            let (spec, _) = plan(&StepRequest { step: TuneStep::Identify, ..args.clone() }, a);
+            (spec, ExperimentBounds { travel, seconds: total + 4.0 * v.seconds })
+        }
         TuneStep::Step => {
             let size = args.size.unwrap_or(5.0);
             (
@@ -241,9 +261,15 @@ pub async fn verify(
     size: f64,
 ) -> Result<Comparison, String> {
     let axis = h.axis(&a.name).ok_or("no such axis")?;
-    if !axis.snapshot().state.motor_on() {
-        axis.send(AxisCommand::Enable).await.map_err(|e| e.to_string())?;
-    }
+    let on = |axis: &AxisHandle| {
+        let state = axis.snapshot().state;
+        if state.motor_on() {
+            Ok(())
+        } else {
+            Err(format!("{} is {state}: the verification stops", a.name))
+        }
+    };
+    on(axis)?;
     let resolution = 1.0 / a.scale.counts_per_unit;
     let (out, bounds) = verify_plan(size);
     let (back, _) = verify_plan(-size);
@@ -263,9 +289,7 @@ pub async fn verify(
     // Back to the current gains whatever happened, then back to the start.
     axis.send(AxisCommand::SetController(a.controller.clone())).await.map_err(|e| e.to_string())?;
     let second = second?;
-    if !axis.snapshot().state.motor_on() {
-        axis.send(AxisCommand::Enable).await.map_err(|e| e.to_string())?;
-    }
+    on(axis)?;
     tokio::time::sleep(Duration::from_millis(200)).await;
     run_experiment(axis, back, bounds).await?;
     let suggested = match (&second.aborted, figures(&second)) {
@@ -306,6 +330,120 @@ async fn run_experiment(
 /// # Errors
 /// A sentence: the axis refused, the test did not finish, or the analysis failed.
 pub async fn run(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Result<Outcome, String> {
+    if args.step == TuneStep::All {
+        return pass(h, a, args).await;
+    }
+    run_one(h, a, args).await
+}
+
+/// The steps of the guided pass before the verification, in order.
+pub const PASS: [TuneStep; 4] =
+    [TuneStep::Direction, TuneStep::Breakaway, TuneStep::Identify, TuneStep::Step];
+
+/// The guided pass (module docs of [`TuneStep::All`]): each step says what it will do and
+/// what it found; the first failure ends the pass with its reason. The suggestion is verified
+/// against the current gains; when it is not worse, the step report (CSV, SVG, text summary)
+/// is made with it, and the axis goes back to its current gains (the front end applies or
+/// saves on request).
+async fn pass(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Result<Outcome, String> {
+    let u = &a.scale.unit;
+    let mut text = String::new();
+    let mut steps = Vec::new();
+    let mut breakaway = None;
+    let mut found: Option<Outcome> = None;
+    let fail = |text: String, steps: Vec<serde_json::Value>| Outcome {
+        ok: false,
+        text,
+        result: serde_json::json!({ "steps": steps }),
+        proposed: String::new(),
+        suggested: None,
+        verification: None,
+    };
+    for (n, step) in PASS.into_iter().enumerate() {
+        let mut req = StepRequest { step, ..args.clone() };
+        let name = format!("{step:?}").to_lowercase();
+        let (spec, b) = plan(&req, a);
+        if step == TuneStep::Step {
+            // The step report, with the suggested gains unless they verified worse.
+            let Some(out) = &found else { break };
+            let worse = out.verification.as_ref().is_some_and(|v| v.is_worse());
+            let c = out.suggested.clone().filter(|_| !worse).unwrap_or(a.controller.clone());
+            let axis = h.axis(&a.name).ok_or("no such axis")?;
+            axis.send(AxisCommand::SetController(c.clone())).await.map_err(|e| e.to_string())?;
+            let mut with = a.clone();
+            with.controller = c;
+            text.push_str(&format!(
+                "{}. step report with the {} gains: a closed-loop step, up to {} {u}, {} s\n",
+                n + 1,
+                if worse { "current (the suggestion verified worse)" } else { "suggested" },
+                b.travel,
+                b.seconds
+            ));
+            let r = run_one(h, &with, &req).await;
+            axis.send(AxisCommand::SetController(a.controller.clone()))
+                .await
+                .map_err(|e| e.to_string())?;
+            let r = r?;
+            text.push_str(&format!("{}\n", r.text));
+            steps.push(serde_json::json!({ "step": name, "ok": r.ok, "result": r.result }));
+            if let Some(csv) = r.result["csv"].as_str() {
+                let summary = std::path::Path::new(csv).with_extension("txt");
+                let body = format!("servotty guided pass, axis {}\n\n{text}", a.name);
+                report::write_atomically(&summary, body.as_bytes())
+                    .map_err(|e| format!("{}: {e}", summary.display()))?;
+                text.push_str(&format!("pass summary saved {}\n", summary.display()));
+            }
+            break;
+        }
+        if step == TuneStep::Identify {
+            req.breakaway = breakaway;
+            req.verify = true;
+        }
+        text.push_str(&format!(
+            "{}. {name}: {}, up to {} {u}, up to {} s\n",
+            n + 1,
+            if spec.closed_loop() { "closed loop" } else { "open loop" },
+            b.travel,
+            b.seconds
+        ));
+        let out = match run_one(h, a, &req).await {
+            Ok(out) => out,
+            Err(e) => {
+                text.push_str(&format!("stopped at {name}: {e}\n"));
+                return Ok(fail(text, steps));
+            }
+        };
+        text.push_str(&format!("{}\n", out.text));
+        steps.push(serde_json::json!({ "step": name, "ok": out.ok, "result": out.result }));
+        if !out.ok {
+            text.push_str(&format!("stopped at {name}: it did not pass\n"));
+            return Ok(fail(text, steps));
+        }
+        if step == TuneStep::Breakaway {
+            let f = out.result["forward_pct"].as_f64();
+            let r = out.result["reverse_pct"].as_f64();
+            breakaway = f.zip(r).map(|(f, r)| (round_up_half(f), round_up_half(r)));
+        }
+        if step == TuneStep::Identify {
+            found = Some(out);
+        }
+    }
+    let found = found.ok_or("the pass ended before identification")?;
+    let worse = found.verification.as_ref().is_some_and(|v| v.is_worse());
+    if worse {
+        text.push_str("stopped at the gains: the suggestion is worse than the current gains\n");
+    }
+    Ok(Outcome {
+        ok: !worse,
+        text: text.trim_end().to_owned(),
+        result: serde_json::json!({ "steps": steps }),
+        proposed: found.proposed,
+        suggested: found.suggested,
+        verification: found.verification,
+    })
+}
+
+async fn run_one(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Result<Outcome, String> {
     let (spec, bounds) = plan(args, a);
     let axis = h.axis(&a.name).ok_or("no such axis")?;
     // A test never enables an axis behind the operator's back: the front end enables it
@@ -320,7 +458,7 @@ pub async fn run(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
     let resolution = 1.0 / a.scale.counts_per_unit;
     // Identification starts with the breakaway ramps: the suggestion's minimum duty must come
     // from the measured breakaway, never from the sliding-friction offset alone.
-    let ramps = if args.step == TuneStep::Identify {
+    let ramps = if args.step == TuneStep::Identify && args.breakaway.is_none() {
         let rb = ExperimentBounds { travel: 10.0, seconds: 15.0 };
         let f = run_experiment(axis, breakaway_ramp(1, a.controller.max_duty), rb).await?;
         let r = run_experiment(axis, breakaway_ramp(-1, a.controller.max_duty), rb).await?;
@@ -348,6 +486,7 @@ pub async fn run(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
     let mut patch_text = String::new();
     let mut suggestion: Option<suggest::Suggestion> = None;
     let (ok, text, extra) = match args.step {
+        TuneStep::All => unreachable!("the pass runs its steps one at a time"),
         TuneStep::Direction => {
             let moved = r.samples.last().map_or(0.0, |s| s.position) - r.start_position;
             let counts = (moved / resolution).round();
@@ -428,10 +567,14 @@ pub async fn run(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
             });
             // Never below the measured breakaway; without it, never below the configured
             // minimum duty (which a breakaway test or a person set).
-            so.breakaway_forward_pct =
-                Some(bf.map_or(a.controller.min_duty_forward, |b| round_up_half(b.duty_pct)));
-            so.breakaway_reverse_pct =
-                Some(br.map_or(a.controller.min_duty_reverse, |b| round_up_half(b.duty_pct)));
+            so.breakaway_forward_pct = Some(args.breakaway.map_or_else(
+                || bf.map_or(a.controller.min_duty_forward, |b| round_up_half(b.duty_pct)),
+                |b| b.0,
+            ));
+            so.breakaway_reverse_pct = Some(args.breakaway.map_or_else(
+                || br.map_or(a.controller.min_duty_reverse, |b| round_up_half(b.duty_pct)),
+                |b| b.1,
+            ));
             let s = suggest::simc(&id.model, &a.controller, &so).map_err(|e| e.to_string())?;
             let text = format!("{}: {}", a.name, identify_text(&id, &s, &u));
             patch_text = s.patch.to_toml_lines();

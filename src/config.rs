@@ -333,6 +333,12 @@ pub struct PlantParams {
     pub coulomb_friction_n: f64,
     /// Static (breakaway) friction force at the carriage, N; ≥ coulomb_friction_n.
     pub static_friction_n: f64,
+    /// Mass the axis holds against gravity, kg, with a sign: positive when gravity pulls the
+    /// carriage towards the negative end (a lift whose positive direction is up), negative
+    /// when towards the positive end; 0 (the default) for a horizontal axis. Its weight is a
+    /// constant load, so breakaway and sliding friction differ by direction.
+    #[serde(default)]
+    pub gravity_load_kg: f64,
     /// Driver deadband as a fraction of full duty (0…1): below it the bridge outputs nothing.
     #[serde(default)]
     pub driver_deadband: f64,

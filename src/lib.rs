@@ -6,7 +6,8 @@
 //!
 //! - [`config`]: the TOML schema, units, loading and validation.
 //! - [`protocol`]: wire protocol v1 (COBS framing, CRC, messages) shared by host and boards.
-//! - [`transport`]: opening links to boards (serial devices, in-process simulator).
+//! - [`link`]: links to boards behind one small trait (serial devices, the in-process
+//!   simulator), typed link errors with their retry policy, and the factory.
 //! - [`sim`]: the physics simulator (DC motor, gearbox, carriage) and board emulation.
 //! - [`control`]: controllers (on-off, proportional, PID) and motion profiles.
 //! - [`engine`]: one task per axis (loop, supervision, state machine) and the machine core.
@@ -24,11 +25,13 @@ pub mod config;
 pub mod control;
 pub mod diagnosis;
 pub mod engine;
+pub mod link;
 pub mod move_list;
 pub mod process;
 pub mod protocol;
 pub mod signals;
 pub mod sim;
 pub mod spots;
-pub mod transport;
+/// The former name of [`link`].
+pub use link as transport;
 pub mod tuning;

@@ -27,10 +27,10 @@ use std::time::{Duration, Instant};
 use servotty::config::{MachineConfig, TransportConfig};
 use servotty::engine::recorder::RecorderPaths;
 use servotty::engine::{AxisCommand, AxisState, EngineThread, EventKind, Machine, MachineHandle};
+use servotty::link::{Link, OnceLink};
 use servotty::protocol::{FrameDecoder, HostMessage};
 use servotty::sim::board::{SimBoard, SimBoardHandle};
 use servotty::sim::plant::PlantFaults;
-use servotty::transport::Connector;
 use tokio::io::{AsyncRead, AsyncWrite, ReadBuf};
 
 /// Longest any healthy axis's board may go without a reply from the host (see module docs).
@@ -185,7 +185,8 @@ impl Rig {
             boards.push(board.handle());
             let g = Arc::new(ReplyGaps::default());
             gaps.push(g.clone());
-            host_ends.push(Connector::once(Box::new(host)));
+            let link: Arc<dyn Link> = Arc::new(OnceLink::new(Box::new(host)));
+            host_ends.push(link);
             board_ends.push((
                 board,
                 Watched {

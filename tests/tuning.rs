@@ -948,3 +948,34 @@ fn analyze_relay_and_identify_read_records() {
     assert!(table.contains(&format!("velocity gain {:.2}", k)), "{table}");
     assert!(table.contains("SIMC") && table.contains("kp = "), "{table}");
 }
+
+// Gravity on the demo lift Z (a 4 kg load on its lead screw, static friction raised to 90 N
+// so the screw holds it unpowered): breakaway differs by direction, and the one breakaway
+// analysis reads each within 0.1 pp of the plant's own value (src/sim/plant.rs
+// `breakaway_duties`: static friction plus or minus the weight m·g, g = 9.80665 m/s²,
+// ISO 80000-3, reflected through the screw; the driver deadband as the floor).
+#[test]
+fn gravity_makes_the_lift_break_away_differently_each_way() {
+    let mut p = mid_rail("z");
+    p.gravity_load_kg = 4.0;
+    p.static_friction_n = 90.0;
+    let (up, down) = servotty::sim::plant::breakaway_duties(&p);
+    assert!(up > down + 0.005, "up {up} down {down}");
+    for (sign, truth) in [(1.0, 100.0 * up), (-1.0, 100.0 * down)] {
+        let b = breakaway(&ramp_experiment(&p, sign), None).expect("breaks away");
+        let over = b.duty_pct.abs() - truth;
+        println!("sign {sign}: {} vs {truth}", b.duty_pct);
+        assert!((0.0..=0.1).contains(&over), "{sign}: {} vs {truth}", b.duty_pct);
+    }
+    // Unpowered, the load stays where it is; with static friction below the weight it sinks
+    // (slowly: the shorted bridge brakes the motor through its resistance).
+    let mut held = Plant::new(&p);
+    held.step(0.0, 0.5);
+    assert_eq!(held.position_mm(), p.start_mm);
+    let mut loose = p.clone();
+    loose.static_friction_n = 30.0;
+    loose.coulomb_friction_n = 20.0;
+    let mut falls = Plant::new(&loose);
+    falls.step(0.0, 0.5);
+    assert!(falls.position_mm() < p.start_mm - 0.1, "{}", falls.position_mm());
+}

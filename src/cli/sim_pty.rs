@@ -88,6 +88,60 @@ impl Interrupt {
     }
 }
 
+/// Reads fault drills ([`crate::sim::drill`]) from standard input, one per line, and answers
+/// each on standard error (standard output belongs to the device lines and the report).
+/// Ends quietly when standard input closes.
+async fn drills_from_stdin(boards: Vec<(String, SimBoardHandle)>) {
+    // A plain thread reads the (blocking) standard input and hands lines over.
+    let (tx, mut rx) = tokio::sync::mpsc::channel::<String>(16);
+    let reader = std::thread::Builder::new().name("drill-stdin".into()).spawn(move || {
+        use std::io::BufRead as _;
+        for line in std::io::stdin().lock().lines() {
+            let Ok(line) = line else { break };
+            if tx.blocking_send(line).is_err() {
+                break;
+            }
+        }
+    });
+    if reader.is_err() {
+        eprintln!("servotty: no drill reader (cannot start a thread); drills are off");
+        return;
+    }
+    while let Some(line) = rx.recv().await {
+        if line.trim().is_empty() {
+            continue;
+        }
+        if line.trim() == "help" {
+            eprintln!("{}", crate::sim::drill::HELP);
+            continue;
+        }
+        let cmd = match crate::sim::drill::parse(&line) {
+            Ok(c) => c,
+            Err(e) => {
+                eprintln!("drill refused: {e}");
+                continue;
+            }
+        };
+        let picked: Vec<&(String, SimBoardHandle)> =
+            boards.iter().filter(|(n, _)| cmd.axis.as_ref().is_none_or(|a| a == n)).collect();
+        if picked.is_empty() {
+            let names: Vec<&str> = boards.iter().map(|(n, _)| n.as_str()).collect();
+            eprintln!(
+                "drill refused: no simulated axis {:?} (served: {})",
+                cmd.axis.as_deref().unwrap_or(""),
+                names.join(", ")
+            );
+            continue;
+        }
+        for (name, board) in picked {
+            if let crate::sim::drill::Drill::JamAt(mm) = cmd.drill {
+                tokio::spawn(crate::sim::drill::watch_jam_at(board.clone(), mm));
+            }
+            eprintln!("drill: {name}: {}", crate::sim::drill::apply(board, &cmd.drill));
+        }
+    }
+}
+
 /// `servotty sim`.
 pub fn run(args: &SimArgs) -> u8 {
     if !args.pty {
@@ -167,6 +221,7 @@ pub fn run(args: &SimArgs) -> u8 {
         // Others read these lines from a pipe to find the devices.
         use std::io::Write as _;
         let _ = std::io::stdout().flush();
+        tokio::spawn(drills_from_stdin(served.clone()));
         interrupt.wait().await;
         let mut out = std::io::stdout().lock();
         for (name, board) in &served {

@@ -73,6 +73,7 @@ impl TuneArgs {
             out_dir: self.out.clone(),
             friction: self.friction,
             verify: self.apply || self.save,
+            breakaway: None,
         }
     }
 }

@@ -66,8 +66,10 @@ pub enum Action {
     ClearAllTrips,
     /// Controlled stop of the selected axis (motor stays on, holding).
     StopAxis,
-    /// Ask for a position and move the selected axis there.
+    /// Ask for a position and move the selected axis there (or `@spot`: every axis it names).
     GoTo,
+    /// Ask for a name and store the homed axes' present positions under it as a spot.
+    StoreSpot,
     /// Jog the selected axis one step.
     JogStep(Dir),
     /// Jog the selected axis continuously while the key is held (auto-repeat keeps it going).
@@ -125,6 +127,8 @@ pub enum Action {
     EntrySubmit,
     /// Prompt: abandon.
     EntryCancel,
+    /// Open the trip screen of the selected axis: its history and why it tripped.
+    TripView,
 }
 
 /// Work outside the cockpit's own state, carried out by the runner without waiting in the
@@ -160,11 +164,25 @@ pub enum Effect {
         /// The live configuration.
         config: MachineConfig,
     },
+    /// Store a spot in the configuration file (comments kept, atomic, `.bak` kept).
+    StoreSpot {
+        /// The file.
+        path: PathBuf,
+        /// The spot's name.
+        name: String,
+        /// Axis → position.
+        position: Vec<(String, f64)>,
+    },
     /// Write a new configuration file (the built-in demo has none) with the live gains.
     WriteCopy {
         /// Where; refused if it exists.
         path: PathBuf,
         /// The live configuration.
         config: MachineConfig,
+    },
+    /// Fetch an axis's full-rate history for the trip screen.
+    FetchHistory {
+        /// Axis index.
+        axis: usize,
     },
 }

@@ -45,6 +45,8 @@ pub enum Screen {
     Detail,
     /// The event log.
     Log,
+    /// One axis's trip: history and diagnosis.
+    Trip,
 }
 
 /// What a prompt is for.
@@ -69,6 +71,8 @@ pub enum Purpose {
         /// Axis index.
         axis: usize,
     },
+    /// A name for the present position (a spot).
+    StoreSpot,
 }
 
 /// A prompt being typed.
@@ -121,6 +125,13 @@ pub enum Notice {
     HomeAll {
         /// `Err(reason)` when an axis failed.
         result: Result<(), String>,
+    },
+    /// An axis's history arrived for the trip screen.
+    History {
+        /// Axis index.
+        axis: usize,
+        /// The rows, or why there are none.
+        result: Result<Vec<crate::engine::history::Sample>, String>,
     },
     /// A save finished.
     Saved {
@@ -220,6 +231,8 @@ pub struct App {
     pub recorder: Option<crate::engine::recorder::RecorderPaths>,
     /// Set when the cockpit should end.
     pub quit: bool,
+    /// The trip screen's history and diagnosis, once fetched.
+    pub trip_view: Option<crate::cockpit::trip_view::TripView>,
 }
 
 impl App {
@@ -262,6 +275,7 @@ impl App {
             suggested: None,
             suggested_worse: false,
             quit: false,
+            trip_view: None,
         }
     }
 
@@ -274,6 +288,7 @@ impl App {
             (Overlay::None, Screen::Overview) => Mode::Overview,
             (Overlay::None, Screen::Detail) => Mode::Detail,
             (Overlay::None, Screen::Log) => Mode::Log,
+            (Overlay::None, Screen::Trip) => Mode::Trip,
         }
     }
 
@@ -367,6 +382,11 @@ impl App {
                 self.param_cursor = self.param_cursor.min(self.params().len().saturating_sub(1));
             }
             Action::Back => self.screen = Screen::Overview,
+            Action::TripView => {
+                self.trip_view = None;
+                self.screen = Screen::Trip;
+                return vec![Effect::FetchHistory { axis: sel }];
+            }
             Action::ToggleLog => {
                 if self.screen == Screen::Log {
                     self.screen = self.log_return;
@@ -397,6 +417,8 @@ impl App {
             }
             Action::GoTo if n > 0 => self.prompt(Purpose::GoTo { axis: sel }, String::new()),
             Action::GoTo => {}
+            Action::StoreSpot if n > 0 => self.prompt(Purpose::StoreSpot, String::new()),
+            Action::StoreSpot => {}
             Action::Test if n > 0 => self.prompt(Purpose::Test { axis: sel }, String::new()),
             Action::Test => {}
             Action::ApplySuggested => return self.apply_suggested(),
@@ -531,6 +553,7 @@ impl App {
             Purpose::GoTo { axis } => self.submit_goto(axis, &text),
             Purpose::Gain { axis, param } => self.submit_gain(axis, param, &text),
             Purpose::Test { axis } => self.submit_test(axis, &text),
+            Purpose::StoreSpot => self.submit_store_spot(&text),
             Purpose::SaveCopy => {
                 if text.is_empty() {
                     Err("type a file name".to_owned())
@@ -555,6 +578,59 @@ impl App {
         }
     }
 
+    /// `@spot` in the go-to prompt: every axis the spot names to its position there.
+    fn submit_goto_spot(&mut self, text: &str) -> Result<Vec<Effect>, String> {
+        let targets = crate::spots::targets(&self.config, text)?;
+        let mut fx = Vec::new();
+        for t in targets {
+            let Some(i) = self.config.axes.iter().position(|a| a.name == t.axis) else { continue };
+            let words = format!("go to {} {} ({text})", plain(t.position), self.unit(i));
+            fx.push(self.command(i, AxisCommand::MoveTo(t.position), &words));
+        }
+        Ok(fx)
+    }
+
+    /// Stores the homed axes' present positions as a spot: in the live configuration at once,
+    /// and in the configuration file when there is one (off the key path).
+    fn submit_store_spot(&mut self, name: &str) -> Result<Vec<Effect>, String> {
+        if !crate::spots::valid_name(name) {
+            return Err("type a name: letters, digits, _ or -".to_owned());
+        }
+        let position: Vec<(String, f64)> = self
+            .axes
+            .iter()
+            .filter(|v| v.snap.homed)
+            .map(|v| (v.snap.axis.to_string(), v.snap.position))
+            .collect();
+        if position.is_empty() {
+            return Err("no axis is homed: its position is not trusted yet".to_owned());
+        }
+        let mut next = self.config.clone();
+        next.spots.0.insert(name.to_owned(), position.iter().cloned().collect());
+        if let Some(bad) = crate::spots::check(&next).into_iter().next() {
+            return Err(bad.message);
+        }
+        self.config = next;
+        let axes: Vec<&str> = position.iter().map(|(a, _)| a.as_str()).collect();
+        match &self.source {
+            ConfigSource::File(path) => {
+                let path = path.clone();
+                self.note(
+                    Kind::Operator,
+                    format!("storing @{name} ({}) in {}", axes.join(", "), path.display()),
+                );
+                Ok(vec![Effect::StoreSpot { path, name: name.to_owned(), position }])
+            }
+            ConfigSource::BuiltInDemo => {
+                self.note(
+                    Kind::Info,
+                    format!("@{name} kept for this session (the built-in demo has no file)"),
+                );
+                Ok(vec![])
+            }
+        }
+    }
+
     fn submit_test(&mut self, axis: usize, text: &str) -> Result<Vec<Effect>, String> {
         use crate::commission::TuneStep;
         let step = match text {
@@ -563,7 +639,8 @@ impl App {
             "i" => TuneStep::Identify,
             "r" => TuneStep::Relay,
             "s" => TuneStep::Step,
-            _ => return Err("type d, b, i, r or s".to_owned()),
+            "p" => TuneStep::All,
+            _ => return Err("type d, b, i, r, s or p (the guided pass)".to_owned()),
         };
         let a = self.config.axes.get(axis).ok_or("no such axis")?.clone();
         // Never enable an axis behind the operator's back: `e` first.
@@ -572,7 +649,7 @@ impl App {
             return Err(format!("{} is {state}: press e to enable it first", a.name));
         }
         let (_, bounds) = crate::commission::plan(&crate::commission::StepRequest::new(step), &a);
-        let verify = if matches!(step, TuneStep::Identify | TuneStep::Relay) {
+        let verify = if matches!(step, TuneStep::Identify | TuneStep::Relay | TuneStep::All) {
             format!(
                 ", then steps {} {} and back to verify the suggestion",
                 crate::commission::VERIFY_STEP,
@@ -629,6 +706,9 @@ impl App {
     }
 
     fn submit_goto(&mut self, axis: usize, text: &str) -> Result<Vec<Effect>, String> {
+        if text.starts_with('@') {
+            return self.submit_goto_spot(text);
+        }
         let v: f64 = text.parse().map_err(|_| format!("{text:?} is not a number"))?;
         let a = self.config.axes.get(axis).ok_or("no such axis")?;
         let (lo, hi) = (a.limits.soft_min, a.limits.soft_max);
@@ -663,6 +743,22 @@ impl App {
         self.now = self.now.max(now);
         match notice {
             Notice::Reply { result: Ok(()), .. } => {}
+            Notice::History { axis, result: Ok(rows) } => {
+                if let Some(cfg) = self.config.axes.get(axis) {
+                    let trip = self.axes[axis].snap.trip.clone();
+                    self.trip_view = Some(crate::cockpit::trip_view::TripView::new(
+                        axis,
+                        cfg,
+                        rows,
+                        trip.as_ref(),
+                    ));
+                }
+            }
+            Notice::History { axis, result: Err(why) } => {
+                let name = self.name(axis).to_owned();
+                self.note(Kind::Refused, format!("{name}: no history for the trip screen: {why}"));
+                self.screen = Screen::Overview;
+            }
             Notice::Reply { axis, what, result: Err(why) } => {
                 let name = self.name(axis).to_owned();
                 self.note(Kind::Refused, format!("{name}: {what} refused: {why}"));

@@ -31,6 +31,8 @@ pub enum Mode {
     ConfirmQuit,
     /// A typed value (position, gain, file name).
     Entry,
+    /// One axis's trip: its history around the trip and the diagnosis.
+    Trip,
 }
 
 impl Mode {
@@ -42,6 +44,7 @@ impl Mode {
             Self::Help => 8,
             Self::ConfirmQuit => 16,
             Self::Entry => 32,
+            Self::Trip => 64,
         }
     }
 }
@@ -52,9 +55,9 @@ pub struct Modes(u8);
 
 impl Modes {
     /// Every mode, overlays and prompts included.
-    pub const ALL: Self = Self(63);
-    /// The three screens (no overlay open).
-    pub const SCREENS: Self = Self(1 | 2 | 4);
+    pub const ALL: Self = Self(127);
+    /// The screens (no overlay open).
+    pub const SCREENS: Self = Self(1 | 2 | 4 | 64);
     /// Overview and detail: where axis and motion keys work.
     pub const AXIS: Self = Self(1 | 2);
     /// Overview only.
@@ -63,8 +66,8 @@ impl Modes {
     pub const DETAIL: Self = Self(2);
     /// Log only.
     pub const LOG: Self = Self(4);
-    /// Detail and log.
-    pub const SUBSCREENS: Self = Self(2 | 4);
+    /// Detail, log and trip.
+    pub const SUBSCREENS: Self = Self(2 | 4 | 64);
     /// Help overlay.
     pub const HELP: Self = Self(8);
     /// Quit confirmation.
@@ -223,6 +226,7 @@ pub const BINDINGS: &[Binding] = &[
     bind(&[Char('c')], "c C", Action::ClearTrip, Modes::AXIS, Group::Axis, "clear trip / all"),
     bind(&[Char('C')], "", Action::ClearAllTrips, Modes::AXIS, Group::Axis, ""),
     bind(&[Char('g')], "g", Action::GoTo, Modes::AXIS, Group::Axis, "go to a typed position"),
+    bind(&[Char('P')], "P", Action::StoreSpot, Modes::AXIS, Group::Axis, "store position as @spot"),
     bind(&[Char('s')], "s", Action::StopAxis, Modes::AXIS, Group::Axis, "stop axis, keep holding"),
     bind(
         &[Code(KeyCode::Enter)],
@@ -233,6 +237,7 @@ pub const BINDINGS: &[Binding] = &[
         "axis detail",
     ),
     bind(&[Char('l')], "l", Action::ToggleLog, Modes::SCREENS, Group::Screens, "event log"),
+    bind(&[Char('v')], "v", Action::TripView, Modes::AXIS, Group::Screens, "why it tripped"),
     bind(
         &[Code(KeyCode::Esc)],
         "Esc",

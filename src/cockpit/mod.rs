@@ -29,6 +29,7 @@ pub mod runner;
 pub mod save;
 pub mod terminal;
 pub mod theme;
+pub mod trip_view;
 pub mod ui;
 
 use std::io::IsTerminal as _;

@@ -42,6 +42,15 @@ pub trait MachinePort: Send + Sync + 'static {
     fn events(&self) -> Option<tokio::sync::broadcast::Receiver<crate::engine::Event>> {
         None
     }
+    /// An axis's full-rate history (for the trip screen).
+    fn history(
+        &self,
+        axis: usize,
+    ) -> impl Future<Output = Result<Vec<crate::engine::history::Sample>, String>> + Send + 'static
+    {
+        let _ = axis;
+        async { Err("this machine keeps no history".to_owned()) }
+    }
 }
 
 impl MachinePort for MachineHandle {
@@ -65,6 +74,23 @@ impl MachinePort for MachineHandle {
 
     fn events(&self) -> Option<tokio::sync::broadcast::Receiver<crate::engine::Event>> {
         Some(MachineHandle::events(self))
+    }
+
+    fn history(
+        &self,
+        axis: usize,
+    ) -> impl Future<Output = Result<Vec<crate::engine::history::Sample>, String>> + Send + 'static
+    {
+        let handle = self.axes().get(axis).cloned();
+        async move {
+            let Some(h) = handle else { return Err(format!("no axis number {axis}")) };
+            match h.send(AxisCommand::History).await {
+                Ok(crate::engine::axis::Reply::History(rows)) => Ok(rows),
+                Ok(_) => Err("the axis answered something else".to_owned()),
+                Err(CommandError::Refused { reason, .. }) => Err(reason.to_string()),
+                Err(CommandError::Gone(_)) => Err("the axis task has stopped".to_owned()),
+            }
+        }
     }
 
     fn home_all(&self) -> impl Future<Output = Result<(), String>> + Send + 'static {

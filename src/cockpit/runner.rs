@@ -241,6 +241,29 @@ fn execute<P: MachinePort>(
                 save::save_controllers(&path, c, &save::note("saved from the cockpit"))
             });
         }
+        Effect::StoreSpot { path, name, position } => {
+            let notices = notices.clone();
+            tokio::spawn(async move {
+                let job =
+                    move || crate::spots::store(&path, &name, &position).map(|_| (path, name));
+                let text = match tokio::task::spawn_blocking(job).await {
+                    Ok(Ok((path, name))) => format!("@{name} stored in {}", path.display()),
+                    Ok(Err(e)) => format!("storing the spot failed: {e}"),
+                    Err(e) => format!("the store task failed: {e}"),
+                };
+                let kind = crate::engine::EventKind::Notice { text };
+                let _ =
+                    notices.send(Notice::Engine(crate::engine::Event::now(None, None, kind))).await;
+            });
+        }
+        Effect::FetchHistory { axis } => {
+            let job = port.history(axis);
+            let notices = notices.clone();
+            tokio::spawn(async move {
+                let result = job.await;
+                let _ = notices.send(Notice::History { axis, result }).await;
+            });
+        }
         Effect::WriteCopy { path, config } => {
             spawn_save(notices.clone(), config, true, move |c| {
                 save::write_copy(

@@ -10,13 +10,13 @@ use std::time::Duration;
 use tokio::sync::{broadcast, mpsc, watch};
 use tokio::task::JoinSet;
 
-use crate::config::{MachineConfig, TransportConfig};
+use crate::config::MachineConfig;
 use crate::engine::axis::{AxisCommand, AxisHandle, AxisTask, AxisWiring, StopAll};
 use crate::engine::events::{Event, EventKind, EVENT_BUFFER};
 use crate::engine::recorder::RecorderPaths;
 use crate::engine::snapshot::{AxisSnapshot, AxisState};
-use crate::sim::board::{spawn_in_process, SimBoardHandle};
-use crate::transport::Connector;
+use crate::link::Link;
+use crate::sim::board::SimBoardHandle;
 
 /// Commands waiting per axis before senders wait; operator input is far slower than this.
 const COMMAND_QUEUE: usize = 32;
@@ -171,26 +171,12 @@ impl Machine {
         let mut sims = Vec::new();
         let mut links = Vec::new();
         for (i, axis) in cfg.axes.iter().enumerate() {
-            let connector = if let Some(p) = ports.iter().find(|p| p.axis == axis.name) {
-                let baud = match &axis.transport {
-                    TransportConfig::Serial { baud, .. } => *baud,
-                    TransportConfig::Sim(_) => 921_600,
-                };
-                Connector::Serial { device: p.device.clone(), baud }
-            } else {
-                match &axis.transport {
-                    TransportConfig::Serial { device, baud } => {
-                        Connector::Serial { device: device.clone(), baud: *baud }
-                    }
-                    TransportConfig::Sim(sim) => {
-                        let (stream, handle) =
-                            spawn_in_process(&sim.plant, &sim.faults, 0x5E12_0770 + i as u64);
-                        sims.push((axis.name.clone(), handle));
-                        Connector::once(Box::new(stream))
-                    }
-                }
-            };
-            links.push(connector);
+            let device = ports.iter().find(|p| p.axis == axis.name).map(|p| p.device.as_str());
+            let built = crate::link::build(axis, i, device);
+            if let Some(sim) = built.sim {
+                sims.push((axis.name.clone(), sim));
+            }
+            links.push(built.link);
         }
         let mut m = Self::start_links(cfg, links, recorder);
         m.sims = sims;
@@ -204,7 +190,7 @@ impl Machine {
     /// When `links` does not hold exactly one link per configured axis.
     pub fn start_links(
         cfg: &MachineConfig,
-        links: Vec<Connector>,
+        links: Vec<Arc<dyn Link>>,
         recorder: Option<RecorderPaths>,
     ) -> Self {
         assert_eq!(links.len(), cfg.axes.len(), "one link per configured axis");
@@ -214,7 +200,7 @@ impl Machine {
         let (events_tx, events_rx) = broadcast::channel(EVENT_BUFFER);
         let mut tasks = JoinSet::new();
         let mut handles = Vec::new();
-        for (axis, connector) in cfg.axes.iter().zip(links) {
+        for (axis, link) in cfg.axes.iter().zip(links) {
             let (cmd_tx, cmd_rx) = mpsc::channel(COMMAND_QUEUE);
             let (snap_tx, snap_rx) =
                 watch::channel(AxisSnapshot::offline(&axis.name, &axis.scale.unit));
@@ -226,7 +212,7 @@ impl Machine {
                 events: events_tx.clone(),
                 history_seconds: cfg.machine.capture_seconds,
             };
-            let run = AxisTask::new(axis.clone(), connector, wiring).run();
+            let run = AxisTask::new(axis.clone(), link, wiring).run();
             tasks.spawn(guarded(
                 axis.name.clone(),
                 run,

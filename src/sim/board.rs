@@ -15,12 +15,12 @@ use tokio::io::AsyncWriteExt;
 use tokio::time::MissedTickBehavior;
 
 use crate::config::{PlantParams, SimFaults};
+use crate::link::BoardStream;
 use crate::protocol::{
     self, features, inputs, status, BoardMessage, Capabilities, FrameDecoder, HostMessage,
     Telemetry,
 };
 use crate::sim::plant::{Plant, PlantFaults};
-use crate::transport::BoardStream;
 
 /// Tick rate the simulated board runs at before the host configures it, Hz.
 const POWER_UP_TICK_HZ: u16 = 1000;
@@ -139,6 +139,11 @@ impl SimBoardHandle {
     /// Current plant faults.
     pub fn plant_faults(&self) -> PlantFaults {
         self.lock().plant_faults.clone()
+    }
+
+    /// Current link faults (for drills that change one of them).
+    pub fn link_faults(&self) -> LinkFaults {
+        self.lock().link_faults.clone()
     }
 
     fn lock(&self) -> std::sync::MutexGuard<'_, Shared> {

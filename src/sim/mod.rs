@@ -5,5 +5,6 @@
 //! - [`board`]: a board speaking protocol v1 over any byte stream, with watchdog and faults.
 
 pub mod board;
+pub mod drill;
 pub mod plant;
 pub mod quadrature;

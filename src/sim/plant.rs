@@ -17,6 +17,11 @@
 //!   When the speed would change sign within a substep the carriage stops at the crossing,
 //!   and the stick test decides on the next substep whether it breaks away again, so the
 //!   speed never chatters through zero.
+//! - Gravity (`gravity_load_kg`, signed): a constant load force `m·g` on the carriage towards
+//!   the negative end (positive mass) or the positive end, reflected like friction. At rest it
+//!   adds to the torque static friction must hold, so breakaway differs by direction; moving,
+//!   it adds to the load. A load heavier than static friction falls when unpowered.
+//!   g = 9.80665 m/s² (standard gravity, ISO 80000-3).
 //! - Hard stops at 0 and `rail_length_mm`: inelastic; the motor then stalls against the stop
 //!   and its current settles at `V/R`.
 //! - Faults ([`PlantFaults`]): swapped motor leads, a jammed carriage (a stop in both
@@ -319,16 +324,35 @@ pub struct PlantFaults {
     pub encoder_offset_counts: i64,
 }
 
-/// Duty (0…1) at which a carriage at rest, with its current settled, starts to move:
+/// Standard gravity, m/s² (ISO 80000-3).
+pub const STANDARD_GRAVITY: f64 = 9.80665;
+
+/// Duty (0…1) at which a carriage at rest, with its current settled, starts to move forwards:
 /// the larger of the driver deadband and the duty whose stall torque `Kt V / R` equals the
-/// static friction reflected to the motor. Above 1 means full duty cannot move it.
+/// static friction (plus the weight of a load pulled towards the negative end) reflected to
+/// the motor. Above 1 means full duty cannot move it.
 ///
 /// At exactly this duty the friction still holds (breakaway needs the torque to exceed it);
 /// any duty above it moves the carriage.
 pub fn breakaway_duty(p: &PlantParams) -> f64 {
-    let torque = p.static_friction_n * transmission_m_per_rad(p);
-    let friction_duty = torque * p.resistance_ohm / (p.torque_constant * p.supply_v);
-    friction_duty.max(p.driver_deadband)
+    breakaway_duties(p).0
+}
+
+/// Breakaway duty (0…1, magnitude) forwards and in reverse ([`breakaway_duty`]); with gravity
+/// they differ. A direction in which the load falls without power has breakaway 0.
+pub fn breakaway_duties(p: &PlantParams) -> (f64, f64) {
+    let k = transmission_m_per_rad(p);
+    let to_duty = |force: f64| force * k * p.resistance_ohm / (p.torque_constant * p.supply_v);
+    let weight = p.gravity_load_kg * STANDARD_GRAVITY;
+    let dir = |load: f64| {
+        let f = p.static_friction_n + load;
+        if f < 0.0 {
+            0.0
+        } else {
+            to_duty(f).max(p.driver_deadband)
+        }
+    };
+    (dir(weight), dir(-weight))
 }
 
 /// Carriage travel per motor radian without slip, m/rad.
@@ -355,6 +379,8 @@ pub struct Plant {
     coulomb_torque: f64,
     /// Static friction at the motor shaft, N·m.
     static_torque: f64,
+    /// Gravity's load torque at the motor shaft, N·m, opposing positive rotation when positive.
+    gravity_torque: f64,
     /// Voltage the bridge applied during the last step (after the reversed-leads fault), V.
     volts: f64,
 }
@@ -374,6 +400,7 @@ impl Plant {
             mm_per_rad: 0.0,
             coulomb_torque: 0.0,
             static_torque: 0.0,
+            gravity_torque: 0.0,
             volts: 0.0,
         };
         plant.reflect(0.0);
@@ -388,6 +415,7 @@ impl Plant {
         self.mm_per_rad = k * 1000.0;
         self.coulomb_torque = p.coulomb_friction_n * k;
         self.static_torque = p.static_friction_n * k;
+        self.gravity_torque = p.gravity_load_kg * STANDARD_GRAVITY * k;
         let mut m = MotorParams::from_plant(p);
         m.inertia += p.carriage_mass_kg * k * k;
         self.motor.set_params(m);
@@ -436,7 +464,7 @@ impl Plant {
 
     fn substep(&mut self, volts: f64, hs: f64) {
         if self.direction == 0 {
-            let torque = self.params.torque_constant * self.motor.current;
+            let torque = self.params.torque_constant * self.motor.current - self.gravity_torque;
             let want = if torque > self.static_torque {
                 1
             } else if torque < -self.static_torque {
@@ -464,7 +492,7 @@ impl Plant {
 
         let dir = f64::from(self.direction);
         let (theta0, w0, x0) = (self.motor.angle, self.motor.speed, self.position_mm);
-        self.motor.step(volts, dir * self.coulomb_torque, hs);
+        self.motor.step(volts, dir * self.coulomb_torque + self.gravity_torque, hs);
         let w1 = self.motor.speed;
         if w1 * dir <= 0.0 {
             if self.static_torque > 0.0 {

@@ -532,7 +532,7 @@ pub(crate) fn padded(values: impl Iterator<Item = f64>, pad: f64) -> std::ops::R
 
 /// Temporary file in the destination's folder, synced, then renamed over the destination (the
 /// recorder's atomic write, which trip captures use too).
-fn write_atomically(path: &Path, bytes: &[u8]) -> std::io::Result<()> {
+pub fn write_atomically(path: &Path, bytes: &[u8]) -> std::io::Result<()> {
     let dir = match path.parent() {
         Some(d) if !d.as_os_str().is_empty() => d,
         _ => Path::new("."),

@@ -17,7 +17,7 @@ pub const STOP_ALL_LABEL: &str = "stop-all (not safety-rated)";
 fn items(app: &App) -> Vec<(&'static str, &'static str)> {
     let state = app.axes.get(app.selected).map(|v| v.snap.state);
     let for_axis: &[(&str, &str)] = match state {
-        Some(AxisState::Tripped) => &[("c", "clear trip")],
+        Some(AxisState::Tripped) => &[("c", "clear trip"), ("v", "why")],
         Some(AxisState::Offline) => &[("l", "log: why")],
         Some(AxisState::Disabled) => &[("e", "enable"), ("H", "home all")],
         Some(AxisState::Stopped) => &[("R", "release")],
@@ -46,6 +46,7 @@ fn items(app: &App) -> Vec<(&'static str, &'static str)> {
             out.extend_from_slice(&[("t", "test"), ("Tab", "axis"), ("?", "help")]);
         }
         Mode::Log => out.extend_from_slice(&[("Esc", "back"), ("↑↓", "scroll"), ("End", "newest")]),
+        Mode::Trip => out.extend_from_slice(&[("Esc", "back"), ("l", "log"), ("?", "help")]),
         Mode::Help => out.push(("Esc", "close")),
         Mode::ConfirmQuit => out.extend_from_slice(&[("y", "quit, motors off"), ("n", "stay")]),
         Mode::Entry => out.extend_from_slice(&[("Enter", "apply"), ("Esc", "cancel")]),
@@ -63,7 +64,9 @@ pub fn render(app: &App, area: Rect, buf: &mut Buffer) {
     ];
     let mut used: usize = spans.iter().map(Span::width).sum();
     let mut more: Vec<(&str, &str)> = Vec::new();
-    if app.stop_latched && matches!(app.mode(), Mode::Overview | Mode::Detail | Mode::Log) {
+    if app.stop_latched
+        && matches!(app.mode(), Mode::Overview | Mode::Detail | Mode::Log | Mode::Trip)
+    {
         more.push(("R", "release"));
     }
     for item in items(app) {

@@ -2,7 +2,7 @@
 //!
 //! - [`header`] and [`footer`]: the top and bottom lines, on every screen; [`status`]: the
 //!   line above the footer (selected axis, jog step and speed, unsaved gains, its trip).
-//! - [`overview`], [`detail`], [`log_panel`]: the three screens.
+//! - [`overview`], [`detail`], [`log_panel`], [`trip`]: the screens.
 //! - [`axis_panel`]: one axis's lines, shared by overview and detail.
 //! - [`overlay`]: help, quit question, prompts.
 //! - [`row`]: fitting labelled values into the width available.
@@ -16,6 +16,7 @@ pub mod overlay;
 pub mod overview;
 pub mod row;
 pub mod status;
+pub mod trip;
 
 use ratatui::buffer::Buffer;
 use ratatui::layout::{Constraint, Layout, Rect};
@@ -53,6 +54,7 @@ pub fn render(app: &App, area: Rect, buf: &mut Buffer) {
         Screen::Overview => overview::render(app, body, buf),
         Screen::Detail => detail::render(app, body, buf),
         Screen::Log => log_panel::render_screen(app, body, buf),
+        Screen::Trip => trip::render(app, body, buf),
     }
     footer::render(app, foot, buf);
     overlay::render(app, body, buf);

@@ -161,9 +161,24 @@ fn prompt(app: &App, p: &Prompt, area: Rect, buf: &mut Buffer) {
             let a = &app.config.axes[axis];
             (
                 format!("{}: go to position", a.name),
-                format!("{} … {} {}", a.limits.soft_min, a.limits.soft_max, a.scale.unit),
+                if app.config.spots.is_empty() {
+                    format!("{} … {} {}", a.limits.soft_min, a.limits.soft_max, a.scale.unit)
+                } else {
+                    let names: Vec<&str> = app.config.spots.names().collect();
+                    format!(
+                        "{} … {} {}, or @{}",
+                        a.limits.soft_min,
+                        a.limits.soft_max,
+                        a.scale.unit,
+                        names.join(" @")
+                    )
+                },
             )
         }
+        Purpose::StoreSpot => (
+            "store the present position".to_owned(),
+            "a name for it (every homed axis), then `g @name` goes there".to_owned(),
+        ),
         Purpose::Gain { axis, param } => {
             let a = &app.config.axes[axis];
             (

@@ -39,13 +39,15 @@ use crate::control::Profile;
 use crate::engine::events::{Event, EventKind};
 use crate::engine::link_meter::LinkMeter;
 use crate::engine::snapshot::{AxisSnapshot, AxisState};
-use crate::protocol::{self, BoardMessage, FrameDecoder, HostMessage, PROTOCOL_VERSION};
-use crate::transport::{BoxStream, Connector};
+use crate::link::{BoxStream, Link, LinkError, Retry};
+use crate::protocol::{
+    self, BoardMessage, DecodeError, FrameDecoder, HostMessage, PROTOCOL_VERSION,
+};
 
 /// How long the board has to answer Hello.
 const HELLO_TIMEOUT: Duration = Duration::from_millis(500);
-/// Pause between attempts to (re)open a link.
-const RECONNECT_PAUSE: Duration = Duration::from_millis(1000);
+/// Hellos sent before the board counts as not answering.
+const HELLO_TRIES: u32 = 3;
 /// After Configure the board's seq restarts at 0. Frames still queued from before it (a PTY
 /// or USB buffer holds about a second of them) are skipped until one with a seq this small
 /// arrives; a few may be lost on the way, and if more are, the relink sends Configure again.
@@ -120,13 +122,27 @@ async fn write_within(
 
 enum SessionEnd {
     Shutdown,
-    Closed(String),
+    Closed(LinkError),
+}
+
+/// The link went away: the device closed or a read failed.
+fn vanished(detail: impl Into<String>) -> SessionEnd {
+    SessionEnd::Closed(LinkError::Vanished { detail: detail.into() })
+}
+
+/// A write failed or timed out (the timeout is a lost link too).
+fn write_failed(e: &std::io::Error) -> SessionEnd {
+    SessionEnd::Closed(if e.kind() == std::io::ErrorKind::TimedOut {
+        LinkError::TimedOut { what: e.to_string() }
+    } else {
+        LinkError::Vanished { detail: format!("write failed: {e}") }
+    })
 }
 
 /// The per-axis task: the link shell around an [`AxisCore`].
 pub struct AxisTask {
     core: AxisCore,
-    connector: Arc<Connector>,
+    link: Arc<dyn Link>,
     wiring: AxisWiring,
     /// Longest a write to the board may take before the link counts as lost.
     write_timeout: Duration,
@@ -134,6 +150,9 @@ pub struct AxisTask {
     last_frame_at: Option<Instant>,
     /// Why the last attempt to open the link failed; cleared when a link comes up.
     link_error: Option<Arc<str>>,
+    /// The link failure last reported (event and log): the same failure again is not
+    /// reported again until the link has been up.
+    reported: Option<LinkError>,
     /// A Configure went out: frames still queued from before it (their seq did not restart)
     /// are stale and skipped until the first fresh one.
     awaiting_fresh: bool,
@@ -144,16 +163,17 @@ pub struct AxisTask {
 
 impl AxisTask {
     /// A task for one axis, not yet running.
-    pub fn new(cfg: AxisConfig, connector: Connector, wiring: AxisWiring) -> Self {
+    pub fn new(cfg: AxisConfig, link: Arc<dyn Link>, wiring: AxisWiring) -> Self {
         let stop = *wiring.stop_all.borrow();
         Self {
             write_timeout: Duration::from_secs_f64(cfg.limits.link_timeout_s),
             core: AxisCore::new(cfg, wiring.history_seconds, stop),
-            connector: Arc::new(connector),
+            link,
             wiring,
             published_state: AxisState::Offline,
             last_frame_at: None,
             link_error: None,
+            reported: None,
             awaiting_fresh: false,
             meter: LinkMeter::default(),
             decoder: FrameDecoder::new(),
@@ -169,52 +189,46 @@ impl AxisTask {
     pub async fn run(mut self) {
         self.publish();
         loop {
-            let Some(opened) = self.open_link().await else { return };
-            match opened {
+            let open = self.link.open();
+            let opened = tokio::select! {
+                biased;
+                _ = self.wiring.shutdown.changed() => return,
+                r = open => r,
+            };
+            let failure = match opened {
                 Ok(stream) => match self.session(stream).await {
                     SessionEnd::Shutdown => return,
-                    SessionEnd::Closed(why) => {
-                        tracing::warn!(axis = %self.name(), %why, "link closed");
-                        self.core.link_lost(&why);
-                        self.publish();
+                    SessionEnd::Closed(e) => {
+                        tracing::warn!(axis = %self.name(), why = %e, "link closed");
+                        // Also why an axis that never linked (no Hello, another protocol
+                        // version) stays offline.
+                        self.link_error = Some(Arc::from(e.to_string()));
+                        self.core.link_lost(&e.to_string());
+                        e
                     }
                 },
                 Err(e) => {
-                    tracing::warn!(axis = %self.name(), error = %e, "cannot open link");
                     self.link_error = Some(Arc::from(e.to_string()));
-                    self.core.event(EventKind::Link { up: false, detail: e.to_string() });
-                    self.publish();
-                    if !self.connector.can_reconnect() {
-                        self.idle(None).await;
-                        return;
+                    if self.reported.as_ref() != Some(&e) {
+                        tracing::warn!(axis = %self.name(), error = %e, "cannot open link");
+                        self.core.event(EventKind::Link { up: false, detail: e.to_string() });
                     }
+                    e
                 }
-            }
-            if self.idle(Some(RECONNECT_PAUSE)).await {
+            };
+            self.publish();
+            let retry = failure.retry();
+            self.reported = Some(failure);
+            let pause = match retry {
+                Retry::After(p) => Some(p),
+                Retry::Never => {
+                    tracing::warn!(axis = %self.name(), "not retrying this link");
+                    None
+                }
+            };
+            if self.idle(pause).await || pause.is_none() {
                 return;
             }
-        }
-    }
-
-    /// Opens the link on the blocking pool (opening a serial device is a blocking system call
-    /// that a confused USB device can hold up), serving nothing meanwhile but shutdown.
-    /// Returns None on shutdown.
-    async fn open_link(&mut self) -> Option<Result<BoxStream, crate::transport::TransportError>> {
-        if !self.connector.can_reconnect() {
-            // A stream handed over once: nothing to open, nothing that can block.
-            return Some(self.connector.connect());
-        }
-        let connector = Arc::clone(&self.connector);
-        let open = tokio::task::spawn_blocking(move || connector.connect());
-        tokio::select! {
-            biased;
-            _ = self.wiring.shutdown.changed() => None,
-            r = open => Some(r.unwrap_or_else(|e| {
-                Err(crate::transport::TransportError::Other {
-                    device: self.connector.describe(),
-                    message: format!("the open failed: {e}"),
-                })
-            })),
         }
     }
 
@@ -269,7 +283,7 @@ impl AxisTask {
     /// session.
     async fn carry_out(&mut self, stream: &mut BoxStream, out: Output) -> Result<(), SessionEnd> {
         let Some(msg) = out.send else { return Ok(()) };
-        self.send(stream, &msg).await.map_err(|e| SessionEnd::Closed(format!("write failed: {e}")))
+        self.send(stream, &msg).await.map_err(|e| write_failed(&e))
     }
 
     async fn send(&mut self, stream: &mut BoxStream, msg: &HostMessage) -> std::io::Result<()> {
@@ -292,9 +306,10 @@ impl AxisTask {
             return why;
         }
         self.link_error = None;
+        self.reported = None;
         self.meter.link_up();
         self.last_frame_at = Some(Instant::now());
-        self.core.link_up(self.connector.describe());
+        self.core.link_up(self.link.describe());
         self.publish();
         let link_timeout = Duration::from_secs_f64(self.core.config().limits.link_timeout_s);
         let mut rx = vec![0u8; 4096];
@@ -345,14 +360,14 @@ impl AxisTask {
                     tokio::task::yield_now().await;
                     if let Some(n) = stream.read(&mut rx).now_or_never() {
                         match n {
-                            Ok(0) => return SessionEnd::Closed("device closed".to_owned()),
+                            Ok(0) => return vanished("device closed"),
                             Ok(n) => {
                                 if let Err(end) = self.on_bytes(&mut stream, &rx[..n]).await {
                                     return end;
                                 }
                                 continue;
                             }
-                            Err(e) => return SessionEnd::Closed(e.to_string()),
+                            Err(e) => return vanished(e.to_string()),
                         }
                     }
                     if self.core.is_linked() {
@@ -366,14 +381,14 @@ impl AxisTask {
                     // The board may have reset: ask it to start streaming again.
                     next_relink = Instant::now() + RELINK_PERIOD;
                     if let Err(e) = self.send_configure(&mut stream).await {
-                        return SessionEnd::Closed(format!("write failed: {e}"));
+                        return write_failed(&e);
                     }
                 }
                 n = stream.read(&mut rx) => {
                     let n = match n {
-                        Ok(0) => return SessionEnd::Closed("device closed".to_owned()),
+                        Ok(0) => return vanished("device closed"),
                         Ok(n) => n,
-                        Err(e) => return SessionEnd::Closed(e.to_string()),
+                        Err(e) => return vanished(e.to_string()),
                     };
                     if let Err(end) = self.on_bytes(&mut stream, &rx[..n]).await {
                         return end;
@@ -418,7 +433,7 @@ impl AxisTask {
         if let Some(msg) = answer {
             // One answer per read: after a backlog only the newest state matters.
             if let Err(e) = self.send(stream, &msg).await {
-                return Err(SessionEnd::Closed(format!("write failed: {e}")));
+                return Err(write_failed(&e));
             }
             let took = Instant::now().saturating_duration_since(read_at);
             self.meter.turnaround(took);
@@ -429,9 +444,9 @@ impl AxisTask {
 
     async fn handshake(&mut self, stream: &mut BoxStream) -> Result<(), SessionEnd> {
         let mut rx = vec![0u8; 1024];
-        for _attempt in 0..3 {
+        for _attempt in 0..HELLO_TRIES {
             if let Err(e) = self.send(stream, &HostMessage::Hello).await {
-                return Err(SessionEnd::Closed(e.to_string()));
+                return Err(write_failed(&e));
             }
             let deadline = Instant::now() + HELLO_TIMEOUT;
             loop {
@@ -441,23 +456,32 @@ impl AxisTask {
                     () = tokio::time::sleep_until(deadline) => break,
                     n = stream.read(&mut rx) => {
                         let n = match n {
-                            Ok(0) => return Err(SessionEnd::Closed("device closed".to_owned())),
+                            Ok(0) => return Err(vanished("device closed")),
                             Ok(n) => n,
-                            Err(e) => return Err(SessionEnd::Closed(e.to_string())),
+                            Err(e) => return Err(vanished(e.to_string())),
                         };
                         self.decoder.extend(&rx[..n]);
                         while let Some(msg) = self.decoder.next_message::<BoardMessage>() {
-                            if let Ok(BoardMessage::Hello(caps)) = msg {
-                                if caps.protocol_version != PROTOCOL_VERSION {
-                                    return Err(SessionEnd::Closed(format!(
-                                        "board speaks protocol v{}, servotty speaks v{}",
-                                        caps.protocol_version, PROTOCOL_VERSION
-                                    )));
+                            // docs/protocol.md: the header's version is the one the board
+                            // speaks; the Hello body announces the newest it implements.
+                            let mismatch = match &msg {
+                                Err(DecodeError::Version(v)) => Some(*v),
+                                Ok(BoardMessage::Hello(caps))
+                                    if caps.protocol_version < PROTOCOL_VERSION =>
+                                {
+                                    Some(caps.protocol_version)
                                 }
+                                _ => None,
+                            };
+                            if let Some(board) = mismatch {
+                                return Err(SessionEnd::Closed(LinkError::ProtocolMismatch {
+                                    board,
+                                    host: PROTOCOL_VERSION,
+                                }));
+                            }
+                            if let Ok(BoardMessage::Hello(caps)) = msg {
                                 tracing::info!(axis = %self.name(), board = %caps.board_name, "linked");
-                                self.send_configure(stream)
-                                    .await
-                                    .map_err(|e| SessionEnd::Closed(e.to_string()))?;
+                                self.send_configure(stream).await.map_err(|e| write_failed(&e))?;
                                 return Ok(());
                             }
                         }
@@ -465,7 +489,13 @@ impl AxisTask {
                 }
             }
         }
-        Err(SessionEnd::Closed("the board did not answer Hello".to_owned()))
+        Err(SessionEnd::Closed(LinkError::TimedOut {
+            what: format!(
+                "the board did not answer Hello ({} tries, {} ms each)",
+                HELLO_TRIES,
+                HELLO_TIMEOUT.as_millis()
+            ),
+        }))
     }
 
     async fn send_configure(&mut self, stream: &mut BoxStream) -> std::io::Result<()> {

@@ -1,74 +1,28 @@
-//! Links to boards: opening serial devices and the in-process simulator, behind one byte
-//! stream type, with errors a person can act on.
-//!
-//! The axis task owns its stream; nothing else reads or writes it. A [`Connector`] knows how
-//! to (re)open the link so that a board that vanishes and comes back can be relinked.
+//! Serial links: opening a device exclusively in raw mode, and telling apart why that failed
+//! (missing, not permitted, held by another program, not a serial device).
 
-use std::sync::Mutex;
+use futures::future::BoxFuture;
 
-use tokio::io::{AsyncRead, AsyncWrite};
-
-/// Any byte stream an axis can talk protocol v1 over.
-pub trait BoardStream: AsyncRead + AsyncWrite + Send + Unpin + 'static {}
-impl<T: AsyncRead + AsyncWrite + Send + Unpin + 'static> BoardStream for T {}
-
-/// A boxed board stream.
-pub type BoxStream = Box<dyn BoardStream>;
-
-/// Why a link could not be opened.
-#[derive(Debug, thiserror::Error)]
-pub enum TransportError {
-    /// The device path does not exist (unplugged, or a different name).
-    #[error("{device}: no such device (is the board plugged in? its stable name is under /dev/serial/by-id/: `ls -l /dev/serial/by-id/`)")]
-    NotFound {
-        /// Device path.
-        device: String,
-    },
-    /// The user may not open the device.
-    #[error("{device}: permission denied (add your user to the group that owns it, usually `dialout`: `sudo usermod -aG dialout $USER`, then log in again)")]
-    PermissionDenied {
-        /// Device path.
-        device: String,
-    },
-    /// Another program holds the device.
-    #[error("{device}: in use by another program (servotty opens ports exclusively so that two programs never drive one axis)")]
-    Busy {
-        /// Device path.
-        device: String,
-    },
-    /// The path exists but is not a serial device (`/dev/null`, a file, a directory).
-    #[error("{device}: not a serial device (give the board's port, e.g. one listed by `ls -l /dev/serial/by-id/`)")]
-    NotSerial {
-        /// Device path.
-        device: String,
-    },
-    /// Any other failure to open or configure the device.
-    #[error("{device}: {message}")]
-    Other {
-        /// Device path.
-        device: String,
-        /// The system's words.
-        message: String,
-    },
-    /// The in-process simulator link was already used and cannot be reopened.
-    #[error("the simulated board's link is closed")]
-    SimClosed,
-}
+use super::tty::TtyStream;
+use super::{BoxStream, Link, LinkError};
 
 /// Opens a serial device exclusively, in raw mode.
 ///
 /// # Errors
-/// [`TransportError`] saying what to do about it.
-pub fn open_serial(device: &str, baud: u32) -> Result<BoxStream, TransportError> {
-    use tokio_serial::SerialPortBuilderExt;
+/// [`LinkError`] saying what to do about it.
+pub fn open_serial(device: &str, baud: u32) -> Result<BoxStream, LinkError> {
     refuse_if_held(device)?;
-    let stream = tokio_serial::new(device, baud)
-        .timeout(std::time::Duration::from_millis(100))
-        .open_native_async()
-        .map_err(|e| classify(device, &e))?;
+    let builder = tokio_serial::new(device, baud).timeout(std::time::Duration::from_millis(100));
+    // Opened non-blocking, exclusive, raw: the same open as tokio-serial's, wrapped in our
+    // own stream that reads only when there is something to read (see `tty`).
+    let port = mio_serial::SerialStream::open(&builder).map_err(|e| classify(device, &e))?;
     // Frames queued while nobody listened are stale (a PTY holds about a second of them);
     // the axis starts from the newest.
-    let _ = serialport::SerialPort::clear(&stream, serialport::ClearBuffer::Input);
+    let _ = serialport::SerialPort::clear(&port, serialport::ClearBuffer::Input);
+    let stream = TtyStream::new(port).map_err(|e| LinkError::Other {
+        device: device.to_owned(),
+        message: format!("cannot wait on the device: {e}"),
+    })?;
     Ok(Box::new(stream))
 }
 
@@ -80,7 +34,7 @@ pub fn open_serial(device: &str, baud: u32) -> Result<BoxStream, TransportError>
 /// platform-notes.md). So look first: a probe handle tries the same `flock` and is closed
 /// plainly, which leaves the holder's flag alone. A holder that appears between the probe and
 /// the library's open is not caught; that window is a few system calls wide.
-fn refuse_if_held(device: &str) -> Result<(), TransportError> {
+fn refuse_if_held(device: &str) -> Result<(), LinkError> {
     use std::os::unix::fs::OpenOptionsExt;
     let probe = std::fs::OpenOptions::new()
         .read(true)
@@ -94,94 +48,66 @@ fn refuse_if_held(device: &str) -> Result<(), TransportError> {
         Ok(f) => f,
         // The kernel refuses non-root openers of an exclusive terminal with EBUSY.
         Err(e) if e.raw_os_error() == Some(rustix::io::Errno::BUSY.raw_os_error()) => {
-            return Err(TransportError::Busy { device: device.to_owned() });
+            return Err(LinkError::Busy { device: device.to_owned() });
         }
         // Anything else the library reports in its own words.
         Err(_) => return Ok(()),
     };
     match rustix::fs::flock(&probe, rustix::fs::FlockOperation::NonBlockingLockExclusive) {
         Err(e) if e == rustix::io::Errno::WOULDBLOCK => {
-            Err(TransportError::Busy { device: device.to_owned() })
+            Err(LinkError::Busy { device: device.to_owned() })
         }
         // Free (the lock goes with the probe when it closes here), or flock unsupported.
         _ => Ok(()),
     }
 }
 
-fn classify(device: &str, e: &tokio_serial::Error) -> TransportError {
+fn classify(device: &str, e: &tokio_serial::Error) -> LinkError {
     let device = device.to_owned();
     let msg = e.to_string();
     // serialport reports a held lock as NoDevice; its words are the only way to tell.
     if msg.contains("exclusive") || msg.contains("busy") || msg.contains("EBUSY") {
-        return TransportError::Busy { device };
+        return LinkError::Busy { device };
     }
     // ENOTTY ("Not a typewriter"): the path is no terminal device at all.
     let not_a_tty = ["typewriter", "Inappropriate ioctl", "ENOTTY", "Is a directory"];
     if not_a_tty.iter().any(|w| msg.contains(w)) {
-        return TransportError::NotSerial { device };
+        return LinkError::NotSerial { device };
     }
     match e.kind {
-        tokio_serial::ErrorKind::NoDevice => TransportError::NotFound { device },
-        tokio_serial::ErrorKind::Io(std::io::ErrorKind::NotFound) => {
-            TransportError::NotFound { device }
-        }
+        tokio_serial::ErrorKind::NoDevice => LinkError::NotFound { device },
+        tokio_serial::ErrorKind::Io(std::io::ErrorKind::NotFound) => LinkError::NotFound { device },
         tokio_serial::ErrorKind::Io(std::io::ErrorKind::PermissionDenied) => {
-            TransportError::PermissionDenied { device }
+            LinkError::PermissionDenied { device }
         }
-        _ => TransportError::Other { device, message: msg },
+        _ => LinkError::Other { device, message: msg },
     }
 }
 
-/// How to reach one axis's board.
-pub enum Connector {
-    /// A serial device, reopened after it vanishes.
-    Serial {
-        /// Device path.
-        device: String,
-        /// Baud rate, bit/s.
-        baud: u32,
-    },
-    /// A stream handed over once (the in-process simulator, test fakes).
-    Once(Mutex<Option<BoxStream>>),
+/// A board on a serial device (USB CDC or UART), reopened after it vanishes.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct SerialLink {
+    /// Device path.
+    pub device: String,
+    /// Baud rate, bit/s.
+    pub baud: u32,
 }
 
-impl std::fmt::Debug for Connector {
-    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
-        match self {
-            Self::Serial { device, baud } => write!(f, "serial {device} at {baud} bit/s"),
-            Self::Once(_) => f.write_str("in-process link"),
-        }
-    }
-}
-
-impl Connector {
-    /// Wraps an already open stream.
-    pub fn once(stream: BoxStream) -> Self {
-        Self::Once(Mutex::new(Some(stream)))
+impl Link for SerialLink {
+    fn open(&self) -> BoxFuture<'static, Result<BoxStream, LinkError>> {
+        let (device, baud) = (self.device.clone(), self.baud);
+        Box::pin(async move {
+            // open(2) and the termios calls block, and a confused USB device can hold them
+            // up: the blocking pool does them, so the engine's thread never waits.
+            let path = device.clone();
+            tokio::task::spawn_blocking(move || open_serial(&path, baud))
+                .await
+                .unwrap_or_else(|e| Err(LinkError::Other { device, message: e.to_string() }))
+        })
     }
 
-    /// Opens (or reopens) the link.
-    ///
-    /// # Errors
-    /// [`TransportError`].
-    pub fn connect(&self) -> Result<BoxStream, TransportError> {
-        match self {
-            Self::Serial { device, baud } => open_serial(device, *baud),
-            Self::Once(slot) => {
-                let mut slot = slot.lock().unwrap_or_else(std::sync::PoisonError::into_inner);
-                slot.take().ok_or(TransportError::SimClosed)
-            }
-        }
-    }
-
-    /// Whether reconnecting after a failure can help.
-    pub fn can_reconnect(&self) -> bool {
-        matches!(self, Self::Serial { .. })
-    }
-
-    /// A short description for screens and logs.
-    pub fn describe(&self) -> String {
-        format!("{self:?}")
+    fn describe(&self) -> String {
+        format!("serial {} at {} bit/s", self.device, self.baud)
     }
 }
 
@@ -192,7 +118,7 @@ mod tests {
     #[test]
     fn missing_device_is_named() {
         let err = open_serial("/dev/servotty-no-such-port", 115_200).err().expect("fails");
-        assert!(matches!(err, TransportError::NotFound { .. }), "{err:?}");
+        assert!(matches!(err, LinkError::NotFound { .. }), "{err:?}");
         assert!(err.to_string().contains("/dev/servotty-no-such-port"));
     }
 
@@ -206,7 +132,7 @@ mod tests {
         let first = open_serial(&path, 115_200);
         assert!(first.is_ok(), "{:?}", first.err());
         let second = open_serial(&path, 115_200).err().expect("second open fails");
-        assert!(matches!(second, TransportError::Busy { .. }), "{second:?}");
+        assert!(matches!(second, LinkError::Busy { .. }), "{second:?}");
         assert!(second.to_string().contains("in use by another program"));
     }
 
@@ -249,7 +175,7 @@ mod tests {
         assert!(!before, "the first open is not exclusive");
         for _ in 0..2 {
             let second = open_serial(&path, 115_200).err().expect("second open fails");
-            assert!(matches!(second, TransportError::Busy { .. }), "{second:?}");
+            assert!(matches!(second, LinkError::Busy { .. }), "{second:?}");
         }
         assert_eq!(
             plain_reader_can_open(&path),

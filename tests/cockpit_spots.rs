@@ -1,0 +1,62 @@
+//! The cockpit's spot keys: `g` takes `@spot` as well as a number, `P` stores the homed axes'
+//! present positions under a name (in the configuration file when there is one). Plain data
+//! in, plain data out. Servotty's own feature: no outside source.
+mod cockpit_support;
+
+use cockpit_support as s;
+use servotty::cockpit::action::{Action, Effect};
+use servotty::cockpit::app::Overlay;
+use servotty::config::ConfigSource;
+use servotty::engine::AxisCommand;
+
+fn now() -> std::time::Duration {
+    s::at(200)
+}
+
+fn type_text(app: &mut servotty::cockpit::App, text: &str) {
+    for c in text.chars() {
+        app.apply(now(), Action::EntryChar(c));
+    }
+}
+
+#[test]
+fn go_to_a_spot_moves_every_axis_it_names() {
+    let mut app = s::normal();
+    app.apply(now(), Action::GoTo);
+    type_text(&mut app, "@tray2");
+    let fx = app.apply(now(), Action::EntrySubmit);
+    assert_eq!(
+        fx,
+        vec![
+            Effect::Command { axis: 0, command: AxisCommand::MoveTo(550.0) },
+            Effect::Command { axis: 1, command: AxisCommand::MoveTo(300.0) },
+        ]
+    );
+    // An unknown spot keeps the prompt open with the names there are.
+    app.apply(now(), Action::GoTo);
+    type_text(&mut app, "@nowhere");
+    assert!(app.apply(now(), Action::EntrySubmit).is_empty());
+    let Overlay::Prompt(p) = &app.overlay else { panic!("prompt closed") };
+    assert!(p.error.as_deref().is_some_and(|e| e.contains("tray1")), "{p:?}");
+}
+
+#[test]
+fn store_spot_writes_the_homed_axes_to_the_file_and_knows_it_at_once() {
+    let mut app = s::normal();
+    let path = std::path::PathBuf::from("/tmp/gantry.toml");
+    app.source = ConfigSource::File(path.clone());
+    app.apply(now(), Action::StoreSpot);
+    type_text(&mut app, "bench");
+    let fx = app.apply(now(), Action::EntrySubmit);
+    let [Effect::StoreSpot { path: p, name, position }] = fx.as_slice() else { panic!("{fx:?}") };
+    assert_eq!((p, name.as_str()), (&path, "bench"));
+    let homed: Vec<String> =
+        app.axes.iter().filter(|v| v.snap.homed).map(|v| v.snap.axis.to_string()).collect();
+    assert_eq!(position.iter().map(|(a, _)| a.clone()).collect::<Vec<_>>(), homed);
+    assert!(app.config.spots.get("bench").is_some(), "usable with g @bench at once");
+    // A bad name is refused in the prompt.
+    app.apply(now(), Action::StoreSpot);
+    type_text(&mut app, "no good");
+    assert!(app.apply(now(), Action::EntrySubmit).is_empty());
+    assert!(matches!(app.overlay, Overlay::Prompt(_)));
+}
