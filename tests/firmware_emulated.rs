@@ -132,13 +132,45 @@ fn field(line: &str, key: &str) -> Option<f64> {
     line.split_whitespace().find_map(|w| w.strip_prefix(key)?.strip_prefix('=')?.parse().ok())
 }
 
+/// Runs servotty to completion, killing it (and failing) if it outlives the deadline, so a
+/// hung host fails this test instead of stalling the whole suite.
 fn servotty(args: &[&str], state_dir: &Path) -> std::process::Output {
-    Command::new(env!("CARGO_BIN_EXE_servotty"))
-        .args(args)
-        .env("XDG_STATE_HOME", state_dir)
-        .stdin(Stdio::null())
-        .output()
-        .expect("servotty runs")
+    let mut child = KillOnDrop(
+        Command::new(env!("CARGO_BIN_EXE_servotty"))
+            .args(args)
+            .env("XDG_STATE_HOME", state_dir)
+            .stdin(Stdio::null())
+            .stdout(Stdio::piped())
+            .stderr(Stdio::piped())
+            .spawn()
+            .expect("servotty runs"),
+    );
+    let end = Instant::now() + 2 * DEADLINE;
+    // Drain both pipes on threads: a full pipe would block the child.
+    let mut out = child.0.stdout.take().expect("stdout");
+    let mut err = child.0.stderr.take().expect("stderr");
+    let out_t = std::thread::spawn(move || {
+        let mut v = Vec::new();
+        let _ = out.read_to_end(&mut v);
+        v
+    });
+    let err_t = std::thread::spawn(move || {
+        let mut v = Vec::new();
+        let _ = err.read_to_end(&mut v);
+        v
+    });
+    let status = loop {
+        if let Some(st) = child.0.try_wait().expect("wait for servotty") {
+            break st;
+        }
+        assert!(Instant::now() < end, "servotty {args:?} still running after {:?}", 2 * DEADLINE);
+        std::thread::sleep(Duration::from_millis(50));
+    };
+    std::process::Output {
+        status,
+        stdout: out_t.join().unwrap_or_default(),
+        stderr: err_t.join().unwrap_or_default(),
+    }
 }
 
 fn json(out: &std::process::Output) -> serde_json::Value {
@@ -404,9 +436,11 @@ fn firmware_on_an_emulated_board_serves_servotty() {
     let wd_us = f64::from(WATCHDOG_MS) * 1000.0;
     eprintln!("watchdog: bridge off {gap_us:.0} µs after the last byte from the host");
     // docs/protocol.md §9: off no later than watchdog_ms plus one tick after the last valid
-    // command; a killed host may leave part of a frame after it (at most 10 bytes at
-    // 500 kbit/s = 200 µs), and the rig samples the pins every 20 µs.
-    assert!(gap_us <= wd_us + tick_us + 100.0, "bridge off after {gap_us} µs");
+    // command. The rig stamps a byte when it hands it to the emulated UART, which delivers a
+    // frame's queued bytes at 500 kbit/s (up to 10 bytes = 200 µs later); a killed host may
+    // also leave part of a frame (up to 200 µs earlier); the rig samples the pins every
+    // 20 µs.
+    assert!(gap_us <= wd_us + tick_us + 400.0, "bridge off after {gap_us} µs");
     assert!(gap_us >= wd_us - 500.0, "bridge off early, after {gap_us} µs");
     if let Some(s) = lines.last_stats() {
         eprintln!("rig at the end: {s}");
