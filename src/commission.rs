@@ -325,7 +325,7 @@ async fn run_experiment(
 }
 
 /// Runs one step on axis `a` (which must be linked; it is enabled if it is not). The axis is
-/// left holding (or as the test left it); `a` is the axis's live configuration.
+/// left steady (or as the test left it); `a` is the axis's live configuration.
 ///
 /// # Errors
 /// A sentence: the axis refused, the test did not finish, or the analysis failed.
@@ -624,7 +624,8 @@ async fn run_one(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
             let csv = base.with_extension("csv");
             let svg = base.with_extension("svg");
             std::fs::create_dir_all(&dir).map_err(|e| format!("{}: {e}", dir.display()))?;
-            report::write_step_csv(&csv, &rows).map_err(|e| format!("{}: {e}", csv.display()))?;
+            report::write_step_csv(&csv, &rows, &u)
+                .map_err(|e| format!("{}: {e}", csv.display()))?;
             report::write_step_svg(&svg, &rows, &format!("{} step", a.name), &u)
                 .map_err(|e| e.to_string())?;
             let text =

@@ -30,6 +30,10 @@ pub struct MachineConfig {
     /// `[spots]`: named positions ([`crate::spots`]).
     #[serde(default, skip_serializing_if = "crate::spots::Spots::is_empty")]
     pub spots: crate::spots::Spots,
+    /// Old key names this file used (still read for one release), as warnings naming the
+    /// new keys; not part of the file.
+    #[serde(skip)]
+    pub renamed_keys: Vec<String>,
 }
 
 /// `[machine]`: machine-wide settings.
@@ -44,8 +48,8 @@ pub struct MachineSection {
     pub stop_category: u8,
     /// Homing order: groups homed in turn, the axes of a group together, e.g.
     /// `[["z"], ["x", "y"]]` (lift axis first). Axes not listed are homed last, together.
-    #[serde(default)]
-    pub homing_order: Vec<Vec<String>>,
+    #[serde(default, alias = "homing_order")]
+    pub home_sequence: Vec<Vec<String>>,
     /// Folder for trip captures (CSV); relative to the configuration file's folder. Default:
     /// `captures` in servotty's state folder (`$XDG_STATE_HOME/servotty`, else
     /// `~/.local/state/servotty`).
@@ -133,20 +137,20 @@ pub struct HomingConfig {
     #[serde(default)]
     pub direction: SearchDirection,
     /// Speed while searching for the switch or the end stop, unit/s.
-    #[serde(default = "default_search_velocity")]
-    pub search_velocity: f64,
+    #[serde(default = "default_seek_speed", alias = "search_velocity")]
+    pub seek_speed: f64,
     /// Speed of the final slow approach (switch edge, index), unit/s.
-    #[serde(default = "default_latch_velocity")]
-    pub latch_velocity: f64,
+    #[serde(default = "default_touch_speed", alias = "latch_velocity")]
+    pub touch_speed: f64,
     /// Distance to back off after the switch closes or the end stop is hit, units.
     #[serde(default = "default_backoff")]
     pub backoff: f64,
     /// Position value given to the latched point (switch edge, end stop, index), units.
-    #[serde(default)]
-    pub home_offset: f64,
+    #[serde(default, alias = "home_offset")]
+    pub mark_position: f64,
     /// Travel bound of every search, units: not found within this distance → trip.
-    #[serde(default = "default_max_travel")]
-    pub max_travel: f64,
+    #[serde(default = "default_seek_limit", alias = "max_travel")]
+    pub seek_limit: f64,
     /// Time bound of the whole homing sequence, s.
     #[serde(default = "default_homing_timeout")]
     pub timeout_s: f64,
@@ -160,27 +164,27 @@ impl Default for HomingConfig {
         Self {
             method: HomingMethod::None,
             direction: SearchDirection::Negative,
-            search_velocity: default_search_velocity(),
-            latch_velocity: default_latch_velocity(),
+            seek_speed: default_seek_speed(),
+            touch_speed: default_touch_speed(),
             backoff: default_backoff(),
-            home_offset: 0.0,
-            max_travel: default_max_travel(),
+            mark_position: 0.0,
+            seek_limit: default_seek_limit(),
             timeout_s: default_homing_timeout(),
             hard_stop_duty: default_hard_stop_duty(),
         }
     }
 }
 
-fn default_search_velocity() -> f64 {
+fn default_seek_speed() -> f64 {
     20.0
 }
-fn default_latch_velocity() -> f64 {
+fn default_touch_speed() -> f64 {
     2.0
 }
 fn default_backoff() -> f64 {
     3.0
 }
-fn default_max_travel() -> f64 {
+fn default_seek_limit() -> f64 {
     1000.0
 }
 fn default_homing_timeout() -> f64 {
@@ -765,6 +769,8 @@ impl MachineConfig {
                 message: plain_words(e.message().trim()),
             }
         })?;
+        let mut cfg = cfg;
+        cfg.renamed_keys = renamed_keys(text, source_name);
         let mut problems: Vec<Problem> = cfg
             .validate()
             .into_iter()
@@ -802,15 +808,15 @@ impl MachineConfig {
                 format!("expected 0.5…120 s, found {}", self.machine.capture_seconds),
             );
         }
-        for (g, group) in self.machine.homing_order.iter().enumerate() {
+        for (g, group) in self.machine.home_sequence.iter().enumerate() {
             for name in group {
                 let seen_before =
-                    self.machine.homing_order[..g].iter().flatten().any(|n| n == name)
+                    self.machine.home_sequence[..g].iter().flatten().any(|n| n == name)
                         || group.iter().filter(|n| *n == name).count() > 1;
                 if self.axis(name).is_none() || seen_before {
                     out_push(
                         &mut out,
-                        keys(&["machine", "homing_order"]),
+                        keys(&["machine", "home_sequence"]),
                         if seen_before {
                             format!("axis {name:?} is listed twice")
                         } else {
@@ -973,9 +979,9 @@ impl MachineConfig {
             }
             let h = &a.homing;
             for (key, v) in [
-                ("search_velocity", h.search_velocity),
-                ("latch_velocity", h.latch_velocity),
-                ("max_travel", h.max_travel),
+                ("seek_speed", h.seek_speed),
+                ("touch_speed", h.touch_speed),
+                ("seek_limit", h.seek_limit),
                 ("timeout_s", h.timeout_s),
                 ("hard_stop_duty", h.hard_stop_duty),
             ] {
@@ -994,20 +1000,20 @@ impl MachineConfig {
                     format!("expected a number ≥ 0, found {}", h.backoff),
                 );
             }
-            if !h.home_offset.is_finite() {
+            if !h.mark_position.is_finite() {
                 out_push(
                     &mut out,
-                    at(&["homing", "home_offset"]),
+                    at(&["homing", "mark_position"]),
                     "expected a finite number".to_owned(),
                 );
             }
-            if h.search_velocity > m.max_velocity || h.latch_velocity > h.search_velocity {
+            if h.seek_speed > m.max_velocity || h.touch_speed > h.seek_speed {
                 out_push(
                     &mut out,
-                    at(&["homing", "search_velocity"]),
+                    at(&["homing", "seek_speed"]),
                     format!(
-                        "expected latch_velocity ({}) ≤ search_velocity ({}) ≤ motion.max_velocity ({})",
-                        h.latch_velocity, h.search_velocity, m.max_velocity
+                        "expected touch_speed ({}) ≤ seek_speed ({}) ≤ motion.max_velocity ({})",
+                        h.touch_speed, h.seek_speed, m.max_velocity
                     ),
                 );
             }
@@ -1066,7 +1072,7 @@ impl MachineConfig {
     /// group.
     pub fn homing_groups(&self) -> Vec<Vec<String>> {
         let mut groups: Vec<Vec<String>> =
-            self.machine.homing_order.iter().filter(|g| !g.is_empty()).cloned().collect();
+            self.machine.home_sequence.iter().filter(|g| !g.is_empty()).cloned().collect();
         let rest: Vec<String> = self
             .axes
             .iter()
@@ -1129,7 +1135,7 @@ fn validate_derived(a: &AxisConfig, at: &dyn Fn(&[&str]) -> Vec<String>, out: &m
             a.homing.timeout_s,
             1.0,
             MAX_DURATION_S,
-            "a few times the slowest search over max_travel",
+            "a few times the slowest search over seek_limit",
         ),
         (
             &["jog", "deadman_s"],
@@ -1315,10 +1321,10 @@ fn validate_rail(
     let h = &a.homing;
     // Axis coordinate of the rail's lower end (mm 0), if homing pins it.
     let lower_end = match (h.method, p.home_switch_mm) {
-        (HomingMethod::Switch, Some(sw)) => Some(h.home_offset - sign * sw * k),
+        (HomingMethod::Switch, Some(sw)) => Some(h.mark_position - sign * sw * k),
         (HomingMethod::HardStop, _) => Some(match h.direction {
-            SearchDirection::Negative => h.home_offset,
-            SearchDirection::Positive => h.home_offset - sign * rail,
+            SearchDirection::Negative => h.mark_position,
+            SearchDirection::Positive => h.mark_position - sign * rail,
         }),
         _ => None,
     };
@@ -1352,8 +1358,8 @@ fn validate_rail(
                 at(&["limits", key]),
                 format!(
                     "{v} {u} is off the simulated rail, which spans {lo:.3} … {hi:.3} {u} after \
-                     homing ({} mm of rail, homing.home_offset {}); sensible: inside that range",
-                    p.rail_length_mm, h.home_offset
+                     homing ({} mm of rail, homing.mark_position {}); sensible: inside that range",
+                    p.rail_length_mm, h.mark_position
                 ),
             );
         }
@@ -1486,6 +1492,45 @@ pub(crate) fn line_col(text: &str, offset: usize) -> (usize, usize) {
 
 /// Line and column of the key at `path` (or of the nearest parent that exists); numeric
 /// parts index arrays of tables.
+/// Keys renamed to words of our own, old → new: the old names are still read for one
+/// release (serde aliases), with a warning naming the new key.
+pub const RENAMED_KEYS: [(&str, &str); 5] = [
+    ("search_velocity", "seek_speed"),
+    ("latch_velocity", "touch_speed"),
+    ("home_offset", "mark_position"),
+    ("max_travel", "seek_limit"),
+    ("homing_order", "home_sequence"),
+];
+
+/// A warning for every old key name `text` uses.
+fn renamed_keys(text: &str, source_name: &str) -> Vec<String> {
+    let Ok(doc) = text.parse::<toml::Table>() else { return Vec::new() };
+    let say = |table: &str, old: &str, new: &str| {
+        format!(
+            "{source_name}: {table}{old} is now {table}{new} (the old name is read until the next \
+             release; rename it)"
+        )
+    };
+    let mut out = Vec::new();
+    let find = |t: &toml::Table, table: &str, out: &mut Vec<String>| {
+        for (old, new) in RENAMED_KEYS {
+            if t.contains_key(old) {
+                out.push(say(table, old, new));
+            }
+        }
+    };
+    if let Some(m) = doc.get("machine").and_then(toml::Value::as_table) {
+        find(m, "machine.", &mut out);
+    }
+    for a in doc.get("axis").and_then(toml::Value::as_array).into_iter().flatten() {
+        let name = a.get("name").and_then(toml::Value::as_str).unwrap_or("?");
+        if let Some(h) = a.get("homing").and_then(toml::Value::as_table) {
+            find(h, &format!("axis {name:?} homing."), &mut out);
+        }
+    }
+    out
+}
+
 /// The parser's type names in words a person reads ("expected f64" → "expected a number").
 fn plain_words(message: &str) -> String {
     [
@@ -1555,9 +1600,9 @@ mod tests {
     #[test]
     fn unlisted_axes_home_last_together() {
         let mut cfg = MachineConfig::demo().expect("demo");
-        cfg.machine.homing_order = vec![vec!["y".into()]];
+        cfg.machine.home_sequence = vec![vec!["y".into()]];
         assert_eq!(cfg.homing_groups(), vec![vec!["y".to_owned()], vec!["x".into(), "z".into()]]);
-        cfg.machine.homing_order = vec![vec!["y".into()], vec!["y".into(), "q".into()]];
+        cfg.machine.home_sequence = vec![vec!["y".into()], vec!["y".into(), "q".into()]];
         let bad = cfg.validate();
         assert!(bad.iter().any(|b| b.message.contains("listed twice")), "{bad:?}");
         assert!(bad.iter().any(|b| b.message.contains("no axis called \"q\"")), "{bad:?}");

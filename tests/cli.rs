@@ -127,7 +127,7 @@ fn move_before_homing_is_refused_with_a_reason() {
 #[test]
 fn home_prints_json_for_every_axis() {
     let out = servotty(&["home", "--json", "--yes"]);
-    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    assert_eq!(out.status.code(), Some(0), "{}{}", text(&out.stdout), text(&out.stderr));
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).expect("json");
     assert_eq!(v["ok"], true);
     let axes = v["axes"].as_array().expect("axes");
@@ -253,4 +253,54 @@ fn linktest_json_keys_are_the_table_words() {
     let table = text(&out.stdout);
     let header = table.lines().next().expect("header");
     assert!(header.contains("bad") && header.contains("missed"), "{table}");
+}
+
+#[test]
+fn analyze_step_never_mixes_the_axes_of_a_capture() {
+    // A capture-shaped file: one time base, every axis's columns with units.
+    let mut body =
+        String::from("t_s,x_target_mm,x_position_mm,x_duty_pct,y_target_mm,y_position_mm\n");
+    for k in 0..200 {
+        let t = f64::from(k) * 0.005;
+        let target = if t >= 0.1 { 5.0 } else { 0.0 };
+        let x = if t >= 0.1 { 5.0 * (1.0 - (-(t - 0.1) / 0.05).exp()) } else { 0.0 };
+        body.push_str(&format!("{t},{target},{x},10,{},{}\n", 300.0, 240.0 + t));
+    }
+    let (_d, path) = write_tmp("capture.csv", &body);
+    let out = servotty(&["analyze", "step", &path]);
+    assert_eq!(out.status.code(), Some(2), "{}", text(&out.stdout));
+    assert!(text(&out.stderr).contains("give --axis"), "{}", text(&out.stderr));
+    let out = servotty(&["analyze", "step", &path, "--axis", "x", "--json"]);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).expect("json");
+    assert_eq!(v["step_to"], 5.0, "x's own columns, not y's: {v}");
+    // First-order response: 10–90 % rise time = τ·ln 9 (Ogata, Modern Control Engineering,
+    // 5th ed., §5-2; from memory), here τ = 0.05 s, to within one 5 ms sample.
+    let rise = v["rise_s"].as_f64().expect("rise");
+    assert!((rise - 0.05 * 9f64.ln()).abs() < 0.005, "{v}");
+    let out = servotty(&["analyze", "step", &path, "--axis", "q"]);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(text(&out.stderr).contains("no such axis"), "{}", text(&out.stderr));
+}
+
+#[test]
+fn old_homing_key_names_still_read_with_a_warning_naming_the_new_key() {
+    let body = demo_text().replacen("seek_speed", "search_velocity", 1).replacen(
+        "home_sequence",
+        "homing_order",
+        1,
+    );
+    assert!(body.contains("search_velocity") && body.contains("homing_order"));
+    let (_d, path) = write_tmp("old-names.toml", &body);
+    let out = servotty(&["check", &path]);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let err = text(&out.stderr);
+    assert!(
+        err.contains("homing.search_velocity is now") && err.contains("homing.seek_speed"),
+        "{err}"
+    );
+    assert!(err.contains("machine.homing_order is now machine.home_sequence"), "{err}");
+    // The new names give no warning.
+    let out = servotty(&["check", &repo("configs/demo-greenhouse.toml")]);
+    assert!(!text(&out.stderr).contains("warning"), "{}", text(&out.stderr));
 }

@@ -70,7 +70,7 @@ impl MachinePort for FakeMachine {
         let answer = match (&command, s.latched) {
             (AxisCommand::Enable, true) => Err("stop-all is latched: release it first".to_owned()),
             (AxisCommand::Enable, false) => {
-                s.snaps[axis].state = AxisState::Holding;
+                s.snaps[axis].state = AxisState::Steady;
                 Ok(())
             }
             (AxisCommand::Disable, _) => {
@@ -171,7 +171,7 @@ async fn keys_reach_the_machine_and_answers_reach_the_log() {
         texts.iter().any(|t| t == "y: enable refused: stop-all is latched: release it first"),
         "{texts:?}"
     );
-    assert!(texts.iter().any(|t| t == "x: disabled → holding"), "{texts:?}");
+    assert!(texts.iter().any(|t| t == "x: disabled → steady"), "{texts:?}");
     assert!(texts.iter().any(|t| t.starts_with("STOP-ALL latched")), "{texts:?}");
 }
 

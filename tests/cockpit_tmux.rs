@@ -136,8 +136,8 @@ fn operate_the_demo_under_tmux() {
     t.wait_for("all homed", |s| s.contains("homed 3/3"));
     t.keys(&["g", "1", "0", "0", "Enter"]);
     t.wait_for("x moving", |s| s.contains("moving"));
-    t.wait_for("x holding at 100", |s| {
-        s.lines().any(|l| l.contains("holding") && l.contains("100.00 mm"))
+    t.wait_for("x steady at 100", |s| {
+        s.lines().any(|l| l.contains("steady") && l.contains("100.00 mm"))
     });
     t.keys(&["Right"]);
     t.wait_for("a jog step", |s| s.contains("jog step"));

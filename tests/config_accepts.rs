@@ -52,11 +52,11 @@ fn setters() -> Vec<(&'static str, Setter)> {
         ("motion.max_acceleration", |a, v| a.motion.max_acceleration = v),
         ("motion.in_position_band", |a, v| a.motion.in_position_band = v),
         ("motion.in_position_dwell_s", |a, v| a.motion.in_position_dwell_s = v),
-        ("homing.search_velocity", |a, v| a.homing.search_velocity = v),
-        ("homing.latch_velocity", |a, v| a.homing.latch_velocity = v),
+        ("homing.seek_speed", |a, v| a.homing.seek_speed = v),
+        ("homing.touch_speed", |a, v| a.homing.touch_speed = v),
         ("homing.backoff", |a, v| a.homing.backoff = v),
-        ("homing.home_offset", |a, v| a.homing.home_offset = v),
-        ("homing.max_travel", |a, v| a.homing.max_travel = v),
+        ("homing.mark_position", |a, v| a.homing.mark_position = v),
+        ("homing.seek_limit", |a, v| a.homing.seek_limit = v),
         ("homing.timeout_s", |a, v| a.homing.timeout_s = v),
         ("jog.unhomed_speed", |a, v| a.jog.unhomed_speed = v),
         ("jog.first_step", |a, v| a.jog.first_step = v),
@@ -121,7 +121,7 @@ fn current(a: &AxisConfig, key: &str) -> f64 {
 fn one_axis_demo() -> MachineConfig {
     let mut cfg = MachineConfig::demo().expect("demo");
     cfg.axes.truncate(1);
-    cfg.machine.homing_order.clear();
+    cfg.machine.home_sequence.clear();
     // Named positions name the other axes too.
     cfg.spots = servotty::spots::Spots::default();
     cfg

@@ -188,7 +188,7 @@ async fn run(v: Variant, speed: f64, fault: Fault) -> Outcome {
             let _ = std::fs::create_dir_all(&keep);
             let _ = std::fs::write(std::path::Path::new(&keep).join(name), &text);
         }
-        CaptureFile::parse(&text).expect("parses").record(None).expect("x")
+        CaptureFile::read(std::path::Path::new(&path)).expect("parses").record(None).expect("x")
     } else {
         // No trip: what the operator would ask of the history on screen.
         let Ok(Reply::History(rows)) = x.send(AxisCommand::History).await else {

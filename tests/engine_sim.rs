@@ -205,7 +205,7 @@ async fn moves_outside_soft_limits_are_refused_not_clipped() {
     x.send(AxisCommand::Enable).await.expect("enable");
     let err = x.send(AxisCommand::MoveTo(1300.0)).await.expect_err("refused");
     assert!(err.to_string().contains("soft limits"), "{err}");
-    assert_eq!(x.snapshot().state, AxisState::Holding);
+    assert_eq!(x.snapshot().state, AxisState::Steady);
     m.shutdown().await;
 }
 

@@ -241,7 +241,7 @@ impl Rig {
             let mut rx = a.watch();
             let reached = tokio::time::timeout(
                 Duration::from_secs_f64(board_s + 20.0),
-                rx.wait_for(|s| s.state == AxisState::Holding && s.board_time_s >= board_s),
+                rx.wait_for(|s| s.state == AxisState::Steady && s.board_time_s >= board_s),
             )
             .await;
             assert!(reached.is_ok(), "{} held for {board_s} s: {:#?}", a.name(), a.snapshot());
@@ -349,7 +349,7 @@ async fn trip_capture() {
     assert_no_long_silence(&silences, "a trip capture was built and written");
     for (i, a) in h.axes().iter().enumerate() {
         if i != tripped {
-            assert_eq!(a.snapshot().state, AxisState::Holding, "{} kept holding", a.name());
+            assert_eq!(a.snapshot().state, AxisState::Steady, "{} kept holding", a.name());
         }
     }
     let report = rig.engine.shutdown();
@@ -400,7 +400,7 @@ async fn analysis() {
     eprintln!("{fits} identifications in 1 s");
     assert_no_long_silence(&silences, "identification ran");
     for a in h.axes() {
-        assert_eq!(a.snapshot().state, AxisState::Holding, "{} kept holding", a.name());
+        assert_eq!(a.snapshot().state, AxisState::Steady, "{} kept holding", a.name());
     }
     let report = rig.engine.shutdown();
     assert!(report.is_clean(), "{report}");

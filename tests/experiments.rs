@@ -56,7 +56,7 @@ async fn duty_steps_record_every_frame_and_end_holding() {
     let peak = r.samples.iter().map(|s| s.position).fold(f64::MIN, f64::max);
     assert!(peak > r.start_position + 5.0, "moved forward: {peak}");
     let x = h.axis("x").expect("x").snapshot();
-    assert_eq!(x.state, AxisState::Holding);
+    assert_eq!(x.state, AxisState::Steady);
     m.shutdown().await;
 }
 
@@ -67,7 +67,7 @@ async fn travel_bound_cuts_an_open_loop_test_short() {
     let r = run(&h, spec, ExperimentBounds { travel: 20.0, seconds: 5.0 }).await;
     assert!(r.aborted.as_deref().is_some_and(|a| a.contains("travel bound")), "{:?}", r.aborted);
     let s = h.axis("x").expect("x").snapshot();
-    assert_eq!(s.state, AxisState::Holding);
+    assert_eq!(s.state, AxisState::Steady);
     // It braked under control after the bound: the overrun is a braking distance, not more.
     assert!((s.position - r.start_position).abs() < 20.0 + 15.0, "{s:#?}");
     m.shutdown().await;
@@ -192,6 +192,6 @@ async fn the_guided_pass_runs_every_step_and_writes_a_report() {
     let exts: Vec<&str> = names.iter().filter_map(|n| n.rsplit('.').next()).collect();
     assert_eq!(exts, ["csv", "svg", "txt"], "{names:?}");
     let x = h.axis("x").expect("x");
-    assert_eq!(x.snapshot().state, AxisState::Holding);
+    assert_eq!(x.snapshot().state, AxisState::Steady);
     m.shutdown().await;
 }

@@ -62,10 +62,10 @@ async fn switch_homing_latches_within_one_count_of_the_switch() {
     let cpu = p.counts_per_mm();
     let switch_count = ((p.home_switch_mm.expect("switch") - p.start_mm) * cpu).round() as i64;
     let at_switch = position_of_count(&m, &h, "x", cpu, switch_count);
-    let home_offset = cfg.axis("x").expect("x").homing.home_offset;
-    assert!((at_switch - home_offset).abs() <= 1.0 / cpu, "switch at {at_switch} mm");
+    let mark_position = cfg.axis("x").expect("x").homing.mark_position;
+    assert!((at_switch - mark_position).abs() <= 1.0 / cpu, "switch at {at_switch} mm");
     let s = h.axis("x").expect("x").snapshot();
-    assert!(s.homed && s.state == AxisState::Holding, "{s:#?}");
+    assert!(s.homed && s.state == AxisState::Steady, "{s:#?}");
     m.shutdown().await;
 }
 
@@ -79,9 +79,9 @@ async fn hard_stop_homing_latches_within_one_count_of_the_stop() {
     let stop_count = ((p.rail_length_mm - p.start_mm) * cpu).round() as i64;
     let at_stop = position_of_count(&m, &h, "z", cpu, stop_count);
     let z = cfg.axis("z").expect("z");
-    assert!((at_stop - z.homing.home_offset).abs() <= 1.0 / cpu, "stop at {at_stop} mm");
+    assert!((at_stop - z.homing.mark_position).abs() <= 1.0 / cpu, "stop at {at_stop} mm");
     // It backed off and holds there, clear of the stop.
-    let held = z.homing.home_offset - z.homing.backoff;
+    let held = z.homing.mark_position - z.homing.backoff;
     wait_for(&h, "z", Duration::from_secs(1), |s| (s.position - held).abs() < 0.05).await;
     assert!(!m.sim("z").expect("sim").view().position_mm.ge(&p.rail_length_mm));
     m.shutdown().await;
@@ -91,7 +91,7 @@ async fn hard_stop_homing_latches_within_one_count_of_the_stop() {
 async fn index_homing_latches_within_one_count_of_the_index() {
     let mut cfg = demo();
     cfg.axes[0].homing.method = HomingMethod::Index;
-    cfg.axes[0].homing.home_offset = 10.0;
+    cfg.axes[0].homing.mark_position = 10.0;
     let (m, h) = linked(&cfg).await;
     h.home(Some(&["x".to_owned()])).await.expect("homes");
     let p = sim_plant(&cfg, "x");
@@ -130,7 +130,7 @@ async fn homing_order_is_kept() {
 async fn missing_switch_trips_at_the_travel_bound() {
     let mut cfg = demo();
     cfg.axes[0].homing.direction = SearchDirection::Positive;
-    cfg.axes[0].homing.max_travel = 50.0;
+    cfg.axes[0].homing.seek_limit = 50.0;
     let (m, h) = linked(&cfg).await;
     let err = h.home(Some(&["x".to_owned()])).await.expect_err("fails");
     assert!(err.reason.contains("switch not found within 50 mm"), "{err}");
@@ -191,7 +191,7 @@ async fn continuous_jog_stops_within_deadman_plus_braking_distance() {
     let sim = m.sim("x").expect("sim");
     let p_last = sim.view().position_mm;
     let v = sim.view().velocity_mm_s;
-    wait_for(&h, "x", Duration::from_secs(2), |s| s.state == AxisState::Holding).await;
+    wait_for(&h, "x", Duration::from_secs(2), |s| s.state == AxisState::Steady).await;
     tokio::time::sleep(Duration::from_millis(200)).await;
     let overrun = sim.view().position_mm - p_last;
     // The last repeat was up to one repeat interval ago; then the deadman, then braking over
@@ -225,9 +225,9 @@ async fn jog_toward_a_soft_limit_stops_inside_it() {
     h.home(Some(&["x".to_owned()])).await.expect("homes");
     let x = h.axis("x").expect("x");
     x.send(AxisCommand::MoveTo(1150.0)).await.expect("move");
-    wait_for(&h, "x", Duration::from_secs(15), |s| s.state == AxisState::Holding).await;
+    wait_for(&h, "x", Duration::from_secs(15), |s| s.state == AxisState::Steady).await;
     hold_key(&h, 1, 120.0, Duration::from_secs(3), 30.0).await;
-    let s = wait_for(&h, "x", Duration::from_secs(2), |s| s.state == AxisState::Holding).await;
+    let s = wait_for(&h, "x", Duration::from_secs(2), |s| s.state == AxisState::Steady).await;
     let soft_max = cfg.axis("x").expect("x").limits.soft_max;
     assert!(s.trip.is_none(), "{s:#?}");
     assert!(s.position <= soft_max + 0.1 && s.position > soft_max - 1.0, "{s:#?}");
@@ -266,33 +266,47 @@ async fn following_error_trip_writes_a_parseable_capture() {
         }
     };
     m.shutdown().await;
-    let text = std::fs::read_to_string(&path).expect("capture readable");
-    let (meta, body): (Vec<&str>, Vec<&str>) = text.lines().partition(|l| l.starts_with('#'));
-    assert!(meta.iter().any(|l| l.contains("trip cause: following error")), "{meta:?}");
-    assert!(meta.iter().any(|l| l.starts_with("# software: servotty")), "{meta:?}");
-    assert!(
-        body[0].starts_with("axis,t,target,position,following_error,duty,velocity,state,"),
-        "{}",
-        body[0]
-    );
-    assert_eq!(body[0], servotty::engine::recorder::CAPTURE_COLUMNS.join(","));
-    let x_rows: Vec<Vec<&str>> = body[1..]
-        .iter()
-        .map(|l| l.split(',').collect::<Vec<_>>())
-        .filter(|r| r[0] == "x")
-        .collect();
-    assert!(x_rows.len() > 1000, "{} rows", x_rows.len());
-    for r in &x_rows {
-        assert_eq!(r.len(), servotty::engine::recorder::CAPTURE_COLUMNS.len());
-        for v in &r[1..7] {
-            v.parse::<f64>().expect("numeric column");
+    // One header row, then one row per instant with every axis's columns, read back with a
+    // general CSV reader (as pandas or a spreadsheet would: no options, no comment lines).
+    let path = std::path::PathBuf::from(path);
+    let mut rdr = csv::Reader::from_path(&path).expect("capture readable");
+    let header: Vec<String> = rdr.headers().expect("header").iter().map(str::to_owned).collect();
+    assert_eq!(header[0], "t_s");
+    for axis in ["x", "y", "z"] {
+        for col in ["position_mm", "target_mm", "duty_pct", "following_error_mm", "state"] {
+            assert!(header.contains(&format!("{axis}_{col}")), "{axis}_{col} in {header:?}");
         }
     }
-    let last = x_rows.last().expect("rows");
-    assert_eq!(last[7], "tripped");
-    let tripped_at = x_rows.iter().position(|r| r[7] == "tripped").expect("trip row");
-    let before = &x_rows[tripped_at - 1];
-    assert_eq!(before[7], "moving", "the row before the trip shows the move");
+    let col = |name: &str| header.iter().position(|h| h == name).expect(name);
+    let (t, pos, state) = (col("t_s"), col("x_position_mm"), col("x_state"));
+    let rows: Vec<csv::StringRecord> = rdr.records().map(|r| r.expect("row")).collect();
+    assert!(rows.len() > 1000, "{} rows", rows.len());
+    for r in &rows {
+        assert_eq!(r.len(), header.len());
+        r[t].parse::<f64>().expect("time");
+        r[pos].parse::<f64>().expect("position");
+    }
+    let last = rows.last().expect("rows");
+    assert_eq!(&last[state], "tripped");
+    assert!(last[t].parse::<f64>().expect("t") >= 0.0, "the time base is the trip");
+    let tripped_at = rows.iter().position(|r| &r[state] == "tripped").expect("trip row");
+    assert_eq!(&rows[tripped_at - 1][state], "moving", "the row before the trip shows the move");
+    // The metadata is beside it, as JSON.
+    let meta: serde_json::Value = serde_json::from_str(
+        &std::fs::read_to_string(path.with_extension("json")).expect("sidecar"),
+    )
+    .expect("sidecar is JSON");
+    assert_eq!(meta["trip"]["cause"], "following error", "{meta}");
+    assert!(meta["software"].as_str().expect("software").starts_with("servotty"), "{meta}");
+    // Readable by everyone: records are for sharing.
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::PermissionsExt as _;
+        for p in [path.clone(), path.with_extension("json")] {
+            let mode = std::fs::metadata(&p).expect("stat").permissions().mode() & 0o777;
+            assert_eq!(mode, 0o644, "{}", p.display());
+        }
+    }
     // The event log has the trip as a JSON line.
     let log = std::fs::read_to_string(&paths.event_log).expect("event log");
     assert!(log.lines().any(|l| l.contains("\"event\":\"trip\"")), "{log}");
@@ -313,7 +327,7 @@ async fn an_axis_homed_outside_its_soft_limits_can_come_back_in() {
     tokio::time::sleep(Duration::from_millis(300)).await;
     let x = h.axis("x").expect("x");
     let s = x.snapshot();
-    assert_eq!(s.state, AxisState::Holding, "{s:#?}");
+    assert_eq!(s.state, AxisState::Steady, "{s:#?}");
     assert!(s.position < 10.0);
     let err = x.send(AxisCommand::JogStep { distance: -1.0, speed: 10.0 }).await.expect_err("out");
     assert!(err.to_string().contains("soft limit"), "{err}");
@@ -340,7 +354,7 @@ async fn quick_jog_steps_never_queue_behind_a_moving_step() {
         tokio::time::sleep(Duration::from_millis(20)).await;
     }
     let at_last_key = x.snapshot();
-    let s = wait_for(&h, "x", Duration::from_secs(5), |s| s.state == AxisState::Holding).await;
+    let s = wait_for(&h, "x", Duration::from_secs(5), |s| s.state == AxisState::Steady).await;
     // Braking from the jog speed: v²/(2a) (common practice, no source).
     let motion = &cfg.axis("x").expect("x").motion;
     let braking = 120.0_f64.powi(2) / (2.0 * motion.max_acceleration);

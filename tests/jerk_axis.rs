@@ -34,7 +34,7 @@ async fn move_y(shape: ProfileShape) -> Ringing {
     let mut rx = y.watch();
     tokio::time::timeout(
         Duration::from_secs(10),
-        rx.wait_for(|s| s.moves_done > done && s.state == AxisState::Holding),
+        rx.wait_for(|s| s.moves_done > done && s.state == AxisState::Steady),
     )
     .await
     .expect("move finishes")

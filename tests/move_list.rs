@@ -139,6 +139,7 @@ async fn a_coordinated_move_arrives_together_within_one_tick() {
     assert!(out.ok, "{out:#?}");
     let tick = Duration::from_millis(1); // the demo boards run at 1 kHz
     let gap = if at[0] > at[1] { at[0] - at[1] } else { at[1] - at[0] };
+    println!("arrivals {gap:?} apart, planned {:.3} s", out.planned_s);
     assert!(gap <= tick, "arrivals {gap:?} apart");
     for a in &out.axes {
         assert!((a.final_position - a.target).abs() <= 0.1, "{a:#?}");
@@ -240,7 +241,7 @@ async fn pause_waits_at_the_end_of_a_step_and_abort_stops_at_once() {
     let operator = async {
         // Once paused, the first step has finished: x stands at tray 1.
         let mut x = h.axis("x").expect("x").watch();
-        let _ = x.wait_for(|s| s.moves_done > 0 && s.state == AxisState::Holding).await;
+        let _ = x.wait_for(|s| s.moves_done > 0 && s.state == AxisState::Steady).await;
         tokio::time::sleep(Duration::from_millis(500)).await;
         let _ = tx.send(ListControl::Run);
         // Abort during the long move to tray 3.

@@ -55,7 +55,7 @@ async fn engine_moves_a_simulated_board_over_a_pty() {
         .expect("settles in time")
         .expect("snapshot");
     let s = x.snapshot();
-    assert_eq!(s.state, AxisState::Holding, "{s:#?}");
+    assert_eq!(s.state, AxisState::Steady, "{s:#?}");
     assert!((s.position - 60.0).abs() <= cfg.axes[0].motion.in_position_band, "{s:#?}");
     assert!(s.link.frames > 100 && s.link.bad_frames == 0, "{:?}", s.link);
     assert!(view.view().motor_on);

@@ -822,7 +822,12 @@ fn step_record_round_trips_through_files_and_the_binary() {
     let dir = tempfile::tempdir().expect("temp dir");
     let csv = dir.path().join("x-step.csv");
     let svg = dir.path().join("x-step.svg");
-    write_step_csv(&csv, &rows).expect("CSV");
+    write_step_csv(&csv, &rows, "mm").expect("CSV");
+    // One header row with units, read back by a general CSV reader.
+    let mut rdr = csv::Reader::from_path(&csv).expect("opens");
+    let header: Vec<String> = rdr.headers().expect("header").iter().map(str::to_owned).collect();
+    assert_eq!(header, ["t_s", "target_mm", "position_mm", "duty_pct"]);
+    assert_eq!(rdr.records().count(), rows.len());
     write_step_svg(&svg, &rows, "x: 20 mm step", "mm").expect("SVG");
     assert!(std::fs::read_to_string(&svg).expect("svg").contains("</svg>"));
     let here = summarize_step(&rows, 0.02).expect("summary");
@@ -855,7 +860,7 @@ fn analyze_step_handles_ramps_unsettled_and_noisy_records() {
     let dir = tempfile::tempdir().expect("temp dir");
     let write = |name: &str, rows: &[StepRow]| -> String {
         let p = dir.path().join(name);
-        write_step_csv(&p, rows).expect("writes");
+        write_step_csv(&p, rows, "mm").expect("writes");
         p.to_str().expect("utf-8").to_owned()
     };
     // A 2,001-row ramp from 0 to 20 mm.

@@ -110,9 +110,13 @@ pub struct TripArgs {
 /// `servotty analyze step`.
 #[derive(Debug, Args)]
 pub struct StepArgs {
-    /// CSV file with a header naming at least t, target and position (more columns allowed,
-    /// any order; lines starting with # are skipped).
+    /// CSV file with a header naming at least t, target and position, with or without units
+    /// (t_s, target_mm, position_mm; more columns allowed, any order; # lines skipped). A
+    /// capture of several axes (x_position_mm, y_position_mm…) needs --axis.
     pub file: PathBuf,
+    /// The axis to analyse in a file holding several.
+    #[arg(long, value_name = "AXIS")]
+    pub axis: Option<String>,
     /// Settling band, % of the commanded step.
     #[arg(long, default_value_t = 2.0, value_name = "PCT")]
     pub band: f64,
@@ -233,7 +237,8 @@ fn trip(a: &TripArgs) -> Result<String, String> {
     let name = a.file.display();
     let text = read_text(&a.file)?;
     let cap = crate::diagnosis::CaptureFile::parse(&text)
-        .map_err(|e| format!("{name}:{}: {}", e.line, e.message))?;
+        .map_err(|e| format!("{name}:{}: {}", e.line, e.message))?
+        .with_sidecar(&a.file)?;
     let rec = cap.record(a.axis.as_deref()).map_err(|e| format!("{name}: {e}"))?;
     let d = crate::diagnosis::diagnose(&rec);
     let mut out = if a.json {
@@ -259,6 +264,7 @@ fn step(a: &StepArgs) -> Result<String, String> {
     }
     let name = a.file.display();
     let text = read_text(&a.file)?;
+    let text = step_columns(&text, a.axis.as_deref()).map_err(|e| format!("{name}: {e}"))?;
     let rows = parse_step_csv(&text).map_err(|e| format!("{name}:{}: {}", e.line, e.message))?;
     let summary = summarize_step(&rows, a.band / 100.0).map_err(|e| format!("{name}: {e}"))?;
     Ok(if a.json {
@@ -266,6 +272,71 @@ fn step(a: &StepArgs) -> Result<String, String> {
     } else {
         format!("{name}\n{}", summary.to_text(""))
     })
+}
+
+/// The file's table as the step reader wants it: `t,target,position[,duty]` of one axis.
+///
+/// Column names may carry units (`t_s`, `position_mm`, `duty_pct`); a file with several
+/// axes' columns (`x_position_mm`, `y_position_mm`) is refused unless `axis` picks one, so
+/// axes are never mixed. A file already in the plain form is returned as it is, so the
+/// reader's own messages (with their line numbers) still apply.
+fn step_columns(text: &str, axis: Option<&str>) -> Result<String, String> {
+    let mut rdr = csv::ReaderBuilder::new()
+        .comment(Some(b'#'))
+        .flexible(true)
+        .trim(csv::Trim::All)
+        .from_reader(text.as_bytes());
+    let Ok(header) = rdr.headers().cloned() else { return Ok(text.to_owned()) };
+    let names: Vec<String> = header.iter().map(str::to_ascii_lowercase).collect();
+    let axes: Vec<&str> = names
+        .iter()
+        .filter_map(|n| n.split_once("_position").map(|(a, _)| a))
+        .filter(|a| !a.is_empty())
+        .collect();
+    let prefix = match (axis, axes.len()) {
+        (Some(a), _) if axes.contains(&a) => format!("{a}_"),
+        (Some(a), 0) => return Err(format!("--axis {a}: the file holds one record, no axes")),
+        (Some(a), _) => {
+            return Err(format!("--axis {a}: no such axis (the file has {})", axes.join(", ")))
+        }
+        (None, 0) => String::new(),
+        (None, 1) => format!("{}_", axes[0]),
+        (None, _) => {
+            return Err(format!(
+                "the file holds several axes ({}): give --axis to pick one",
+                axes.join(", ")
+            ))
+        }
+    };
+    let base = |n: &str| -> Option<&'static str> {
+        let n =
+            n.strip_prefix(prefix.as_str()).or_else(|| (n == "t_s" || n == "t").then_some(n))?;
+        ["t", "target", "position", "duty"].into_iter().find(|w| {
+            n == *w
+                || n.strip_prefix(w).is_some_and(|r| {
+                    r.starts_with('_') && !r.starts_with("_v") && !r.starts_with("_a")
+                })
+        })
+    };
+    let pick: Vec<(usize, &str)> =
+        names.iter().enumerate().filter_map(|(i, n)| base(n).map(|b| (i, b))).collect();
+    if prefix.is_empty() && pick.iter().all(|(i, b)| names[*i] == *b) {
+        return Ok(text.to_owned());
+    }
+    let mut w = csv::Writer::from_writer(Vec::new());
+    let err = |e: csv::Error| e.to_string();
+    w.write_record(pick.iter().map(|(_, b)| *b)).map_err(err)?;
+    let pos = pick.iter().find(|(_, b)| *b == "position").map(|(i, _)| *i);
+    for rec in rdr.records() {
+        let rec = rec.map_err(err)?;
+        // An axis with a shorter history has empty fields in a capture's oldest rows.
+        if pos.is_some_and(|i| rec.get(i).is_none_or(str::is_empty)) {
+            continue;
+        }
+        w.write_record(pick.iter().map(|(i, _)| rec.get(*i).unwrap_or(""))).map_err(err)?;
+    }
+    let bytes = w.into_inner().map_err(|e| e.to_string())?;
+    String::from_utf8(bytes).map_err(|e| e.to_string())
 }
 
 fn read_text(path: &Path) -> Result<String, String> {
@@ -285,14 +356,19 @@ mod tests {
     #[test]
     fn band_must_be_a_percentage() {
         for band in [0.0, -1.0, 100.0, f64::NAN] {
-            let a = StepArgs { file: PathBuf::from("x.csv"), band, json: false };
+            let a = StepArgs { file: PathBuf::from("x.csv"), band, json: false, axis: None };
             assert!(step(&a).expect_err("bad band").contains("--band"));
         }
     }
 
     #[test]
     fn missing_file_names_the_file() {
-        let a = StepArgs { file: PathBuf::from("/nonexistent/step.csv"), band: 2.0, json: false };
+        let a = StepArgs {
+            file: PathBuf::from("/nonexistent/step.csv"),
+            band: 2.0,
+            json: false,
+            axis: None,
+        };
         let msg = step(&a).expect_err("missing");
         assert!(msg.starts_with("/nonexistent/step.csv: cannot read"), "{msg}");
     }

@@ -12,6 +12,7 @@ use crate::config::{AxisConfig, ControlMode, MachineConfig, TransportConfig};
 /// [`Failure::Config`] naming file, line, column and key.
 pub fn run(file: &Path) -> Result<u8, Failure> {
     let cfg = MachineConfig::load(file)?;
+    crate::cli::warn_renamed(&cfg);
     emit(&summary(&cfg))?;
     Ok(EXIT_OK)
 }

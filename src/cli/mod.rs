@@ -319,6 +319,13 @@ fn refuse_machine(what: &str, m: &MachineArgs) -> Result<(), Failure> {
     refuse_ports(what, m)
 }
 
+/// Warns (stderr) about old key names the configuration still uses.
+pub fn warn_renamed(cfg: &MachineConfig) {
+    for w in &cfg.renamed_keys {
+        eprintln!("servotty: warning: {w}");
+    }
+}
+
 /// Loads the configuration and builds the runtime.
 ///
 /// # Errors
@@ -327,6 +334,7 @@ pub fn prepare(
     config: Option<&std::path::Path>,
 ) -> Result<(MachineConfig, ConfigSource, tokio::runtime::Runtime), Failure> {
     let (cfg, source) = MachineConfig::load_or_demo(config)?;
+    warn_renamed(&cfg);
     let rt = runtime().map_err(|e| Failure::Machine(format!("cannot start the runtime: {e}")))?;
     Ok((cfg, source, rt))
 }

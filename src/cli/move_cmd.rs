@@ -121,7 +121,7 @@ async fn start_and_wait(m: &MachineHandle, targets: &[Target]) -> Result<MoveOut
             deadline,
             rx.wait_for(|s| {
                 s.moves_done > done_before
-                    || !matches!(s.state, AxisState::Moving | AxisState::Holding)
+                    || !matches!(s.state, AxisState::Moving | AxisState::Steady)
             }),
         )
         .await;

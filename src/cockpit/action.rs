@@ -64,7 +64,7 @@ pub enum Action {
     ClearTrip,
     /// Clear every axis's trip.
     ClearAllTrips,
-    /// Controlled stop of the selected axis (motor stays on, holding).
+    /// Controlled stop of the selected axis (motor stays on, steady).
     StopAxis,
     /// Ask for a position and move the selected axis there (or `@spot`: every axis it names).
     GoTo,

@@ -252,6 +252,9 @@ impl App {
             .collect();
         let mut log = EventLog::default();
         log.push(Duration::ZERO, Kind::Info, format!("cockpit started on {source}"));
+        for w in &config.renamed_keys {
+            log.push(Duration::ZERO, Kind::Info, format!("warning: {w}"));
+        }
         Self {
             saved: config.axes.iter().map(|a| a.controller.clone()).collect(),
             stop_category: config.machine.stop_category,

@@ -227,7 +227,14 @@ pub const BINDINGS: &[Binding] = &[
     bind(&[Char('C')], "", Action::ClearAllTrips, Modes::AXIS, Group::Axis, ""),
     bind(&[Char('g')], "g", Action::GoTo, Modes::AXIS, Group::Axis, "go to a typed position"),
     bind(&[Char('P')], "P", Action::StoreSpot, Modes::AXIS, Group::Axis, "store position as @spot"),
-    bind(&[Char('s')], "s", Action::StopAxis, Modes::AXIS, Group::Axis, "stop axis, keep holding"),
+    bind(
+        &[Char('s')],
+        "s",
+        Action::StopAxis,
+        Modes::AXIS,
+        Group::Axis,
+        "stop axis, motor stays on",
+    ),
     bind(
         &[Code(KeyCode::Enter)],
         "Enter",

@@ -131,7 +131,7 @@ impl Theme {
             AxisState::Stopping => self.warn(),
             AxisState::Offline => self.dim(),
             AxisState::Disabled => self.text(),
-            AxisState::Holding => self.good().add_modifier(Modifier::BOLD),
+            AxisState::Steady => self.good().add_modifier(Modifier::BOLD),
             AxisState::Moving | AxisState::Jogging | AxisState::Homing | AxisState::Testing => {
                 self.fg(Color::Cyan).add_modifier(Modifier::BOLD)
             }

@@ -142,6 +142,9 @@ impl CaptureFile {
         let mut header: Option<(usize, Vec<String>)> = None;
         let mut rows: BTreeMap<String, Vec<Sample>> = BTreeMap::new();
         let mut cols = Columns::default();
+        // A capture with one row per instant and every axis's columns (`x_position_mm`):
+        // each axis's columns, found in the shared header.
+        let mut wide: Vec<(String, Columns)> = Vec::new();
         for (i, raw) in text.lines().enumerate() {
             let line = i + 1;
             let l = raw.trim_end_matches('\r');
@@ -155,7 +158,20 @@ impl CaptureFile {
             let fields: Vec<&str> = l.split(',').map(|f| f.trim().trim_matches('"')).collect();
             let Some((_, names)) = &header else {
                 let names: Vec<String> = fields.iter().map(|f| f.to_ascii_lowercase()).collect();
-                cols = Columns::find(&names).map_err(|message| CaptureError { line, message })?;
+                wide = wide_axes(&names)
+                    .into_iter()
+                    .map(|a| {
+                        let own = own_columns(&names, &a);
+                        Columns::find(&own).map(|c| (a, c))
+                    })
+                    .collect::<Result<_, _>>()
+                    .map_err(|message| CaptureError { line, message })?;
+                if wide.is_empty() {
+                    cols =
+                        Columns::find(&names).map_err(|message| CaptureError { line, message })?;
+                } else {
+                    cols.evidence = wide.iter().all(|(_, c)| c.evidence);
+                }
                 header = Some((line, names));
                 continue;
             };
@@ -165,9 +181,20 @@ impl CaptureFile {
                     message: format!("{} fields, the header has {}", fields.len(), names.len()),
                 });
             }
-            let (axis, sample) =
-                cols.row(&fields).map_err(|message| CaptureError { line, message })?;
-            rows.entry(axis).or_default().push(sample);
+            if wide.is_empty() {
+                let (axis, sample) =
+                    cols.row(&fields).map_err(|message| CaptureError { line, message })?;
+                rows.entry(axis).or_default().push(sample);
+            }
+            for (axis, c) in &wide {
+                // An axis with a shorter history has empty fields in the oldest rows.
+                if fields[c.position].is_empty() {
+                    continue;
+                }
+                let (_, sample) =
+                    c.row(&fields).map_err(|message| CaptureError { line, message })?;
+                rows.entry(axis.clone()).or_default().push(sample);
+            }
         }
         let Some((hline, _)) = header else {
             return Err(CaptureError { line: 1, message: "no header row".into() });
@@ -176,6 +203,78 @@ impl CaptureFile {
             return Err(CaptureError { line: hline, message: "no rows after the header".into() });
         }
         Ok(Self { trip, facts, rows, has_evidence: cols.evidence })
+    }
+
+    /// Reads a capture file and, when there is one, its metadata sidecar (the same name with
+    /// `.json`: the trip and each axis's configuration).
+    ///
+    /// # Errors
+    /// A sentence naming the file (and line) that cannot be read.
+    pub fn read(path: &std::path::Path) -> Result<Self, String> {
+        let name = path.display();
+        let text =
+            std::fs::read_to_string(path).map_err(|e| format!("{name}: cannot read: {e}"))?;
+        Self::parse(&text)
+            .map_err(|e| format!("{name}:{}: {}", e.line, e.message))?
+            .with_sidecar(path)
+    }
+
+    /// Adds what the sidecar of the capture at `path` says, if it has one.
+    ///
+    /// # Errors
+    /// A sidecar that is not JSON.
+    pub fn with_sidecar(mut self, path: &std::path::Path) -> Result<Self, String> {
+        let side = path.with_extension("json");
+        if let Ok(meta) = std::fs::read_to_string(&side) {
+            let v: serde_json::Value = serde_json::from_str(&meta)
+                .map_err(|e| format!("{}: not JSON: {e}", side.display()))?;
+            self.read_sidecar(&v);
+        }
+        Ok(self)
+    }
+
+    /// Takes the trip and the axes' facts from a capture's sidecar.
+    pub fn read_sidecar(&mut self, v: &serde_json::Value) {
+        let t = &v["trip"];
+        let text = |x: &serde_json::Value| x.as_str().map(str::to_owned);
+        self.trip.axis = text(&t["axis"]).or(self.trip.axis.take());
+        self.trip.cause = text(&t["cause"]).or(self.trip.cause.take());
+        self.trip.at_s = t["board_time_s"].as_f64().or(self.trip.at_s);
+        self.trip.detail = text(&t["detail"]).or(self.trip.detail.take());
+        // The file's time is seconds from the trip; the rules read board time, as the
+        // history holds it.
+        let from_trip =
+            v["time_base"].as_str().is_some_and(|b| b.starts_with("t_s: seconds from the trip"));
+        if let (true, Some(at)) = (from_trip, t["board_time_s"].as_f64()) {
+            for rows in self.rows.values_mut() {
+                for r in rows.iter_mut() {
+                    r.t += at;
+                }
+            }
+        }
+        for a in v["axes"].as_array().into_iter().flatten() {
+            let Some(name) = a["axis"].as_str() else { continue };
+            let num =
+                |x: &serde_json::Value, d: f64| x.as_f64().filter(|v| v.is_finite()).unwrap_or(d);
+            let f = AxisFacts {
+                unit: a["unit"].as_str().unwrap_or("unit").to_owned(),
+                counts_per_unit: num(&a["counts_per_unit"], 0.0),
+                max_duty: num(&a["controller"]["max_duty"], 100.0),
+                max_velocity: num(&a["max_velocity"], 0.0),
+                ff_velocity: num(&a["controller"]["ff_velocity"], 0.0),
+                soft_limits: a["soft_min"].as_f64().zip(a["soft_max"].as_f64()),
+            };
+            self.facts.insert(name.to_owned(), f);
+        }
+    }
+
+    /// Axes whose record ends in the tripped state.
+    fn tripped_axes(&self) -> Vec<&str> {
+        self.rows
+            .iter()
+            .filter(|(_, r)| r.last().is_some_and(|s| s.state == AxisState::Tripped))
+            .map(|(a, _)| a.as_str())
+            .collect()
     }
 
     /// The axes with rows, in name order.
@@ -194,6 +293,8 @@ impl CaptureFile {
             None => match (&self.trip.axis, self.rows.len()) {
                 (Some(a), _) if self.rows.contains_key(a) => a.clone(),
                 (_, 1) => self.axes()[0].to_owned(),
+                // No metadata: the axis whose record ends tripped, if only one does.
+                _ if self.tripped_axes().len() == 1 => self.tripped_axes()[0].to_owned(),
                 _ => {
                     return Err(format!(
                         "the capture holds several axes ({names}) and does not name the tripped \
@@ -250,6 +351,40 @@ fn read_meta(m: &str, trip: &mut RecordedTrip, facts: &mut BTreeMap<String, Axis
     }
 }
 
+/// The axes of a capture with one row per instant: every `AXIS_position…` column names one.
+fn wide_axes(names: &[String]) -> Vec<String> {
+    if names.iter().any(|n| n == "axis") {
+        return Vec::new();
+    }
+    names
+        .iter()
+        .filter_map(|n| {
+            let (axis, rest) = n.split_once("_position")?;
+            (rest.is_empty() || rest.starts_with('_')).then(|| axis.to_owned())
+        })
+        .filter(|a| !a.is_empty())
+        .collect()
+}
+
+/// The header as `axis` sees it: its own columns without the prefix, the shared time, and
+/// blanks for every other axis's columns (so positions still match the rows).
+fn own_columns(names: &[String], axis: &str) -> Vec<String> {
+    let prefix = format!("{axis}_");
+    names
+        .iter()
+        .map(|n| {
+            if n == "t_s" || n == "t" {
+                n.clone()
+            } else {
+                n.strip_prefix(&prefix)
+                    .filter(|rest| rest.split('_').next().is_some_and(|w| !w.is_empty()))
+                    .map(str::to_owned)
+                    .unwrap_or_default()
+            }
+        })
+        .collect()
+}
+
 /// Column positions in the header.
 #[derive(Debug, Default, Clone)]
 struct Columns {
@@ -278,7 +413,7 @@ struct Columns {
 }
 
 /// Every column name the capture uses, for telling a unit suffix from a longer name.
-const KNOWN: [&str; 21] = crate::engine::recorder::CAPTURE_COLUMNS;
+const KNOWN: [&str; 21] = crate::engine::recorder::CAPTURE_NAMES;
 
 fn find(names: &[String], want: &str) -> Option<usize> {
     if let Some(i) = names.iter().position(|n| n == want) {
@@ -385,7 +520,7 @@ impl Columns {
 /// The state for its screen word.
 pub fn state_of(word: &str) -> Option<AxisState> {
     use AxisState::*;
-    [Offline, Disabled, Holding, Moving, Jogging, Homing, Testing, Stopping, Stopped, Tripped]
+    [Offline, Disabled, Steady, Moving, Jogging, Homing, Testing, Stopping, Stopped, Tripped]
         .into_iter()
         .find(|s| s.word() == word)
 }

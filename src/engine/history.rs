@@ -133,7 +133,7 @@ mod tests {
     fn keeps_the_newest_rows() {
         let mut h = History::new(0.005, 1000);
         for k in 0..8 {
-            h.push(Sample { t: f64::from(k), state: AxisState::Holding, ..Sample::default() });
+            h.push(Sample { t: f64::from(k), state: AxisState::Steady, ..Sample::default() });
         }
         let v = h.to_vec();
         assert_eq!(v.len(), 5);

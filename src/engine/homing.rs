@@ -3,7 +3,7 @@
 //!
 //! Keeping it free of I/O and of the axis task's internals lets every method be tested with
 //! made-up frames, and keeps the axis task's frame handler short. Every search has a travel
-//! bound (the profile's goal is at most `max_travel` away, so running out of profile means
+//! bound (the profile's goal is at most `seek_limit` away, so running out of profile means
 //! "not found") and the whole sequence a time bound.
 //!
 //! Written by hand: the sequences are the product's own operating procedure.
@@ -126,34 +126,34 @@ impl HomingRun {
         let dir = self.cfg.direction.sign();
         let c = &self.cfg;
         let u = &self.unit;
-        let far = |from: f64| from + dir * c.max_travel;
+        let far = |from: f64| from + dir * c.seek_limit;
         match (self.phase, c.method) {
             (Phase::Start, HomingMethod::None) => {
                 self.phase = Phase::Finished;
-                vec![Order::SetHome { count: v.count, value: c.home_offset }, Order::Done]
+                vec![Order::SetHome { count: v.count, value: c.mark_position }, Order::Done]
             }
             (Phase::Start, HomingMethod::Switch) if v.switch => {
                 // Already on the switch: leave it first.
                 self.phase = Phase::BackOff { from: v.position };
                 vec![Order::MoveTo {
-                    goal: v.position - dir * c.max_travel,
-                    velocity: c.latch_velocity,
+                    goal: v.position - dir * c.seek_limit,
+                    velocity: c.touch_speed,
                 }]
             }
             (Phase::Start, HomingMethod::Switch) => {
                 self.phase = Phase::Search { from: v.position };
-                vec![Order::MoveTo { goal: far(v.position), velocity: c.search_velocity }]
+                vec![Order::MoveTo { goal: far(v.position), velocity: c.seek_speed }]
             }
             (Phase::Start, HomingMethod::HardStop) => {
                 self.phase = Phase::Push { from: v.position, still_since: None };
                 vec![
                     Order::LimitDuty(Some(c.hard_stop_duty)),
-                    Order::MoveTo { goal: far(v.position), velocity: c.search_velocity },
+                    Order::MoveTo { goal: far(v.position), velocity: c.seek_speed },
                 ]
             }
             (Phase::Start, HomingMethod::Index) => {
                 self.phase = Phase::IndexSeek { from: v.position, was_active: v.index };
-                vec![Order::MoveTo { goal: far(v.position), velocity: c.latch_velocity }]
+                vec![Order::MoveTo { goal: far(v.position), velocity: c.touch_speed }]
             }
             (Phase::Search { .. }, _) if v.switch => {
                 self.phase = Phase::SearchStopping;
@@ -161,13 +161,13 @@ impl HomingRun {
             }
             (Phase::Search { from }, _) if v.profile_done => self.fail(format!(
                 "switch not found within {} {u} (searched from {from:.1} {u})",
-                c.max_travel
+                c.seek_limit
             )),
             (Phase::SearchStopping, _) if v.profile_done => {
                 self.phase = Phase::BackOff { from: v.position };
                 vec![Order::MoveTo {
-                    goal: v.position - dir * c.max_travel,
-                    velocity: c.latch_velocity,
+                    goal: v.position - dir * c.seek_limit,
+                    velocity: c.touch_speed,
                 }]
             }
             (Phase::BackOff { from }, _) => {
@@ -175,9 +175,9 @@ impl HomingRun {
                 // a known distance.
                 if !v.switch && (v.position - from).abs() >= c.backoff {
                     self.phase = Phase::Approach { from: v.position, was_active: false };
-                    vec![Order::MoveTo { goal: far(v.position), velocity: c.latch_velocity }]
+                    vec![Order::MoveTo { goal: far(v.position), velocity: c.touch_speed }]
                 } else if v.profile_done {
-                    self.fail(format!("switch still closed after backing off {} {u}", c.max_travel))
+                    self.fail(format!("switch still closed after backing off {} {u}", c.seek_limit))
                 } else {
                     Vec::new()
                 }
@@ -186,10 +186,10 @@ impl HomingRun {
                 if v.switch && !was_active {
                     self.phase = Phase::Latching { count: v.count };
                     vec![Order::Stop]
-                } else if v.profile_done || (v.position - from).abs() > c.max_travel {
+                } else if v.profile_done || (v.position - from).abs() > c.seek_limit {
                     self.fail(format!(
                         "switch edge not found within {} {u} on the slow approach",
-                        c.max_travel
+                        c.seek_limit
                     ))
                 } else {
                     self.phase = Phase::Approach { from, was_active: v.switch };
@@ -198,7 +198,7 @@ impl HomingRun {
             }
             (Phase::Latching { count }, _) if v.profile_done => {
                 self.phase = Phase::Finished;
-                vec![Order::SetHome { count, value: c.home_offset }, Order::Done]
+                vec![Order::SetHome { count, value: c.mark_position }, Order::Done]
             }
             (Phase::Push { from, still_since }, _) => {
                 let still = v.velocity.abs() < self.min_speed;
@@ -206,13 +206,13 @@ impl HomingRun {
                 match (still && pushing, still_since) {
                     (true, Some(since)) if v.t - since >= PUSH_SETTLE_S => {
                         self.phase = Phase::PushBackOff;
-                        let value = c.home_offset;
+                        let value = c.mark_position;
                         let back = value - dir * c.backoff;
                         vec![
                             Order::LimitDuty(None),
                             Order::SetHome { count: v.count, value },
                             Order::HoldHere,
-                            Order::MoveTo { goal: back, velocity: c.search_velocity },
+                            Order::MoveTo { goal: back, velocity: c.seek_speed },
                         ]
                     }
                     (true, None) => {
@@ -222,7 +222,7 @@ impl HomingRun {
                     (true, Some(_)) => Vec::new(),
                     (false, _) if v.profile_done => {
                         let mut o = vec![Order::LimitDuty(None)];
-                        o.extend(self.fail(format!("no end stop within {} {u}", c.max_travel)));
+                        o.extend(self.fail(format!("no end stop within {} {u}", c.seek_limit)));
                         o
                     }
                     (false, _) => {
@@ -242,7 +242,7 @@ impl HomingRun {
                 } else if v.profile_done {
                     self.fail(format!(
                         "no index pulse within {} {u} (from {from:.1} {u})",
-                        c.max_travel
+                        c.seek_limit
                     ))
                 } else {
                     self.phase = Phase::IndexSeek { from, was_active: v.index };
@@ -268,9 +268,9 @@ mod tests {
         HomingConfig {
             method,
             direction: SearchDirection::Negative,
-            max_travel: 100.0,
+            seek_limit: 100.0,
             backoff: 3.0,
-            home_offset: 5.0,
+            mark_position: 5.0,
             ..HomingConfig::default()
         }
     }

@@ -33,7 +33,7 @@ use crate::engine::{
     AxisCommand, AxisHandle, AxisSnapshot, AxisState, CommandError, MachineHandle,
 };
 
-/// Distances below this, units, do not move an axis (it keeps holding).
+/// Distances below this, units, do not move an axis (it stays steady).
 const STILL: f64 = 1e-9;
 /// Slack on top of the planned time for settling in position, s.
 const SETTLE_SLACK_S: f64 = 10.0;
@@ -69,7 +69,7 @@ pub enum LineError {
     #[error("no axis called {0:?}")]
     UnknownAxis(String),
     /// An axis is not resting where a line can start.
-    #[error("{axis}: a coordinated move starts from holding, not {state}")]
+    #[error("{axis}: a coordinated move starts from steady, not {state}")]
     NotHolding {
         /// Axis.
         axis: String,
@@ -179,7 +179,7 @@ pub async fn move_line(
     for (axis, _) in goals {
         let a = m.axis(axis).ok_or_else(|| LineError::UnknownAxis(axis.clone()))?;
         let s = a.snapshot();
-        if s.state != AxisState::Holding {
+        if s.state != AxisState::Steady {
             return Err(LineError::NotHolding { axis: axis.clone(), state: s.state });
         }
         starts.insert(axis.clone(), s.target);
@@ -203,7 +203,7 @@ pub async fn move_line(
         let snaps: Vec<AxisSnapshot> =
             rxs.iter_mut().map(|r| r.borrow_and_update().clone()).collect();
         if let Some(s) =
-            snaps.iter().find(|s| !matches!(s.state, AxisState::Moving | AxisState::Holding))
+            snaps.iter().find(|s| !matches!(s.state, AxisState::Moving | AxisState::Steady))
         {
             let why = s.trip.as_ref().map_or_else(
                 || format!("left the move ({})", s.state),

@@ -428,7 +428,7 @@ impl MachineHandle {
                 )
                 .await;
                 let s = a.snapshot();
-                if done.is_err() || !s.homed || s.state != AxisState::Holding {
+                if done.is_err() || !s.homed || s.state != AxisState::Steady {
                     let reason = match (&s.trip, done.is_err()) {
                         (Some(t), _) => format!("{}: {}", t.cause, t.detail),
                         (None, true) => "homing did not finish in time".to_owned(),

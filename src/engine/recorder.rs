@@ -6,7 +6,6 @@
 //! axis task nor the thread the axis tasks run on. Captures are written atomically (temporary file in the same folder, then rename):
 //! a reader never sees half a file.
 
-use std::fmt::Write as _;
 use std::io::Write as _;
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
@@ -146,10 +145,11 @@ async fn write_event(log: &mut Option<tokio::fs::File>, ev: &Event) {
     }
 }
 
-/// Collects every axis's history and writes one capture file. Returns its path.
+/// Collects every axis's history and writes one capture file (CSV) with its metadata
+/// beside it (JSON, same name). Returns the CSV's path.
 ///
 /// # Errors
-/// I/O errors creating the folder or writing the file.
+/// I/O errors creating the folder or writing the files.
 pub async fn capture(
     dir: &Path,
     tripped_axis: &str,
@@ -163,123 +163,81 @@ pub async fn capture(
             rows.push((a.name().to_owned(), h));
         }
     }
-    let stamp = rfc3339_utc(std::time::SystemTime::now()).replace([':', '.'], "-");
-    let name = format!("capture-{stamp}-{tripped_axis}-{:?}.csv", trip.cause).to_lowercase();
+    let written = rfc3339_utc(std::time::SystemTime::now());
+    let stamp = written.replace([':', '.'], "-").to_lowercase();
+    // The cause in file-name form: `following-error`, not `followingerror`.
+    let cause = trip.cause.to_string().replace(' ', "-");
+    let name = format!("capture-{stamp}-{tripped_axis}-{cause}");
     let dir = dir.to_path_buf();
     let (tripped_axis, trip, cfg) = (tripped_axis.to_owned(), trip.clone(), cfg.clone());
     // Formatting 8 axes × 10 s of rows is megabytes of text and tens of milliseconds (more
     // on a small computer): on the engine's thread it would starve every axis loop past its
     // board's watchdog. The blocking pool formats and writes; this task only waits.
     tokio::task::spawn_blocking(move || {
-        let text = capture_text(&tripped_axis, &trip, &rows, &cfg);
+        let csv = capture_csv(&trip, &tripped_axis, &rows, &cfg).map_err(std::io::Error::other)?;
+        let meta = capture_meta(&tripped_axis, &trip, &rows, &cfg, &written);
+        let meta = serde_json::to_vec_pretty(&meta).map_err(std::io::Error::other)?;
         std::fs::create_dir_all(&dir)?;
-        write_atomically(&dir, &name, text.as_bytes())
+        // Metadata first: a reader that finds the CSV finds its sidecar too.
+        write_atomically(&dir, &format!("{name}.json"), &meta)?;
+        write_atomically(&dir, &format!("{name}.csv"), &csv)
     })
     .await
     .map_err(std::io::Error::other)?
 }
 
 /// Writes `bytes` to `dir/name` via a synced temporary file in `dir` and a rename, so a reader
-/// never sees half a file. `dir` must exist.
+/// never sees half a file. `dir` must exist. The file is readable by everyone (0644): records
+/// are for sharing, not secrets.
 ///
 /// # Errors
 /// I/O errors.
 pub fn write_atomically(dir: &Path, name: &str, bytes: &[u8]) -> std::io::Result<PathBuf> {
     let mut tmp = tempfile::Builder::new().prefix(".servotty-").suffix(".tmp").tempfile_in(dir)?;
     tmp.write_all(bytes)?;
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::PermissionsExt as _;
+        tmp.as_file().set_permissions(std::fs::Permissions::from_mode(0o644))?;
+    }
     tmp.as_file().sync_all()?;
     let path = dir.join(name);
     tmp.persist(&path).map_err(|e| e.error)?;
     Ok(path)
 }
 
-/// The capture file's text: `#` metadata lines, a header row, then rows of every axis.
-pub fn capture_text(
-    tripped_axis: &str,
-    trip: &Trip,
-    rows: &[(String, Vec<Sample>)],
-    cfg: &MachineConfig,
-) -> String {
-    let mut s = String::new();
-    let _ = writeln!(s, "# servotty trip capture");
-    let _ = writeln!(s, "# software: servotty {}", env!("CARGO_PKG_VERSION"));
-    let _ = writeln!(s, "# written: {}", rfc3339_utc(std::time::SystemTime::now()));
-    let _ = writeln!(s, "# machine: {}", cfg.machine.name.replace('\n', " "));
-    let _ = writeln!(s, "# trip axis: {tripped_axis}");
-    let _ = writeln!(s, "# trip cause: {}", trip.cause);
-    let _ = writeln!(s, "# trip board time s: {:.6}", trip.at_s);
-    let _ = writeln!(
-        s,
-        "# trip values: target={:.6} position={:.6} following_error={:.6} duty={:.3} velocity={:.6}",
-        trip.target, trip.position, trip.following_error, trip.duty, trip.velocity
-    );
-    let _ = writeln!(s, "# trip detail: {}", trip.detail.replace('\n', " "));
-    for a in &cfg.axes {
-        let c = &a.controller;
-        let l = &a.limits;
-        let _ = writeln!(
-            s,
-            "# axis {}: unit={} counts_per_unit={} mode={:?} kp={} ki={} kd={} ff_velocity={} \
-             max_duty={} max_velocity={} max_acceleration={} following_error={} \
-             following_error_per_velocity={} soft_min={} soft_max={}",
-            a.name,
-            a.scale.unit,
-            a.scale.counts_per_unit,
-            c.mode,
-            c.kp,
-            c.ki,
-            c.kd,
-            c.ff_velocity,
-            c.max_duty,
-            a.motion.max_velocity,
-            a.motion.max_acceleration,
-            l.following_error,
-            l.following_error_per_velocity,
-            l.soft_min,
-            l.soft_max
-        );
-    }
-    let _ = writeln!(s, "{}", CAPTURE_COLUMNS.join(","));
-    for (axis, samples) in rows {
-        for r in samples {
-            let _ = writeln!(
-                s,
-                "{axis},{:.6},{:.6},{:.6},{:.6},{:.3},{:.6},{},{},{},{},{},{},{:.6},{:.6},{:.6},\
-                 {:.3},{:.3},{:.3},{:.3},{}",
-                r.t,
-                r.target,
-                r.position,
-                r.following_error,
-                r.duty,
-                r.velocity,
-                r.state.word(),
-                r.count,
-                r.board_time_us,
-                r.missed_frames,
-                r.status,
-                r.inputs,
-                r.target_velocity,
-                r.target_acceleration,
-                r.band,
-                r.p,
-                r.i,
-                r.d,
-                r.ff,
-                u8::from(r.saturated)
-            );
-        }
-    }
-    s
-}
+/// Per-axis columns of a capture, each prefixed `AXIS_` in the file, with the unit in the
+/// name (`{u}` is the axis unit). After the loop's values come the evidence columns a
+/// diagnosis reads ([`crate::diagnosis`]): `count` (unwrapped encoder count),
+/// `board_time_us` (the board's clock: secondary, the file's time base is `t_s`),
+/// `missed_frames` (telemetry frames lost just before this one), `status` and `inputs` (the
+/// board's bits, decimal), the profile's velocity and acceleration, `band` (the
+/// following-error band in force), `p`, `i`, `d`, `ff` (the controller's parts, %) and
+/// `saturated` (1 when the output was cut to its limit).
+pub const CAPTURE_COLUMNS: [&str; 19] = [
+    "target_{u}",
+    "position_{u}",
+    "following_error_{u}",
+    "duty_pct",
+    "velocity_{u}_s",
+    "state",
+    "count",
+    "board_time_us",
+    "missed_frames",
+    "status",
+    "inputs",
+    "target_velocity_{u}_s",
+    "target_acceleration_{u}_s2",
+    "band_{u}",
+    "p_pct",
+    "i_pct",
+    "d_pct",
+    "ff_pct",
+    "saturated",
+];
 
-/// The capture's columns, in order. After the loop's values (target … state) come the
-/// evidence columns a diagnosis reads ([`crate::diagnosis`]): `count` (unwrapped encoder
-/// count), `board_time_us` (the board's clock), `missed_frames` (telemetry frames lost just
-/// before this one), `status` and `inputs` (the board's bits, decimal), `target_velocity` and
-/// `target_acceleration` (the profile), `band` (the following-error band in force), `p`, `i`,
-/// `d`, `ff` (the controller's parts, %) and `saturated` (1 when the output was cut to its
-/// limit).
-pub const CAPTURE_COLUMNS: [&str; 21] = [
+/// The capture's names without units, for readers matching either form.
+pub const CAPTURE_NAMES: [&str; 21] = [
     "axis",
     "t",
     "target",
@@ -302,3 +260,145 @@ pub const CAPTURE_COLUMNS: [&str; 21] = [
     "ff",
     "saturated",
 ];
+
+/// The header of a capture of `axes` (name, unit): `t_s`, then every axis's columns.
+pub fn capture_header(axes: &[(&str, &str)]) -> Vec<String> {
+    let mut h = vec!["t_s".to_owned()];
+    for (name, unit) in axes {
+        for c in &CAPTURE_COLUMNS {
+            h.push(format!("{name}_{}", c.replace("{u}", &unit_word(unit))));
+        }
+    }
+    h
+}
+
+/// A unit as it can stand in a column name (`mm`, `deg`; `°` becomes `deg`).
+fn unit_word(unit: &str) -> String {
+    let u = unit.replace('°', "deg");
+    let w: String = u.chars().map(|c| if c.is_ascii_alphanumeric() { c } else { '_' }).collect();
+    if w.is_empty() {
+        "unit".to_owned()
+    } else {
+        w
+    }
+}
+
+/// The capture as CSV: one header row, then one row per instant with every axis's columns.
+///
+/// The time base is the tripped axis's board ticks, `t_s` seconds from the trip (negative
+/// before it). Every history ends at the same moment (the capture request), so the other
+/// axes' rows are aligned newest to newest; at equal tick rates that is within one tick.
+/// An axis with a shorter history leaves its fields empty in the oldest rows.
+///
+/// # Errors
+/// The csv writer's (not expected for in-memory output).
+pub fn capture_csv(
+    trip: &Trip,
+    tripped_axis: &str,
+    rows: &[(String, Vec<Sample>)],
+    cfg: &MachineConfig,
+) -> Result<Vec<u8>, csv::Error> {
+    let units: Vec<(&str, &str)> = rows
+        .iter()
+        .map(|(a, _)| (a.as_str(), cfg.axis(a).map_or("unit", |c| c.scale.unit.as_str())))
+        .collect();
+    let mut w = csv::Writer::from_writer(Vec::new());
+    w.write_record(capture_header(&units))?;
+    let base = rows.iter().find(|(a, _)| a == tripped_axis).or_else(|| rows.first());
+    let Some((_, base)) = base else { return w.into_inner().map_err(|e| e.into_error().into()) };
+    let n = base.len();
+    let empty = vec![String::new(); CAPTURE_COLUMNS.len()];
+    for (k, now) in base.iter().enumerate() {
+        let mut rec = vec![format!("{:.6}", now.t - trip.at_s)];
+        for (_, samples) in rows {
+            // Aligned from the newest sample back.
+            let back = n - k;
+            match samples.len().checked_sub(back).and_then(|i| samples.get(i)) {
+                Some(r) => rec.extend(sample_fields(r)),
+                None => rec.extend(empty.iter().cloned()),
+            }
+        }
+        w.write_record(&rec)?;
+    }
+    w.flush()?;
+    w.into_inner().map_err(|e| e.into_error().into())
+}
+
+fn sample_fields(r: &Sample) -> [String; 19] {
+    [
+        format!("{:.6}", r.target),
+        format!("{:.6}", r.position),
+        format!("{:.6}", r.following_error),
+        format!("{:.3}", r.duty),
+        format!("{:.6}", r.velocity),
+        r.state.word().to_owned(),
+        r.count.to_string(),
+        r.board_time_us.to_string(),
+        r.missed_frames.to_string(),
+        r.status.to_string(),
+        r.inputs.to_string(),
+        format!("{:.6}", r.target_velocity),
+        format!("{:.6}", r.target_acceleration),
+        format!("{:.6}", r.band),
+        format!("{:.3}", r.p),
+        format!("{:.3}", r.i),
+        format!("{:.3}", r.d),
+        format!("{:.3}", r.ff),
+        u8::from(r.saturated).to_string(),
+    ]
+}
+
+/// The capture's sidecar: what tripped, and each axis's configuration as it was, so the CSV
+/// itself stays one header row and numbers.
+pub fn capture_meta(
+    tripped_axis: &str,
+    trip: &Trip,
+    rows: &[(String, Vec<Sample>)],
+    cfg: &MachineConfig,
+    written_utc: &str,
+) -> serde_json::Value {
+    let axes: Vec<serde_json::Value> = rows
+        .iter()
+        .filter_map(|(a, _)| cfg.axis(a))
+        .map(|a| {
+            let c = &a.controller;
+            let l = &a.limits;
+            serde_json::json!({
+                "axis": a.name,
+                "unit": a.scale.unit,
+                "counts_per_unit": a.scale.counts_per_unit,
+                "controller": {
+                    "mode": format!("{:?}", c.mode).to_lowercase(),
+                    "kp": c.kp, "ki": c.ki, "kd": c.kd,
+                    "ff_velocity": c.ff_velocity, "max_duty": c.max_duty,
+                },
+                "max_velocity": a.motion.max_velocity,
+                "max_acceleration": a.motion.max_acceleration,
+                "following_error": l.following_error,
+                "following_error_per_velocity": l.following_error_per_velocity,
+                "soft_min": l.soft_min,
+                "soft_max": l.soft_max,
+            })
+        })
+        .collect();
+    serde_json::json!({
+        "kind": "servotty trip capture",
+        "software": format!("servotty {}", env!("CARGO_PKG_VERSION")),
+        "written_utc": written_utc,
+        "machine": cfg.machine.name,
+        "time_base": "t_s: seconds from the trip, on the tripped axis's board ticks",
+        "trip": {
+            "axis": tripped_axis,
+            "cause": trip.cause.to_string(),
+            "board_time_s": trip.at_s,
+            "target": trip.target,
+            "position": trip.position,
+            "following_error": trip.following_error,
+            "band": trip.band,
+            "duty": trip.duty,
+            "velocity": trip.velocity,
+            "detail": trip.detail,
+        },
+        "axes": axes,
+    })
+}

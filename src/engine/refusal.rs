@@ -89,7 +89,7 @@ fn remedy(state: AxisState) -> &'static str {
         AxisState::Homing | AxisState::Moving | AxisState::Jogging | AxisState::Testing => {
             "wait until it ends, or stop it"
         }
-        AxisState::Holding => "it should be possible now; try again",
+        AxisState::Steady => "it should be possible now; try again",
     }
 }
 

@@ -17,8 +17,8 @@ pub enum AxisState {
     Offline,
     /// Linked, motor off.
     Disabled,
-    /// Motor on, holding the target position.
-    Holding,
+    /// Motor on, standing still at the target position ("steady").
+    Steady,
     /// Following a move profile.
     Moving,
     /// Following an operator jog.
@@ -41,7 +41,7 @@ impl AxisState {
         match self {
             Self::Offline => "offline",
             Self::Disabled => "disabled",
-            Self::Holding => "holding",
+            Self::Steady => "steady",
             Self::Moving => "moving",
             Self::Jogging => "jogging",
             Self::Homing => "homing",
@@ -56,7 +56,7 @@ impl AxisState {
     pub fn motor_on(self) -> bool {
         matches!(
             self,
-            Self::Holding
+            Self::Steady
                 | Self::Moving
                 | Self::Jogging
                 | Self::Homing

@@ -26,7 +26,8 @@ pub fn read_columns(text: &str, names: &[&str]) -> Result<Vec<Vec<f64>>, Columns
         .headers()
         .map_err(|e| err(1, e.to_string()))?
         .iter()
-        .map(str::to_ascii_lowercase)
+        // Units in the names (`t_s`, `position_mm`, `duty_pct`) read as the plain words.
+        .map(|n| crate::tuning::report::without_unit(&n.to_ascii_lowercase()))
         .collect();
     // The reader stands at the first data row: the header is the line before.
     let header_line = rdr.position().line().saturating_sub(1).max(1);

@@ -120,8 +120,12 @@ pub fn parse_step_csv(text: &str) -> Result<Vec<StepRow>, CsvError> {
             message: "no header line (expected t,target,position)".into(),
         });
     };
-    let names: Vec<String> =
-        header.split(',').map(|f| f.trim().trim_matches('"').to_ascii_lowercase()).collect();
+    // Units in the names are allowed (`t_s`, `position_mm`, `duty_pct`): each name is read
+    // as the word before its unit.
+    let names: Vec<String> = header
+        .split(',')
+        .map(|f| without_unit(&f.trim().trim_matches('"').to_ascii_lowercase()))
+        .collect();
     let find = |want: &str| -> Result<Option<usize>, CsvError> {
         let mut hits = names.iter().enumerate().filter(|(_, n)| n.as_str() == want);
         let first = hits.next().map(|(i, _)| i);
@@ -393,21 +397,39 @@ impl StepSummary {
     }
 }
 
-/// Writes `rows` as CSV `t,target,position,duty` (an empty duty field when not recorded),
-/// atomically.
+/// `position_mm` → `position`, `t_s` → `t`, `duty_pct` → `duty`; other names unchanged.
+pub(crate) fn without_unit(name: &str) -> String {
+    for word in ["t", "target", "position", "duty"] {
+        if let Some(unit) = name.strip_prefix(word).and_then(|r| r.strip_prefix('_')) {
+            // `target_velocity` is another quantity, not a target with a unit.
+            if !unit.starts_with("velocity") && !unit.starts_with("acceleration") {
+                return word.to_owned();
+            }
+        }
+    }
+    name.to_owned()
+}
+
+/// Writes `rows` as CSV with one header row naming the units, `t_s,target_U,position_U,
+/// duty_pct` for the axis unit `unit` (an empty duty field when not recorded), atomically.
 ///
 /// # Errors
 /// The folder is missing or not writable, or the disk is full.
-pub fn write_step_csv(path: &Path, rows: &[StepRow]) -> std::io::Result<()> {
-    let mut s = String::with_capacity(32 * rows.len() + 32);
-    s.push_str("t,target,position,duty\n");
+pub fn write_step_csv(path: &Path, rows: &[StepRow], unit: &str) -> std::io::Result<()> {
+    let u: String = unit.chars().map(|c| if c.is_ascii_alphanumeric() { c } else { '_' }).collect();
+    let mut w = csv::Writer::from_writer(Vec::with_capacity(32 * rows.len() + 32));
+    w.write_record([
+        "t_s".to_owned(),
+        format!("target_{u}"),
+        format!("position_{u}"),
+        "duty_pct".into(),
+    ])?;
     for r in rows {
-        let _ = match r.duty {
-            Some(d) => writeln!(s, "{},{},{},{}", r.t, r.target, r.position, d),
-            None => writeln!(s, "{},{},{},", r.t, r.target, r.position),
-        };
+        let duty = r.duty.map(|d| d.to_string()).unwrap_or_default();
+        w.write_record([r.t.to_string(), r.target.to_string(), r.position.to_string(), duty])?;
     }
-    write_atomically(path, s.as_bytes())
+    let bytes = w.into_inner().map_err(|e| e.into_error())?;
+    write_atomically(path, &bytes)
 }
 
 /// Renders the record as an SVG: target and position against time, and the duty in a second
@@ -616,7 +638,7 @@ mod tests {
             })
             .collect();
         let csv = dir.path().join("step.csv");
-        write_step_csv(&csv, &rows).expect("writes");
+        write_step_csv(&csv, &rows, "mm").expect("writes");
         let back = parse_step_csv(&std::fs::read_to_string(&csv).expect("reads")).expect("parses");
         assert_eq!(back, rows);
         let svg = dir.path().join("step.svg");
@@ -626,7 +648,7 @@ mod tests {
         assert!(text.contains("duty (%)") && text.contains("position (mm)"));
         // Only the two files: the temporary files were renamed, not left behind.
         assert_eq!(std::fs::read_dir(dir.path()).expect("lists").count(), 2);
-        assert!(write_step_csv(&dir.path().join("missing/step.csv"), &rows).is_err());
+        assert!(write_step_csv(&dir.path().join("missing/step.csv"), &rows, "mm").is_err());
         assert!(matches!(render_step_svg(&[], "t", ""), Err(ReportError::NothingToPlot(_))));
     }
 }

@@ -43,7 +43,7 @@ pub fn frame(k: u32) -> Vec<AxisSnapshot> {
     x.duty = 40.0 * (t * 0.6).cos() + 12.0;
     x.link.frames = 10_000 + u64::from(k) * 50;
     x.board_time_s = t;
-    let mut y = snap("y", AxisState::Holding, 120.0);
+    let mut y = snap("y", AxisState::Steady, 120.0);
     y.homed = true;
     y.following_error = 0.04 * (t * 3.0).sin();
     y.position = 120.0 - y.following_error;
@@ -131,7 +131,7 @@ pub fn homing() -> App {
         200,
         |k| {
             let mut f = frame(k);
-            f[0].state = AxisState::Holding;
+            f[0].state = AxisState::Steady;
             if k >= 100 {
                 let z = &mut f[2];
                 let t = f64::from(k - 100) / f64::from(FPS);

@@ -21,7 +21,7 @@ fn items(app: &App) -> Vec<(&'static str, &'static str)> {
         Some(AxisState::Offline) => &[("l", "log: why")],
         Some(AxisState::Disabled) => &[("e", "enable"), ("H", "home all")],
         Some(AxisState::Stopped) => &[("R", "release")],
-        Some(AxisState::Holding) => {
+        Some(AxisState::Steady) => {
             &[("←→", "jog"), ("g", "go to"), ("h", "home"), ("[ ]", "step"), ("d", "off")]
         }
         _ => &[("s", "stop axis"), ("←→", "jog")],

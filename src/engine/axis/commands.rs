@@ -47,7 +47,7 @@ impl AxisCore {
                 AxisState::Disabled => {
                     self.profile = None;
                     self.hold_here();
-                    self.state = AxisState::Holding;
+                    self.state = AxisState::Steady;
                     self.outside_limits = true;
                     (Ok(Reply::Done), false)
                 }
@@ -175,7 +175,7 @@ impl AxisCore {
 
     fn require_motion_ready(&self, asked: Asked) -> Result<(), CommandError> {
         match self.state {
-            AxisState::Holding | AxisState::Moving => Ok(()),
+            AxisState::Steady | AxisState::Moving => Ok(()),
             s => Err(self.refuse(Refusal::NotNow { asked, state: s })),
         }
     }
@@ -324,7 +324,7 @@ impl AxisCore {
 
     fn require_jog_ready(&self) -> Result<(), CommandError> {
         match self.state {
-            AxisState::Holding | AxisState::Moving | AxisState::Jogging | AxisState::Stopping => {
+            AxisState::Steady | AxisState::Moving | AxisState::Jogging | AxisState::Stopping => {
                 Ok(())
             }
             s => Err(self.refuse(Refusal::NotNow { asked: Asked::Jog, state: s })),
@@ -333,7 +333,7 @@ impl AxisCore {
 
     fn start_homing(&mut self) -> Result<Reply, CommandError> {
         match self.state {
-            AxisState::Holding => {}
+            AxisState::Steady => {}
             AxisState::Homing => return Ok(Reply::Done),
             s => return Err(self.refuse(Refusal::NotNow { asked: Asked::Home, state: s })),
         }
@@ -342,7 +342,7 @@ impl AxisCore {
         self.homing = Some(HomingRun::new(
             &self.cfg.homing,
             &self.cfg.scale.unit,
-            min_speed.min(0.5 * self.cfg.homing.latch_velocity),
+            min_speed.min(0.5 * self.cfg.homing.touch_speed),
             self.cfg.limits.following_error,
         ));
         self.homed = false;
@@ -357,7 +357,7 @@ impl AxisCore {
         spec: ExperimentSpec,
         bounds: ExperimentBounds,
     ) -> Result<Reply, CommandError> {
-        if self.state != AxisState::Holding {
+        if self.state != AxisState::Steady {
             return Err(self.refuse(Refusal::NotNow { asked: Asked::Test, state: self.state }));
         }
         let positive = |v: f64| v.is_finite() && v > 0.0;

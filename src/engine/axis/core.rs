@@ -328,12 +328,12 @@ mod tests {
         (core, frames, Instant::now())
     }
 
-    /// Linked, one frame in, enabled: holding at count 0.
+    /// Linked, one frame in, enabled: steady at count 0.
     fn holding_x(stop_category: u8) -> (AxisCore, Frames, Instant) {
         let (mut core, mut f, now) = linked_x(stop_category);
         core.on_frame(&f.next(0), now);
         core.command(AxisCommand::Enable, now).0.expect("enables");
-        assert_eq!(core.state(), AxisState::Holding);
+        assert_eq!(core.state(), AxisState::Steady);
         (core, f, now)
     }
 
@@ -351,7 +351,7 @@ mod tests {
         let (answer, out) = core.command(AxisCommand::Enable, now);
         assert_eq!(answer, Ok(Reply::Done));
         assert_eq!(out.send, None, "enabling writes nothing until the next frame");
-        assert_eq!(core.state(), AxisState::Holding);
+        assert_eq!(core.state(), AxisState::Steady);
         // Standing still on target: the duty answer echoes the frame's seq.
         let out = core.on_frame(&f.next(0), now);
         assert!(matches!(out.send, Some(HostMessage::Duty { seq: 1, .. })), "{out:?}");

@@ -164,7 +164,7 @@ impl AxisCore {
                 self.end_experiment(None);
                 if closed {
                     // The step's end: hold where the step put the target.
-                    self.state = AxisState::Holding;
+                    self.state = AxisState::Steady;
                 } else {
                     // Open loop may end at speed: brake to rest under control.
                     self.setpoint = Setpoint {
@@ -227,7 +227,7 @@ impl AxisCore {
                     Purpose::Move => self.settle_since = None,
                     Purpose::Jog | Purpose::StopThenHold => {
                         self.goal = p.profile.goal();
-                        self.state = AxisState::Holding;
+                        self.state = AxisState::Steady;
                         self.jog = None;
                     }
                     Purpose::Homing => {}
@@ -257,7 +257,7 @@ impl AxisCore {
                 (true, None) => self.settle_since = Some(self.t),
                 (true, Some(since)) => {
                     if self.t - since >= self.cfg.motion.in_position_dwell_s {
-                        self.state = AxisState::Holding;
+                        self.state = AxisState::Steady;
                         self.moves.arrived(self.t);
                     }
                 }
@@ -319,7 +319,7 @@ impl AxisCore {
                     self.duty_limit = None;
                     self.homed = true;
                     self.outside_limits = true;
-                    self.state = AxisState::Holding;
+                    self.state = AxisState::Steady;
                     self.profile = None;
                     self.hold_here_at_goal();
                     let method = format!("{:?}", self.cfg.homing.method).to_lowercase();

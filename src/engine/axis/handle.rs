@@ -14,7 +14,7 @@ use crate::engine::snapshot::AxisSnapshot;
 /// What the operator (or a headless command) asks of one axis.
 #[derive(Debug, Clone, PartialEq)]
 pub enum AxisCommand {
-    /// Motor on, holding the present position.
+    /// Motor on, steady at the present position.
     Enable,
     /// Motor off.
     Disable,
@@ -62,7 +62,7 @@ pub enum AxisCommand {
     },
     /// A copy of the full-rate history ring.
     History,
-    /// Run a bounded commissioning experiment (the axis must be holding).
+    /// Run a bounded commissioning experiment (the axis must be steady).
     Experiment {
         /// What to do.
         spec: ExperimentSpec,
