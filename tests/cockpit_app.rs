@@ -370,3 +370,36 @@ fn a_test_never_enables_an_axis_by_itself() {
     let why = p.error.as_deref().unwrap_or_default();
     assert!(why.contains("disabled") && why.contains("press e"), "{why}");
 }
+
+#[test]
+fn engine_events_an_operator_must_know_reach_the_event_panel() {
+    use servotty::engine::{Event, EventKind};
+    let mut app = s::normal();
+    let x = Some(std::sync::Arc::from("x"));
+    let feed = [
+        (x.clone(), EventKind::Gains { changes: vec!["kp 20.0 → 25.0".into()] }, Kind::Info),
+        (
+            x.clone(),
+            EventKind::LinkQuality { missed: 250, bad: 0, window: 1000, poor: true },
+            Kind::Link,
+        ),
+        (None, EventKind::RecorderFailed { what: "event log write failed".into() }, Kind::Refused),
+        (None, EventKind::Interrupted { signal: "SIGTERM".into() }, Kind::Info),
+    ];
+    for (axis, kind, _) in &feed {
+        app.on_notice(now(), Notice::Engine(Event::now(axis.clone(), None, kind.clone())));
+    }
+    let entries: Vec<_> = app.log.entries().iter().rev().take(4).collect();
+    let texts: Vec<&str> = entries.iter().rev().map(|e| e.text.as_str()).collect();
+    assert_eq!(
+        texts,
+        [
+            "x: gains changed live: kp 20.0 → 25.0",
+            "x: poor link: 250 missed and 0 bad of the last 1000 frames",
+            "machine: RECORDER FAILED: event log write failed",
+            "machine: interrupted by SIGTERM: motors off",
+        ]
+    );
+    let kinds: Vec<Kind> = entries.iter().rev().map(|e| e.kind).collect();
+    assert_eq!(kinds, feed.iter().map(|f| f.2).collect::<Vec<_>>());
+}

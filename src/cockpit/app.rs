@@ -784,12 +784,24 @@ impl App {
             }
             Notice::Engine(ev) => {
                 let who = ev.axis.as_deref().unwrap_or("machine").to_owned();
+                let what = ev.what();
                 match ev.kind {
                     crate::engine::EventKind::Capture { path } => {
                         self.note(Kind::Info, format!("{who}: trip capture written: {path}"));
                     }
                     crate::engine::EventKind::Notice { text } => {
                         self.note(Kind::Info, format!("{who}: {text}"));
+                    }
+                    // What an operator must know, in the engine's own words.
+                    crate::engine::EventKind::Gains { .. }
+                    | crate::engine::EventKind::Interrupted { .. } => {
+                        self.note(Kind::Info, format!("{who}: {what}"));
+                    }
+                    crate::engine::EventKind::LinkQuality { .. } => {
+                        self.note(Kind::Link, format!("{who}: {what}"));
+                    }
+                    crate::engine::EventKind::RecorderFailed { .. } => {
+                        self.note(Kind::Refused, format!("{who}: {what}"));
                     }
                     _ => {}
                 }

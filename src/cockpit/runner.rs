@@ -81,6 +81,10 @@ where
                             ev.kind,
                             crate::engine::EventKind::Capture { .. }
                                 | crate::engine::EventKind::Notice { .. }
+                                | crate::engine::EventKind::Gains { .. }
+                                | crate::engine::EventKind::LinkQuality { .. }
+                                | crate::engine::EventKind::RecorderFailed { .. }
+                                | crate::engine::EventKind::Interrupted { .. }
                         );
                         if wanted && tx.send(Notice::Engine(ev)).await.is_err() {
                             return;

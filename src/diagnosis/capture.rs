@@ -480,8 +480,12 @@ impl Columns {
             f[i].parse::<i64>()
                 .map_err(|_| format!("field {} ({:?}) is not a whole number", i + 1, f[i]))
         };
+        // A state word this version does not know (renamed since the file was written)
+        // reads as motor on and standing: only `tripped` and the motion states steer the
+        // rules, and those are kept.
         let state = match self.state {
-            Some(i) => state_of(f[i]).ok_or_else(|| format!("unknown state {:?}", f[i]))?,
+            Some(i) if f[i].is_empty() => return Err(format!("field {} (state) is empty", i + 1)),
+            Some(i) => state_of(f[i]).unwrap_or(AxisState::Steady),
             None => AxisState::Moving,
         };
         let target = num(self.target)?;
@@ -563,6 +567,15 @@ mod tests {
         assert_eq!(e.line, 2);
         let e = CaptureFile::parse("# only\n").expect_err("empty");
         assert!(e.message.contains("header"));
+    }
+
+    #[test]
+    fn a_state_word_from_another_version_still_reads() {
+        let text = "axis,t,position,state\nx,0.1,2,holding\nx,0.2,2,tripped\n";
+        let r = CaptureFile::parse(text).expect("reads").record(None).expect("x");
+        assert_eq!(r.rows[0].state, AxisState::Steady);
+        assert_eq!(r.rows[1].state, AxisState::Tripped);
+        assert!(CaptureFile::parse("axis,t,position,state\nx,0.1,2,\n").is_err());
     }
 
     #[test]

@@ -77,6 +77,28 @@ pub enum EventKind {
         /// Where.
         path: String,
     },
+    /// Controller parameters changed while the axis runs (live tuning), old → new.
+    Gains {
+        /// One `key old → new` per changed key.
+        changes: Vec<String>,
+    },
+    /// The link's quality over the last window of frames fell below the threshold, or
+    /// recovered.
+    LinkQuality {
+        /// Frames lost (missing sequence numbers) in the window.
+        missed: u64,
+        /// Frames rejected by the decoder in the window.
+        bad: u64,
+        /// Frames expected in the window.
+        window: u64,
+        /// True when the window was poor; false for the recovery.
+        poor: bool,
+    },
+    /// The recorder could not write the event log or a capture.
+    RecorderFailed {
+        /// What could not be written, and why.
+        what: String,
+    },
     /// A signal from outside ended the command; every motor is being turned off.
     Interrupted {
         /// `SIGINT`, `SIGTERM` or `SIGHUP`.
@@ -99,7 +121,14 @@ impl Event {
     /// One line for screens.
     pub fn summary(&self) -> String {
         let who = self.axis.as_deref().unwrap_or("machine");
-        let what = match &self.kind {
+        let what = self.what();
+        let clock = self.time.get(11..19).unwrap_or("");
+        format!("{clock} {who}: {what}")
+    }
+
+    /// What happened, in words (no time, no axis).
+    pub fn what(&self) -> String {
+        match &self.kind {
             EventKind::State { from, to } => format!("{from} → {to}"),
             EventKind::Trip { trip } => format!("TRIP {}: {}", trip.cause, trip.detail),
             EventKind::Operator { action, accepted: true, .. } => action.clone(),
@@ -113,10 +142,16 @@ impl Event {
             EventKind::Notice { text } => text.clone(),
             EventKind::Capture { path } => format!("capture written: {path}"),
             EventKind::Interrupted { signal } => format!("interrupted by {signal}: motors off"),
+            EventKind::Gains { changes } => format!("gains changed live: {}", changes.join(", ")),
+            EventKind::LinkQuality { missed, bad, window, poor: true } => {
+                format!("poor link: {missed} missed and {bad} bad of the last {window} frames")
+            }
+            EventKind::LinkQuality { window, .. } => {
+                format!("link quality back to normal over the last {window} frames")
+            }
+            EventKind::RecorderFailed { what } => format!("RECORDER FAILED: {what}"),
             EventKind::AxisEnded { reason } => format!("AXIS TASK ENDED: {reason}"),
-        };
-        let clock = self.time.get(11..19).unwrap_or("");
-        format!("{clock} {who}: {what}")
+        }
     }
 }
 

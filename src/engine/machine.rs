@@ -56,11 +56,16 @@ pub enum StartError {
     },
 }
 
+/// Longest shutdown waits for pending trip captures before it turns the motors off, s.
+const FLUSH_LIMIT: Duration = Duration::from_secs(2);
+
 /// A running machine. Dropping it without [`Machine::shutdown`] aborts the tasks; the boards'
 /// watchdogs then turn the motors off.
 pub struct Machine {
     handle: MachineHandle,
     shutdown: watch::Sender<bool>,
+    /// Asks the recorder to finish the captures already due (None without a recorder).
+    flush: Option<mpsc::Sender<crate::engine::recorder::Flush>>,
     tasks: JoinSet<TaskEnd>,
     /// Names of the axis tasks still running (in configuration order).
     running: Vec<String>,
@@ -224,7 +229,10 @@ impl Machine {
         }
         let axes: Arc<[AxisHandle]> = handles.into();
         let config = Arc::new(cfg.clone());
+        let mut flush = None;
         if let Some(paths) = &recorder {
+            let (flush_tx, flush_rx) = mpsc::channel(1);
+            flush = Some(flush_tx);
             let rec = crate::engine::recorder::run(
                 paths.clone(),
                 events_rx,
@@ -232,6 +240,7 @@ impl Machine {
                 axes.clone(),
                 config.clone(),
                 shutdown_tx.subscribe(),
+                flush_rx,
             );
             tasks.spawn(async move {
                 rec.await;
@@ -249,6 +258,7 @@ impl Machine {
                 recorder: recorder.map(Arc::new),
             },
             shutdown: shutdown_tx,
+            flush,
             tasks,
             running: cfg.axes.iter().map(|a| a.name.clone()).collect(),
             sims: Vec::new(),
@@ -274,9 +284,24 @@ impl Machine {
     /// running then are aborted (their boards' watchdogs turn the motors off) and named in
     /// the report, as are axes whose task had ended on its own.
     pub async fn shutdown_within(mut self, limit: Duration) -> ShutdownReport {
+        let deadline = tokio::time::Instant::now().checked_add(limit);
+        // Every trip already reported gets its capture while the axes still answer for their
+        // history; a headless command that ends right after a trip would otherwise leave an
+        // empty file. Bounded: shutdown must still turn the motors off.
+        if let Some(flush) = self.flush.take() {
+            let (done_tx, done_rx) = tokio::sync::oneshot::channel();
+            let wait = async {
+                if flush.send(done_tx).await.is_ok() {
+                    let _ = done_rx.await;
+                }
+            };
+            let bound = limit.min(FLUSH_LIMIT);
+            if tokio::time::timeout(bound, wait).await.is_err() {
+                tracing::warn!("trip captures not finished before shutdown");
+            }
+        }
         let _ = self.shutdown.send(true);
         let mut report = ShutdownReport::default();
-        let deadline = tokio::time::Instant::now().checked_add(limit);
         loop {
             let next = match deadline {
                 Some(d) => match tokio::time::timeout_at(d, self.tasks.join_next()).await {

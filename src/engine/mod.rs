@@ -6,6 +6,7 @@
 //! - [`supervisor`]: the trip rules, as pure per-frame logic.
 //! - [`snapshot`]: what an axis publishes for the UI and recorders.
 //! - [`link_meter`]: link health and host turnaround measurements.
+//! - [`link_quality`]: events when the link's recent frames are poor, and when it recovers.
 //! - [`homing`]: homing sequences as a pure state machine.
 //! - [`experiment`]: bounded commissioning experiments (duty pulses, ramps, relay, steps).
 //! - [`history`]: the full-rate history ring kept for trip captures.
@@ -20,6 +21,7 @@ pub mod history;
 pub mod homing;
 pub mod line_move;
 pub mod link_meter;
+pub mod link_quality;
 pub mod machine;
 pub mod recorder;
 pub mod refusal;

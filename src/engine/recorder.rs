@@ -20,9 +20,9 @@ use crate::engine::events::{rfc3339_utc, Event, EventKind};
 use crate::engine::history::Sample;
 use crate::engine::snapshot::Trip;
 
-/// History recorded after a trip before the capture is taken, so the capture shows the
-/// trip and what the axis did right after it.
-const AFTER_TRIP: Duration = Duration::from_millis(200);
+/// Longest the recorder waits for one axis's history for a capture: an axis answers
+/// within a frame or two, one that does not (link-less and idle it still answers) is left out.
+const HISTORY_WAIT: Duration = Duration::from_millis(500);
 
 /// Where the recorder writes.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -66,7 +66,15 @@ pub fn state_dir() -> PathBuf {
     PathBuf::from("servotty-state")
 }
 
+/// A request to finish every capture already due; answered once they are written.
+pub type Flush = tokio::sync::oneshot::Sender<()>;
+
 /// Runs until shutdown (or until the event channel closes).
+///
+/// A capture is taken as soon as its trip event arrives: the histories are asked for at
+/// once (they hold the seconds before the trip), never after a delay by which a headless
+/// command may have ended the axes. `flush` lets shutdown wait until every trip already
+/// reported has its capture written, before the axis tasks end.
 pub async fn run(
     paths: RecorderPaths,
     mut events: broadcast::Receiver<Event>,
@@ -74,11 +82,19 @@ pub async fn run(
     axes: Arc<[AxisHandle]>,
     cfg: Arc<MachineConfig>,
     mut shutdown: watch::Receiver<bool>,
+    mut flush: tokio::sync::mpsc::Receiver<Flush>,
 ) {
-    let mut log = open_log(&paths.event_log).await;
+    let mut log = open_log(&paths.event_log, &emit).await;
     loop {
         let ev = tokio::select! {
             biased;
+            Some(done) = flush.recv() => {
+                while let Ok(ev) = events.try_recv() {
+                    record(&mut log, &ev, &paths, &emit, &axes, &cfg).await;
+                }
+                let _ = done.send(());
+                continue;
+            }
             r = events.recv() => match r {
                 Ok(ev) => ev,
                 Err(broadcast::error::RecvError::Lagged(n)) => {
@@ -92,37 +108,52 @@ pub async fn run(
             _ = shutdown.changed() => {
                 // Drain what is already queued so the log ends complete.
                 while let Ok(ev) = events.try_recv() {
-                    write_event(&mut log, &ev).await;
+                    write_event(&mut log, &ev, &emit).await;
                 }
                 return;
             }
         };
-        write_event(&mut log, &ev).await;
-        if let EventKind::Trip { trip } = &ev.kind {
-            let axis = ev.axis.as_deref().unwrap_or("?").to_owned();
-            tokio::time::sleep(AFTER_TRIP).await;
-            match capture(&paths.captures_dir, &axis, trip, &axes, &cfg).await {
-                Ok(path) => {
-                    let _ = emit.send(Event::now(
-                        ev.axis.clone(),
-                        None,
-                        EventKind::Capture { path: path.display().to_string() },
-                    ));
-                }
-                Err(e) => {
-                    tracing::error!(error = %e, "capture not written");
-                    let _ = emit.send(Event::now(
-                        ev.axis.clone(),
-                        None,
-                        EventKind::Notice { text: format!("trip capture not written: {e}") },
-                    ));
-                }
-            }
+        record(&mut log, &ev, &paths, &emit, &axes, &cfg).await;
+    }
+}
+
+/// Logs one event and, for a trip, writes its capture.
+async fn record(
+    log: &mut Option<tokio::fs::File>,
+    ev: &Event,
+    paths: &RecorderPaths,
+    emit: &broadcast::Sender<Event>,
+    axes: &[AxisHandle],
+    cfg: &MachineConfig,
+) {
+    write_event(log, ev, emit).await;
+    let EventKind::Trip { trip } = &ev.kind else { return };
+    let axis = ev.axis.as_deref().unwrap_or("?").to_owned();
+    match capture(&paths.captures_dir, &axis, trip, axes, cfg).await {
+        Ok(path) => {
+            let _ = emit.send(Event::now(
+                ev.axis.clone(),
+                None,
+                EventKind::Capture { path: path.display().to_string() },
+            ));
+        }
+        Err(e) => {
+            tracing::error!(error = %e, "capture not written");
+            let _ = emit.send(Event::now(
+                ev.axis.clone(),
+                None,
+                EventKind::RecorderFailed {
+                    what: format!(
+                        "trip capture not written in {}: {e}",
+                        paths.captures_dir.display()
+                    ),
+                },
+            ));
         }
     }
 }
 
-async fn open_log(path: &Path) -> Option<tokio::fs::File> {
+async fn open_log(path: &Path, emit: &broadcast::Sender<Event>) -> Option<tokio::fs::File> {
     if let Some(dir) = path.parent() {
         let _ = tokio::fs::create_dir_all(dir).await;
     }
@@ -130,18 +161,42 @@ async fn open_log(path: &Path) -> Option<tokio::fs::File> {
         Ok(f) => Some(f),
         Err(e) => {
             tracing::error!(path = %path.display(), error = %e, "cannot open the event log");
+            let _ = emit.send(Event::now(
+                None,
+                None,
+                EventKind::RecorderFailed {
+                    what: format!("event log {} cannot be opened: {e}", path.display()),
+                },
+            ));
             None
         }
     }
 }
 
-async fn write_event(log: &mut Option<tokio::fs::File>, ev: &Event) {
+async fn write_event(
+    log: &mut Option<tokio::fs::File>,
+    ev: &Event,
+    emit: &broadcast::Sender<Event>,
+) {
     let Some(f) = log.as_mut() else { return };
     let Ok(mut line) = serde_json::to_string(ev) else { return };
     line.push('\n');
-    if f.write_all(line.as_bytes()).await.is_err() || f.flush().await.is_err() {
-        tracing::error!("event log write failed; event logging stops");
+    if let Err(e) = async {
+        f.write_all(line.as_bytes()).await?;
+        f.flush().await
+    }
+    .await
+    {
+        tracing::error!(error = %e, "event log write failed; event logging stops");
         *log = None;
+        // Shown on screens (the cockpit's event panel); the log itself can no longer say it.
+        let _ = emit.send(Event::now(
+            None,
+            None,
+            EventKind::RecorderFailed {
+                what: format!("event log write failed, logging stopped: {e}"),
+            },
+        ));
     }
 }
 
@@ -159,7 +214,9 @@ pub async fn capture(
 ) -> std::io::Result<PathBuf> {
     let mut rows: Vec<(String, Vec<Sample>)> = Vec::new();
     for a in axes {
-        if let Ok(Reply::History(h)) = a.send(AxisCommand::History).await {
+        if let Ok(Ok(Reply::History(h))) =
+            tokio::time::timeout(HISTORY_WAIT, a.send(AxisCommand::History)).await
+        {
             rows.push((a.name().to_owned(), h));
         }
     }

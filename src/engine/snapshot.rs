@@ -92,6 +92,18 @@ pub enum TripCause {
     BoardFault,
     /// A homing step exceeded its travel or time bound.
     Homing,
+    /// The board's watchdog turned the motor off while the host was driving it (no duty
+    /// reached the board for longer than its watchdog: a host stall, a USB hiccup).
+    BoardWatchdog,
+    /// The board reports its motor off while the host was driving it, with no watchdog bit
+    /// (the board restarted or refused the duty).
+    BoardMotorOff,
+    /// A move did not reach its in-position band within its planned time plus
+    /// `limits.settle_timeout_s`.
+    NotInPosition,
+    /// The motor heating estimate (duty² filtered with `limits.thermal_time_s`) passed the
+    /// square of `limits.continuous_duty`.
+    Thermal,
 }
 
 impl TripCause {
@@ -106,6 +118,10 @@ impl TripCause {
             Self::SoftLimit => "soft limit",
             Self::BoardFault => "board fault",
             Self::Homing => "homing failed",
+            Self::BoardWatchdog => "board watchdog",
+            Self::BoardMotorOff => "motor off by the board",
+            Self::NotInPosition => "not in position",
+            Self::Thermal => "motor heating",
         }
     }
 }

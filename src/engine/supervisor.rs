@@ -36,6 +36,27 @@ pub struct Observation {
     pub limits_active: bool,
     /// Whether the following-error rule applies (off while a step test jumps the target).
     pub following_active: bool,
+    /// Whether the host is sending duty now (any motor-on state, pushing and open-loop tests
+    /// included): the board-status and heating rules apply whenever it is.
+    pub host_drives: bool,
+    /// Whether the board has acknowledged (`ack_seq`) a duty of the present drive: before
+    /// that, its motor-off status is from before the host started driving.
+    pub drive_acked: bool,
+    /// The board's status bits say the motor is on.
+    pub board_motor_on: bool,
+    /// The board's status bits say its watchdog turned the motor off.
+    pub board_watchdog: bool,
+    /// Breakaway duty in the direction of `duty`, % (controller.min_duty_forward or
+    /// min_duty_reverse): above it (plus the stall margin) the axis should move.
+    pub breakaway: f64,
+    /// The move's in-position band, units: the breakaway stall rule applies only while the
+    /// axis is farther than this from its target (it is asked to move).
+    pub position_band: f64,
+    /// Board time at which the running move's profile ends, s, while a move has not yet
+    /// reached its in-position band; None otherwise.
+    pub move_planned_end: Option<f64>,
+    /// Board watchdog, ms, for the operator's sentence.
+    pub watchdog_ms: u16,
 }
 
 /// A check that fired: cause and a sentence for the operator.
@@ -56,6 +77,11 @@ pub struct Supervisor {
     min_speed: f64,
     stall: Option<(f64, i64)>,
     runaway: Option<(f64, f64)>,
+    /// Motor heating estimate: duty² (duty as a fraction of full) through a first-order lag.
+    /// Never reset by a trip or a clear: the winding stays hot.
+    heat: f64,
+    /// Board time of the previous observation, for the heating estimate's step.
+    last_t: Option<f64>,
 }
 
 impl Supervisor {
@@ -70,6 +96,18 @@ impl Supervisor {
             min_speed,
             stall: None,
             runaway: None,
+            heat: 0.0,
+            last_t: None,
+        }
+    }
+
+    /// The heating estimate as a fraction of its trip level (1.0 trips).
+    pub fn heat_share(&self) -> f64 {
+        let c = self.limits.continuous_duty / 100.0;
+        if c >= 1.0 {
+            0.0
+        } else {
+            self.heat / (c * c)
         }
     }
 
@@ -87,6 +125,13 @@ impl Supervisor {
 
     /// Runs every check on one frame; the first that fires wins.
     pub fn observe(&mut self, o: &Observation) -> Option<Finding> {
+        // The board's word is final (brief.md, settled): it explains whatever else follows.
+        if let Some(f) = self.check_board(o) {
+            return Some(f);
+        }
+        if let Some(f) = self.check_heating(o) {
+            return Some(f);
+        }
         // The encoder check runs even with the motor off: a jump is a wiring or noise fault
         // whatever the drive is doing, and it poisons the position reference.
         let allowed = u64::from(self.limits.encoder_jump_counts) * u64::from(o.ticks.max(1));
@@ -141,11 +186,94 @@ impl Supervisor {
                 ),
             });
         }
+        if let Some(f) = self.check_settling(o) {
+            return Some(f);
+        }
         self.check_stall(o)
     }
 
+    /// A board that switched its motor off while the host drives it is a latched trip, never
+    /// silently re-driven: the next duty would power the motor again with nobody knowing
+    /// why it stopped.
+    fn check_board(&self, o: &Observation) -> Option<Finding> {
+        if !(o.host_drives && o.drive_acked) {
+            return None;
+        }
+        if o.board_watchdog {
+            return Some(Finding {
+                cause: TripCause::BoardWatchdog,
+                detail: format!(
+                    "the board's watchdog turned the motor off: no duty reached it for over {} ms (host stalled, or the USB link paused); check the host's load and the cable, then clear",
+                    o.watchdog_ms
+                ),
+            });
+        }
+        if !o.board_motor_on {
+            return Some(Finding {
+                cause: TripCause::BoardMotorOff,
+                detail: "the board reports its motor off while the host drives it (board reset, brown-out or refused duty): check the board's supply, then clear"
+                    .to_owned(),
+            });
+        }
+        None
+    }
+
+    /// Motor heating, estimated without a current sensor: the winding's I²R heat follows
+    /// duty² at stall (I = duty × V / R with no back-EMF; at speed the real current is lower,
+    /// so the estimate errs on the hot side), through a first-order lag with the winding's
+    /// thermal time constant, compared with the square of the continuous duty. Common
+    /// practice in servo drives as an I²t limit (from memory; check-values.md "Motor
+    /// heating").
+    fn check_heating(&mut self, o: &Observation) -> Option<Finding> {
+        let dt = self.last_t.map_or(0.0, |t0| (o.t - t0).max(0.0));
+        self.last_t = Some(o.t);
+        let d = if o.host_drives { (o.duty / 100.0).clamp(-1.0, 1.0) } else { 0.0 };
+        let tau = self.limits.thermal_time_s.max(1e-3);
+        self.heat += (d * d - self.heat) * (1.0 - (-dt / tau).exp());
+        let c = self.limits.continuous_duty / 100.0;
+        if c >= 1.0 || !o.host_drives || self.heat <= c * c {
+            return None;
+        }
+        Some(Finding {
+            cause: TripCause::Thermal,
+            detail: format!(
+                "estimated motor heating passed its limit: duty {:.0} % now, a running rms of {:.0} % against a continuous {:.0} % (time constant {:.0} s); let the motor cool, check for a binding load, lower the duty or the duty cycle of the moves",
+                o.duty,
+                100.0 * self.heat.sqrt(),
+                self.limits.continuous_duty,
+                self.limits.thermal_time_s
+            ),
+        })
+    }
+
+    /// A move must reach its band within its planned time plus the settle timeout; a jam
+    /// short of the goal, or a load the motor cannot push, otherwise sits in `moving`.
+    fn check_settling(&self, o: &Observation) -> Option<Finding> {
+        let end = o.move_planned_end?;
+        let late = o.t - end;
+        if late <= self.limits.settle_timeout_s {
+            return None;
+        }
+        let u = &self.unit;
+        Some(Finding {
+            cause: TripCause::NotInPosition,
+            detail: format!(
+                "the move is {:.3} {u} from its target {late:.2} s after its profile ended (allowed {:.2} s) at duty {:.0} %: check for a jam, a load beyond the motor, or too little gain near the target",
+                o.target - o.position,
+                self.limits.settle_timeout_s,
+                o.duty
+            ),
+        })
+    }
+
     fn check_stall(&mut self, o: &Observation) -> Option<Finding> {
-        if o.duty.abs() <= self.limits.stall_duty {
+        // Above the axis's own breakaway (plus a margin for static friction) it should move,
+        // at any duty, whenever it is asked to; above stall_duty always.
+        let asked = (o.target - o.position).abs() > o.position_band;
+        let low = o.breakaway + self.limits.stall_margin_duty;
+        let threshold =
+            if asked { self.limits.stall_duty.min(low) } else { self.limits.stall_duty };
+        if o.duty.abs() <= threshold {
             self.stall = None;
             return None;
         }
@@ -156,10 +284,10 @@ impl Supervisor {
                     return Some(Finding {
                         cause: TripCause::Stall,
                         detail: format!(
-                            "duty {:.0} % (above {:.0} %) for {:.2} s with no encoder motion: \
-                             check for a jam, a hard stop, motor power, or a broken coupling",
+                            "duty {:.0} % (above {threshold:.0} %) for {:.2} s with no encoder \
+                             motion: check for a jam, a hard stop, motor power, or a broken \
+                             coupling",
                             o.duty,
-                            self.limits.stall_duty,
                             o.t - since
                         ),
                     });
@@ -349,5 +477,122 @@ mod tests {
         assert_eq!(s.observe(&o).map(|f| f.cause), Some(TripCause::SoftLimit));
         o.limits_active = false;
         assert_eq!(s.observe(&o), None);
+    }
+
+    /// Frames 1 ms apart from t = 0 with `f` shaping each; the first finding and its time.
+    fn run_until(
+        s: &mut Supervisor,
+        secs: f64,
+        f: impl Fn(&mut Observation),
+    ) -> Option<(TripCause, f64)> {
+        let n = (secs * 1000.0).round() as i64;
+        (0..=n).find_map(|k| {
+            let mut o = obs(k as f64 * 0.001);
+            f(&mut o);
+            s.observe(&o).map(|x| (x.cause, o.t))
+        })
+    }
+
+    fn driving(o: &mut Observation) {
+        o.host_drives = true;
+        o.drive_acked = true;
+        o.board_motor_on = true;
+        o.watchdog_ms = 50;
+    }
+
+    // The board's status is final (brief.md, settled in round two; docs/protocol.md's
+    // watchdog contract): servotty's own rule, common practice, no outside source.
+    #[test]
+    fn a_board_that_cut_the_motor_latches_its_own_cause() {
+        let mut s = sup();
+        let mut o = obs(0.0);
+        driving(&mut o);
+        assert_eq!(s.observe(&o), None);
+        o.board_watchdog = true;
+        o.board_motor_on = false;
+        let f = s.observe(&o).expect("trips");
+        assert_eq!(f.cause, TripCause::BoardWatchdog);
+        assert!(f.detail.contains("50 ms"), "{f:?}");
+        o.board_watchdog = false;
+        assert_eq!(s.observe(&o).map(|f| f.cause), Some(TripCause::BoardMotorOff));
+        // Before the board has acknowledged the drive, its motor-off status is old news.
+        o.drive_acked = false;
+        assert_eq!(s.observe(&o), None);
+        // Not driving (disabled, stopped): the board's motor is meant to be off.
+        o.drive_acked = true;
+        o.host_drives = false;
+        o.motor_on = false;
+        assert_eq!(s.observe(&o), None);
+    }
+
+    // servotty's own rule (common practice, no source): a jam is no motion while the duty
+    // stays above the axis's breakaway plus a margin, whatever the absolute duty.
+    #[test]
+    fn a_jam_at_moderate_duty_is_a_stall_when_the_axis_is_asked_to_move() {
+        let jammed = |o: &mut Observation| {
+            o.duty = 40.0; // below stall_duty (50 %), well above breakaway 8.5 % + 10 %
+            o.breakaway = 8.5;
+            o.position_band = 0.1;
+            o.target = 1.0;
+            o.count = 0;
+        };
+        let (cause, at) = run_until(&mut sup(), 2.0, jammed).expect("trips");
+        assert_eq!(cause, TripCause::Stall);
+        assert!((at - 0.5).abs() < 0.002, "at {at}");
+        // Holding inside the band at the same duty (static friction) is not a stall.
+        let holding = |o: &mut Observation| {
+            jammed(o);
+            o.target = 0.05;
+        };
+        assert_eq!(run_until(&mut sup(), 2.0, holding), None);
+        // Below breakaway + margin it is not a stall either.
+        let gentle = |o: &mut Observation| {
+            jammed(o);
+            o.duty = 15.0;
+        };
+        assert_eq!(run_until(&mut sup(), 2.0, gentle), None);
+    }
+
+    #[test]
+    fn a_move_not_in_position_after_its_planned_time_and_margin_trips() {
+        let late = |o: &mut Observation| {
+            o.target = 1.0;
+            o.position = 0.7;
+            o.duty = 12.0;
+            o.breakaway = 8.5; // 12 % < 8.5 % + 10 %: not a stall
+            o.move_planned_end = Some(0.3);
+        };
+        let (cause, at) = run_until(&mut sup(), 5.0, late).expect("trips");
+        assert_eq!(cause, TripCause::NotInPosition);
+        // settle_timeout_s = 2.0 after the profile's end at 0.3 s.
+        assert!((at - 2.3).abs() < 0.002, "at {at}");
+    }
+
+    // First-order thermal model driven by duty²: common practice in drives as an I²t limit
+    // (from memory; check-values.md "Motor heating"). For a step of duty d from cold the
+    // estimate is d²(1 − e^(−t/τ)); it passes c² at t = −τ ln(1 − c²/d²). With d = 100 %,
+    // c = 50 %, τ = 30 s: t = 30 ln(4/3) = 8.6305 s.
+    #[test]
+    fn heating_trips_where_the_first_order_model_says() {
+        let mut l = limits();
+        l.continuous_duty = 50.0;
+        l.thermal_time_s = 30.0;
+        let mut s = Supervisor::new(&l, "mm", 24.0, 200.0);
+        let full = |o: &mut Observation| {
+            driving(o);
+            o.duty = -100.0;
+            o.motor_on = false; // pushing or open loop: the heating rule still applies
+        };
+        let (cause, at) = run_until(&mut s, 20.0, full).expect("trips");
+        assert_eq!(cause, TripCause::Thermal);
+        let expected = 30.0 * (4.0_f64 / 3.0).ln();
+        assert!((at - expected).abs() < 0.002, "at {at}, expected {expected}");
+        // At the continuous duty itself it never trips.
+        let mut s = Supervisor::new(&l, "mm", 24.0, 200.0);
+        let rated = |o: &mut Observation| {
+            driving(o);
+            o.duty = 49.9;
+        };
+        assert_eq!(run_until(&mut s, 200.0, rated), None);
     }
 }

@@ -99,6 +99,10 @@ impl AxisCore {
                 (Ok(Reply::Done), false)
             }
             AxisCommand::SetController(c) => {
+                let changes = controller_changes(&self.cfg.controller, &c);
+                if !changes.is_empty() {
+                    self.event(EventKind::Gains { changes });
+                }
                 self.controller.set_config(&c);
                 self.cfg.controller = c;
                 (Ok(Reply::Done), false)
@@ -199,6 +203,7 @@ impl AxisCore {
     fn plan_move(&mut self, goal: f64, lim: Limits) {
         let profile = Profile::plan(self.setpoint, goal, lim);
         self.profile = Some(ActiveProfile { profile, t0: self.t, purpose: Purpose::Move });
+        self.move_planned_end = self.t + profile.duration();
         self.goal = goal;
         self.state = AxisState::Moving;
         self.settle_since = None;
@@ -400,4 +405,23 @@ impl AxisCore {
     pub(super) fn refuse(&self, reason: Refusal) -> CommandError {
         CommandError::Refused { axis: self.cfg.name.clone(), reason }
     }
+}
+
+/// The controller keys that differ between `old` and `new`, as `key old → new`, in the
+/// configuration's own key names (read through serde, so every key is covered).
+fn controller_changes(
+    old: &crate::config::ControllerConfig,
+    new: &crate::config::ControllerConfig,
+) -> Vec<String> {
+    let (Ok(toml::Value::Table(a)), Ok(toml::Value::Table(b))) =
+        (toml::Value::try_from(old), toml::Value::try_from(new))
+    else {
+        return Vec::new();
+    };
+    b.iter()
+        .filter_map(|(k, v)| {
+            let was = a.get(k)?;
+            (was != v).then(|| format!("{k} {was} → {v}"))
+        })
+        .collect()
 }

@@ -22,6 +22,7 @@ use crate::engine::events::EventKind;
 use crate::engine::experiment::{ExperimentResult, ExperimentRun};
 use crate::engine::history::History;
 use crate::engine::homing::HomingRun;
+use crate::engine::link_quality::LinkQuality;
 use crate::engine::snapshot::{AxisSnapshot, AxisState, Trip, TripCause};
 use crate::engine::supervisor::Supervisor;
 use crate::protocol::{self, HostMessage, Telemetry};
@@ -38,6 +39,37 @@ pub struct Output {
 
 impl Output {
     const NOTHING: Self = Self { send: None, ticks: 0 };
+}
+
+/// A stretch of duty answers, from the first Duty after Stop answers.
+#[derive(Debug, Clone, Copy)]
+pub(super) struct Drive {
+    /// Seq echoed by the first duty answer.
+    pub(super) since_seq: u16,
+    /// The board showed its motor on with an `ack_seq` of this drive: from then on a motor
+    /// it reports off is a trip.
+    pub(super) confirmed: bool,
+    /// Board ticks since the drive began.
+    pub(super) ticks: u32,
+}
+
+impl Drive {
+    /// Feeds one frame; true once the board's status counts: confirmed (motor on with an
+    /// ack of this drive), or never confirmed within `grace_ticks` (a board that ignores its
+    /// duty is as wrong as one that drops it). An ack alone is not proof: after Configure
+    /// the board's ack_seq starts at 0, which a drive beginning at seq 0 would match.
+    pub(super) fn frame(
+        &mut self,
+        ack_seq: u16,
+        motor_on: bool,
+        ticks: u32,
+        grace_ticks: u32,
+    ) -> bool {
+        self.ticks = self.ticks.saturating_add(ticks);
+        let acked = ack_seq.wrapping_sub(self.since_seq) < u16::MAX / 2;
+        self.confirmed |= acked && motor_on;
+        self.confirmed || self.ticks > grace_ticks
+    }
 }
 
 /// One axis's state and decisions.
@@ -80,6 +112,13 @@ pub struct AxisCore {
     /// In-position dwell (moves) or standstill wait (category 1 stop) started at, board s.
     pub(super) settle_since: Option<f64>,
     pub(super) moves: MoveStats,
+    /// Board time the running move's profile ends, s (for the not-in-position rule).
+    pub(super) move_planned_end: f64,
+    /// The present drive (None while the answers are Stop): whether the board has confirmed
+    /// it, which is when its status bits start to count.
+    pub(super) drive: Option<Drive>,
+    /// Bad and missed frames over the last second, for link-quality events.
+    quality: LinkQuality,
     pub(super) history: History,
     /// Events raised since the shell last took them, with the board time they happened at.
     events: Vec<(Option<f64>, EventKind)>,
@@ -96,6 +135,7 @@ impl AxisCore {
             cfg.motion.max_velocity,
         );
         let history = History::new(history_seconds, cfg.board.tick_hz);
+        let tick_hz = cfg.board.tick_hz;
         Self {
             name: Arc::from(cfg.name.as_str()),
             cfg,
@@ -125,6 +165,9 @@ impl AxisCore {
             duty: 0.0,
             settle_since: None,
             moves: MoveStats::default(),
+            move_planned_end: 0.0,
+            drive: None,
+            quality: LinkQuality::new(tick_hz),
             history,
             events: Vec::new(),
         }
@@ -154,7 +197,17 @@ impl AxisCore {
     /// (duty or stop) is in `send`; after a backlog the shell writes only the last one.
     pub fn on_frame(&mut self, tm: &Telemetry, host_now: Instant) -> Output {
         let ticks = self.on_telemetry(tm, host_now);
-        Output { send: Some(self.answer()), ticks }
+        if let Some(e) = self.quality.frame(ticks) {
+            self.event(e);
+        }
+        let send = self.answer();
+        match send {
+            HostMessage::Duty { seq, .. } => {
+                self.drive.get_or_insert(Drive { since_seq: seq, confirmed: false, ticks: 0 });
+            }
+            _ => self.drive = None,
+        }
+        Output { send: Some(send), ticks }
     }
 
     /// An operator command at `host_now`. `send` holds Stop when the motor must go off at
@@ -183,6 +236,7 @@ impl AxisCore {
     pub fn link_up(&mut self, detail: String) {
         self.link_up = true;
         self.last = None;
+        self.quality = LinkQuality::new(self.cfg.board.tick_hz);
         self.event(EventKind::Link { up: true, detail });
         if self.state == AxisState::Offline {
             self.state = if self.stop.latched { AxisState::Stopped } else { AxisState::Disabled };
@@ -193,6 +247,11 @@ impl AxisCore {
     pub fn telemetry_resumed(&mut self) {
         self.link_up = true;
         self.event(EventKind::Link { up: true, detail: "telemetry resumed".to_owned() });
+    }
+
+    /// A frame the decoder rejected (CRC, framing): counts against the link's quality.
+    pub fn bad_frame(&mut self) {
+        self.quality.bad_frame();
     }
 
     /// Whether the core counts the link as up.
@@ -226,6 +285,7 @@ impl AxisCore {
     /// Stop, at once: the duty is zero from now on (disable, stop-all category 0, shutdown).
     pub fn motor_off(&mut self) -> Output {
         self.duty = 0.0;
+        self.drive = None;
         Output { send: Some(HostMessage::Stop { seq: self.echo_seq() }), ticks: 0 }
     }
 
@@ -459,5 +519,19 @@ mod tests {
             core.on_frame(&f.next(0), now);
         }
         assert_ne!(core.state(), AxisState::Testing, "the steps and settle time have passed");
+    }
+
+    // The board's fresh ack_seq after Configure is 0, the same number a drive that begins
+    // with frame 0 echoes: only the motor-on bit with that ack proves the duty arrived.
+    #[test]
+    fn a_drive_counts_once_the_board_shows_it_applied_or_after_the_grace() {
+        let mut d = Drive { since_seq: 0, confirmed: false, ticks: 0 };
+        assert!(!d.frame(0, false, 1, 100), "ack 0 before any duty arrived");
+        assert!(d.frame(0, true, 1, 100), "motor on with the drive's ack");
+        assert!(d.frame(5, false, 1, 100), "confirmed: a motor off now counts");
+        let mut d = Drive { since_seq: 7, confirmed: false, ticks: 0 };
+        assert!(!d.frame(6, true, 1, 100), "an older duty's ack is not this drive's");
+        assert!(!d.frame(6, false, 99, 100));
+        assert!(d.frame(6, false, 1, 100), "never applied within the grace");
     }
 }

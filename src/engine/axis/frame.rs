@@ -88,6 +88,14 @@ impl AxisCore {
             self.outside_limits = !(l.soft_min..=l.soft_max).contains(&self.position);
         }
         let testing = self.state == AxisState::Testing;
+        let host_drives = self.state.motor_on() && self.drive.is_some();
+        // The board's status counts once it has shown this drive applied (wrapping seq
+        // arithmetic for the ack, docs/protocol.md), or after a grace of a link timeout.
+        let grace = (self.cfg.limits.link_timeout_s * f64::from(self.cfg.board.tick_hz)) as u32;
+        let board_on = tm.status & status::MOTOR_ON != 0;
+        let drive_acked =
+            self.drive.as_mut().is_some_and(|d| d.frame(tm.ack_seq, board_on, ticks, grace));
+        let c = &self.cfg.controller;
         let obs = Observation {
             t: self.t,
             target: self.setpoint.position,
@@ -103,13 +111,23 @@ impl AxisCore {
                 && !self.outside_limits
                 && !matches!(self.state, AxisState::Homing | AxisState::Testing),
             following_active: !testing,
+            host_drives,
+            drive_acked,
+            board_motor_on: board_on,
+            board_watchdog: tm.status & status::WATCHDOG_TRIPPED != 0,
+            breakaway: if applied >= 0.0 { c.min_duty_forward } else { c.min_duty_reverse },
+            position_band: self.cfg.motion.in_position_band,
+            move_planned_end: (self.state == AxisState::Moving && !self.moves.in_position)
+                .then_some(self.move_planned_end),
+            watchdog_ms: self.cfg.board.watchdog_ms,
         };
-        if let Some(f) = self.supervisor.observe(&obs) {
+        if self.state.motor_on() && tm.status & status::DRIVER_FAULT != 0 {
+            // Its own cause, ahead of the motor-off rule the fault also sets off.
+            self.latch_trip(TripCause::BoardFault, "the board reports a driver fault".to_owned());
+        } else if let Some(f) = self.supervisor.observe(&obs) {
             self.duty = applied;
             self.latch_trip(f.cause, f.detail);
             self.duty = 0.0;
-        } else if self.state.motor_on() && tm.status & status::DRIVER_FAULT != 0 {
-            self.latch_trip(TripCause::BoardFault, "the board reports a driver fault".to_owned());
         }
         let sample = Sample {
             t: self.t,

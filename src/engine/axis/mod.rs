@@ -427,6 +427,7 @@ impl AxisTask {
                 Err(e) => {
                     tracing::debug!(axis = %self.name(), error = %e, "bad frame");
                     self.meter.bad_frame();
+                    self.core.bad_frame();
                 }
             }
         }
