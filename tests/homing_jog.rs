@@ -248,6 +248,11 @@ async fn following_error_trip_writes_a_parseable_capture() {
     h.home(Some(&["x".to_owned()])).await.expect("homes");
     let mut events = h.events();
     let x = h.axis("x").expect("x");
+    // A live gain edit before the trip: the capture must report the gains that were driving
+    // the axis, not the configuration file's.
+    let mut live = cfg.axis("x").expect("x").controller.clone();
+    live.kp *= 1.25;
+    x.send(AxisCommand::SetController(live.clone())).await.expect("live gains");
     x.send(AxisCommand::MoveTo(600.0)).await.expect("move");
     wait_for(&h, "x", Duration::from_secs(2), |s| s.velocity > 100.0).await;
     m.sim("x").expect("sim").set_plant_faults(servotty::sim::plant::PlantFaults {
@@ -297,6 +302,14 @@ async fn following_error_trip_writes_a_parseable_capture() {
     )
     .expect("sidecar is JSON");
     assert_eq!(meta["trip"]["cause"], "following error", "{meta}");
+    let x_meta = meta["axes"]
+        .as_array()
+        .expect("axes")
+        .iter()
+        .find(|a| a["axis"] == "x")
+        .expect("x in the sidecar");
+    assert_eq!(x_meta["controller"]["kp"].as_f64(), Some(live.kp), "{meta}");
+    assert!(meta["live_controller_axes"].as_array().expect("list").contains(&"x".into()));
     assert!(meta["software"].as_str().expect("software").starts_with("servotty"), "{meta}");
     // Readable by everyone: records are for sharing.
     #[cfg(unix)]

@@ -195,6 +195,7 @@ fn describe(c: &AxisCommand) -> &'static str {
         AxisCommand::JogPulse { .. } => "jog",
         AxisCommand::JogRelease => "jog release",
         AxisCommand::History => "history",
+        AxisCommand::LiveController => "live gains",
         AxisCommand::Experiment { .. } => "test",
         AxisCommand::TakeExperiment => "test result",
     }

@@ -289,6 +289,9 @@ impl Machine {
         // history; a headless command that ends right after a trip would otherwise leave an
         // empty file. Bounded: shutdown must still turn the motors off.
         if let Some(flush) = self.flush.take() {
+            // Waiting must not leave other axes driving: stop-all first, so every moving axis
+            // begins its configured stop while the captures are finished.
+            self.handle.stop_all();
             let (done_tx, done_rx) = tokio::sync::oneshot::channel();
             let wait = async {
                 if flush.send(done_tx).await.is_ok() {

@@ -220,19 +220,35 @@ pub async fn capture(
             rows.push((a.name().to_owned(), h));
         }
     }
+    // The gains that were driving the axes, not the file's: an operator may have edited them
+    // live, and those are the ones a diagnosis must judge. An axis that does not answer keeps
+    // its configured values, and the sidecar says which.
+    let mut cfg = cfg.clone();
+    let mut live_gains = Vec::new();
+    for a in axes {
+        if let Ok(Ok(Reply::Controller(c))) =
+            tokio::time::timeout(HISTORY_WAIT, a.send(AxisCommand::LiveController)).await
+        {
+            if let Some(ac) = cfg.axes.iter_mut().find(|ac| ac.name == a.name()) {
+                ac.controller = *c;
+                live_gains.push(a.name().to_owned());
+            }
+        }
+    }
     let written = rfc3339_utc(std::time::SystemTime::now());
     let stamp = written.replace([':', '.'], "-").to_lowercase();
     // The cause in file-name form: `following-error`, not `followingerror`.
     let cause = trip.cause.to_string().replace(' ', "-");
     let name = format!("capture-{stamp}-{tripped_axis}-{cause}");
     let dir = dir.to_path_buf();
-    let (tripped_axis, trip, cfg) = (tripped_axis.to_owned(), trip.clone(), cfg.clone());
+    let (tripped_axis, trip) = (tripped_axis.to_owned(), trip.clone());
     // Formatting 8 axes × 10 s of rows is megabytes of text and tens of milliseconds (more
     // on a small computer): on the engine's thread it would starve every axis loop past its
     // board's watchdog. The blocking pool formats and writes; this task only waits.
     tokio::task::spawn_blocking(move || {
         let csv = capture_csv(&trip, &tripped_axis, &rows, &cfg).map_err(std::io::Error::other)?;
-        let meta = capture_meta(&tripped_axis, &trip, &rows, &cfg, &written);
+        let mut meta = capture_meta(&tripped_axis, &trip, &rows, &cfg, &written);
+        meta["live_controller_axes"] = serde_json::json!(live_gains);
         let meta = serde_json::to_vec_pretty(&meta).map_err(std::io::Error::other)?;
         std::fs::create_dir_all(&dir)?;
         // Metadata first: a reader that finds the CSV finds its sidecar too.

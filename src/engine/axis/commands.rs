@@ -110,6 +110,9 @@ impl AxisCore {
             // The link meter is the shell's: it answers link reports before they get here.
             AxisCommand::LinkReport { .. } => (Ok(Reply::Done), false),
             AxisCommand::History => (Ok(Reply::History(self.history.to_vec())), false),
+            AxisCommand::LiveController => {
+                (Ok(Reply::Controller(Box::new(self.cfg.controller.clone()))), false)
+            }
             AxisCommand::Experiment { spec, bounds } => {
                 (self.start_experiment(spec, bounds), false)
             }

@@ -62,6 +62,8 @@ pub enum AxisCommand {
     },
     /// A copy of the full-rate history ring.
     History,
+    /// The controller parameters in force now (live edits included), for trip captures.
+    LiveController,
     /// Run a bounded commissioning experiment (the axis must be steady).
     Experiment {
         /// What to do.
@@ -78,7 +80,11 @@ impl AxisCommand {
     pub fn is_operator_action(&self) -> bool {
         !matches!(
             self,
-            Self::LinkReport { .. } | Self::History | Self::JogPulse { .. } | Self::TakeExperiment
+            Self::LinkReport { .. }
+                | Self::History
+                | Self::LiveController
+                | Self::JogPulse { .. }
+                | Self::TakeExperiment
         )
     }
 
@@ -98,6 +104,7 @@ impl AxisCommand {
             Self::SetController(_) => "set controller".into(),
             Self::LinkReport { .. } => "link report".into(),
             Self::History => "history".into(),
+            Self::LiveController => "live controller".into(),
             Self::Experiment { spec, .. } => format!("test {}", spec_words(spec)),
             Self::TakeExperiment => "take test result".into(),
         }
@@ -122,6 +129,8 @@ pub enum Reply {
     Link(LinkReport),
     /// History rows, oldest first.
     History(Vec<Sample>),
+    /// The controller parameters in force.
+    Controller(Box<ControllerConfig>),
     /// A finished experiment, if there is one.
     Experiment(Option<Box<ExperimentResult>>),
 }
