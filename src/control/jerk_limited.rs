@@ -41,6 +41,7 @@
 //! solution of the same equations; the moving-start cases are our own composition of the
 //! same pieces.
 
+use super::profile::{sample_pieces, Piece};
 use super::Setpoint;
 
 /// Velocity change (3) + cruise (1) + velocity change (3).
@@ -65,7 +66,11 @@ pub struct JerkSegment {
     pub jerk: f64,
 }
 
-impl JerkSegment {
+impl Piece for JerkSegment {
+    fn start_s(&self) -> f64 {
+        self.start_s
+    }
+
     fn at(&self, tau: f64) -> Setpoint {
         let (v, a, j) = (self.velocity, self.acceleration, self.jerk);
         Setpoint {
@@ -226,15 +231,7 @@ impl JerkLimited {
     /// t from the start of this profile; t < 0 (or NaN) → the start, t ≥ duration → rest at
     /// the goal.
     pub fn sample(&self, t: f64) -> Setpoint {
-        if t >= self.duration {
-            return Setpoint { position: self.goal, velocity: 0.0, acceleration: 0.0 };
-        }
-        if t.is_nan() || t < 0.0 {
-            return self.start;
-        }
-        let segs = self.segments();
-        let i = segs.iter().rposition(|s| s.start_s <= t).unwrap_or(0);
-        segs.get(i).map_or(self.start, |s| s.at(t - s.start_s))
+        sample_pieces(self.segments(), self.start, self.goal, self.duration, t)
     }
 
     /// Total time to rest at the goal, s.

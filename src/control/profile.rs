@@ -66,7 +66,37 @@ pub struct Segment {
     pub acceleration: f64,
 }
 
-impl Segment {
+/// One piece of a planned profile: where it starts in the profile's time, and the setpoint
+/// `tau` seconds into it. Both profile shapes are sampled the same way through it.
+pub(crate) trait Piece {
+    fn start_s(&self) -> f64;
+    fn at(&self, tau: f64) -> Setpoint;
+}
+
+/// Samples a profile made of `pieces` at `t` from its start: before the start (or NaN) it
+/// is `start`, from `duration` on it rests at `goal`.
+pub(crate) fn sample_pieces<P: Piece>(
+    pieces: &[P],
+    start: Setpoint,
+    goal: f64,
+    duration: f64,
+    t: f64,
+) -> Setpoint {
+    if t >= duration {
+        return Setpoint { position: goal, velocity: 0.0, acceleration: 0.0 };
+    }
+    if t.is_nan() || t < 0.0 {
+        return start;
+    }
+    let i = pieces.iter().rposition(|s| s.start_s() <= t).unwrap_or(0);
+    pieces.get(i).map_or(start, |s| s.at(t - s.start_s()))
+}
+
+impl Piece for Segment {
+    fn start_s(&self) -> f64 {
+        self.start_s
+    }
+
     fn at(&self, tau: f64) -> Setpoint {
         Setpoint {
             position: self.position + self.velocity * tau + 0.5 * self.acceleration * tau * tau,
@@ -213,15 +243,7 @@ impl Trapezoid {
     /// t from the start of this profile; t<0 (or NaN) → start (p0, v0, no acceleration),
     /// t ≥ duration → rest at goal.
     pub fn sample(&self, t: f64) -> Setpoint {
-        if t >= self.duration {
-            return Setpoint { position: self.goal, velocity: 0.0, acceleration: 0.0 };
-        }
-        if t.is_nan() || t < 0.0 {
-            return self.start;
-        }
-        let segs = self.segments();
-        let i = segs.iter().rposition(|s| s.start_s <= t).unwrap_or(0);
-        segs.get(i).map_or(self.start, |s| s.at(t - s.start_s))
+        sample_pieces(self.segments(), self.start, self.goal, self.duration, t)
     }
 
     /// Total time to rest at the goal, s.

@@ -209,6 +209,19 @@ fn chart(
     if x_labels {
         x_axis = x_axis.labels([format!("-{CHART_SECONDS:.0} s"), "now".to_owned()]);
     }
+    panel_chart(&t, title, data, x_axis, y, y_labels).render(area, buf);
+}
+
+/// One chart panel as the cockpit draws them (title on a top rule, dim axes, no legend);
+/// the detail and trip screens share it so their charts read alike.
+pub fn panel_chart<'a>(
+    t: &crate::cockpit::theme::Theme,
+    title: String,
+    data: Vec<Dataset<'a>>,
+    x_axis: Axis<'a>,
+    y: [f64; 2],
+    y_labels: [String; 2],
+) -> Chart<'a> {
     Chart::new(data)
         .block(
             Block::new()
@@ -219,7 +232,6 @@ fn chart(
         .x_axis(x_axis)
         .y_axis(Axis::default().bounds(y).labels(y_labels).style(t.dim()))
         .legend_position(None)
-        .render(area, buf);
 }
 
 fn render_params(app: &App, i: usize, area: Rect, buf: &mut Buffer) {

@@ -6,10 +6,10 @@ use ratatui::buffer::Buffer;
 use ratatui::layout::{Constraint, Layout, Rect};
 use ratatui::symbols::Marker;
 use ratatui::text::{Line, Span};
-use ratatui::widgets::{Axis, Block, Borders, Chart, Dataset, GraphType, Paragraph, Widget, Wrap};
+use ratatui::widgets::{Axis, Block, Borders, Dataset, GraphType, Paragraph, Widget, Wrap};
 
 use crate::cockpit::app::App;
-use crate::cockpit::ui::detail::nice_ceiling;
+use crate::cockpit::ui::detail::{nice_ceiling, panel_chart};
 use crate::diagnosis::Cause;
 
 /// One chart: title, lines (points and style), y range.
@@ -138,21 +138,7 @@ pub fn render(app: &App, area: Rect, buf: &mut Buffer) {
             // Two labels only: a middle one would not sit at the trip.
             x_axis = x_axis.labels([format!("-{BEFORE_S:.0} s"), format!("+{x_hi:.1} s")]);
         }
-        Chart::new(data)
-            .block(
-                Block::new()
-                    .borders(Borders::TOP)
-                    .border_style(t.dim())
-                    .title(Span::styled(title, t.bold())),
-            )
-            .x_axis(x_axis)
-            .y_axis(
-                Axis::default()
-                    .bounds(y)
-                    .labels([format!("{:.1}", y[0]), format!("{:.1}", y[1])])
-                    .style(t.dim()),
-            )
-            .legend_position(None)
-            .render(panels[k], buf);
+        let y_labels = [format!("{:.1}", y[0]), format!("{:.1}", y[1])];
+        panel_chart(&t, title, data, x_axis, y, y_labels).render(panels[k], buf);
     }
 }
