@@ -16,6 +16,7 @@ pub mod analyze;
 pub mod ask;
 pub mod check;
 pub mod home_cmd;
+pub mod json_round;
 pub mod linktest;
 pub mod manual;
 pub mod move_cmd;
