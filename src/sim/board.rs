@@ -293,8 +293,7 @@ impl SimBoard {
             count: plant.encoder_count(),
             ..BoardView::default()
         };
-        let shared =
-            Arc::new(Mutex::new(Shared {
+        let shared = Arc::new(Mutex::new(Shared {
             plant_faults,
             link_faults,
             driver_fault: false,
@@ -871,7 +870,10 @@ mod tests {
             panic!("the demo is simulated")
         };
         let (link, board) = spawn_in_process(&sim.plant, faults, 1);
-        (ScriptedHost { link, decoder: FrameDecoder::new(), rx: vec![0; 1024], tx: Vec::new() }, board)
+        (
+            ScriptedHost { link, decoder: FrameDecoder::new(), rx: vec![0; 1024], tx: Vec::new() },
+            board,
+        )
     }
 
     impl ScriptedHost {
