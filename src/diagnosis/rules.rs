@@ -923,6 +923,25 @@ mod tests {
 
     #[test]
     fn saturation_is_duty_at_the_limit_while_moving_and_lagging() {
+        // The motor never had the profile's speed: at its limit all through the window.
+        let r = record(600, 150.0, |j, s| {
+            if j >= 50 {
+                let lag = (j - 50) as f64 * 0.004;
+                s.position -= lag;
+                s.count = (s.position * CPU).round() as i64;
+                s.velocity = 146.0;
+                s.duty = 100.0;
+                s.saturated = true;
+            }
+        });
+        let d = diagnose(&recorded(r, "following error"));
+        assert_eq!(d.cause, Cause::Saturation, "{d:#?}");
+        assert!(d.cannot_tell.iter().any(|c| c.contains("supply sagged")), "{d:?}");
+    }
+
+    #[test]
+    fn a_drive_that_weakens_at_cruise_is_named_before_saturation() {
+        // At 150 mm/s on its usual duty, then all the duty there is for less speed.
         let r = record(600, 150.0, |j, s| {
             if j >= 450 {
                 let lag = (j - 450) as f64 * 0.02;
@@ -934,7 +953,9 @@ mod tests {
             }
         });
         let d = diagnose(&recorded(r, "following error"));
-        assert_eq!(d.cause, Cause::Saturation, "{d:#?}");
+        assert_eq!(d.cause, Cause::WeakerDrive, "{d:#?}");
+        assert!(!d.ambiguous, "{d:#?}");
+        assert!(d.others.iter().any(|o| o.cause == Cause::Saturation), "{d:?}");
     }
 
     #[test]
