@@ -17,6 +17,7 @@
 
 pub mod action;
 pub mod app;
+pub mod drill;
 pub mod event_log;
 pub mod format;
 pub mod gain_edit;
