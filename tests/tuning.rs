@@ -562,12 +562,16 @@ fn relay_autotune_steps_the_demo_axes() {
     }
 }
 
-// On the demo X axis the relay's gains hardly depend on the relay duty across 10–40 % (the
-// spread is (max − min)/mean).
+// On the demo X axis the relay's gains do not depend on the relay duty by more than 10 %
+// across 10–40 % (issue 11; the spread is (max − min)/mean), in 5 % steps. Two causes made them
+// depend on it (docs/tuning.md §4b): the limit cycle's frequency moved with a hysteresis that
+// did not scale with the duty, and the design placed the crossover at whatever frequency the
+// relay measured. Today's figures are about 2.5 % (kp), 3.5 % (ki), 2 % (kd).
 #[test]
 fn relay_gains_do_not_depend_on_the_duty() {
+    let duties = [10.0, 15.0, 20.0, 25.0, 30.0, 35.0, 40.0];
     let runs: Vec<(f64, ControllerConfig)> =
-        [10.0, 20.0, 30.0, 40.0].into_iter().map(|d| (d, relay_gains("x", d).1)).collect();
+        duties.into_iter().map(|d| (d, relay_gains("x", d).1)).collect();
     for (d, c) in &runs {
         println!("d {d}: kp {:.2} ki {:.1} kd {:.4}", c.kp, c.ki, c.kd);
     }
@@ -576,14 +580,10 @@ fn relay_gains_do_not_depend_on_the_duty() {
         let (lo, hi) = v.iter().fold((f64::MAX, f64::MIN), |(l, h), &x| (l.min(x), h.max(x)));
         (hi - lo) / (v.iter().sum::<f64>() / v.len() as f64)
     };
-    // kp and kd meet the 10 %; ki (1/Ti, the most sensitive to the measured frequency)
-    // spreads 13.7 % today and is held to 15 % until the d = 10 % point is measured better.
-    for (name, s, limit) in [
-        ("kp", spread(|c| c.kp), 0.10),
-        ("ki", spread(|c| c.ki), 0.15),
-        ("kd", spread(|c| c.kd), 0.10),
-    ] {
-        assert!(s <= limit, "{name} spreads {:.1} % across 10–40 % duty", 100.0 * s);
+    for (name, s) in [("kp", spread(|c| c.kp)), ("ki", spread(|c| c.ki)), ("kd", spread(|c| c.kd))]
+    {
+        println!("{name} spreads {:.1} %", 100.0 * s);
+        assert!(s <= 0.10, "{name} spreads {:.1} % across 10–40 % duty", 100.0 * s);
     }
 }
 
@@ -669,6 +669,7 @@ fn relay_suggestion_uses_the_rule_and_the_duty_slope() {
         describing_function_phase_deg: -180.0,
         describing_function_gain: 250.0,
         ultimate: Some(servotty::tuning::relay::Ultimate { ku: 250.0, tu_s: 0.04 }),
+        sample_period_s: 0.001,
     };
     let s = from_relay(&relay, RelayDesign::Rule(Rule::TyreusLuybenPid), &base, 10.0)
         .expect("suggests");

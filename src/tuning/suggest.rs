@@ -59,8 +59,8 @@ use serde::Serialize;
 use super::ident::VelocityModel;
 use super::relay::RelayResult;
 use super::rules::{
-    from_ultimate, phase_margin_design, IdealPid, Rule, DEFAULT_PHASE_MARGIN_DEG,
-    DEFAULT_TI_TD_RATIO,
+    from_ultimate, phase_margin_design, IdealPid, IntegratingLag, Rule, DEFAULT_PHASE_MARGIN_DEG,
+    DEFAULT_TI_TD_RATIO, DESIGN_PHASE_DEG,
 };
 use crate::config::{ControlMode, ControllerConfig};
 
@@ -403,16 +403,43 @@ pub fn from_relay(
     )];
     let (ideal, method) = match design {
         RelayDesign::PhaseMargin(margin) => {
-            let ideal = phase_margin_design(&p, margin, DEFAULT_TI_TD_RATIO).ok_or_else(|| {
+            // The design point: the measured point carried along the integrating-with-lag model
+            // through it to DESIGN_PHASE_DEG (rules module docs), so that the gains describe
+            // the axis, not the relay duty that happened to set the limit cycle's frequency.
+            let h = relay.sample_period_s;
+            let theta = if h.is_finite() && h > 0.0 { 1.5 * h } else { 0.0 };
+            let model = IntegratingLag::through(&p, theta);
+            let at = model.and_then(|m| m.at_phase(DESIGN_PHASE_DEG));
+            let q = match (model, at) {
+                (Some(m), Some(q)) => {
+                    notes.push(format!(
+                        "design point: the model k·e^(−θs)/(s(τs+1)) through the measured point                          (θ = 1.5 ticks = {} s assumed: k = {} unit/s per %, τ = {} s) at phase                          {DESIGN_PHASE_DEG}°: |G| = {} unit/% at ω = {} rad/s",
+                        round_sig(theta, 3),
+                        round_sig(m.gain, 4),
+                        round_sig(m.lag_s, 3),
+                        round_sig(q.gain, 4),
+                        round_sig(q.omega_rad_s, 4)
+                    ));
+                    q
+                }
+                _ => {
+                    notes.push(format!(
+                        "design point: the measured point itself (no integrating-with-lag model                          fits a phase of {}°)",
+                        round_sig(p.phase_deg, 4)
+                    ));
+                    p
+                }
+            };
+            let ideal = phase_margin_design(&q, margin, DEFAULT_TI_TD_RATIO).ok_or_else(|| {
                 SuggestError::BadModel(format!(
                     "a PID cannot move the point at {}° to a {margin}° phase margin",
-                    round_sig(p.phase_deg, 3)
+                    round_sig(q.phase_deg, 3)
                 ))
             })?;
             notes.push(format!(
                 "phase-margin design: crossover at ω = {} rad/s with {margin}° margin, Ti = 4 Td: \
                  Kc = {} %/unit, Ti = {} s, Td = {} s (ideal form)",
-                round_sig(p.omega_rad_s, 4),
+                round_sig(q.omega_rad_s, 4),
                 round_sig(ideal.kc, 4),
                 round_sig(ideal.ti_s.unwrap_or(0.0), 4),
                 round_sig(ideal.td_s, 4)
