@@ -480,9 +480,15 @@ pub struct ControllerConfig {
     /// Acceleration feedforward, % per unit/s² of profile acceleration.
     #[serde(default)]
     pub ff_acceleration: f64,
-    /// Static-friction feedforward, %, added in the direction of profile velocity.
+    /// Static-friction feedforward, %, added in the direction of profile velocity (in both
+    /// directions, unless `ff_static_reverse` gives the reverse one).
     #[serde(default)]
     pub ff_static: f64,
+    /// Static-friction feedforward while the profile runs in reverse, % (a positive number):
+    /// for an axis whose friction differs by direction, e.g. a lift carrying a weight.
+    /// `ff_static` when absent.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub ff_static_reverse: Option<f64>,
 }
 
 impl Default for ControllerConfig {
@@ -506,6 +512,7 @@ impl Default for ControllerConfig {
             ff_velocity: 0.0,
             ff_acceleration: 0.0,
             ff_static: 0.0,
+            ff_static_reverse: None,
         }
     }
 }
@@ -882,6 +889,7 @@ impl MachineConfig {
                 ("min_duty_reverse", c.min_duty_reverse),
                 ("integral_limit", c.integral_limit),
                 ("ff_static", c.ff_static),
+                ("ff_static_reverse", c.ff_static_reverse.unwrap_or(0.0)),
             ] {
                 if !(v.is_finite() && (0.0..=100.0).contains(&v)) {
                     out_push(

@@ -985,3 +985,55 @@ fn gravity_makes_the_lift_break_away_differently_each_way() {
     falls.step(0.0, 0.5);
     assert!(falls.position_mm() < p.start_mm - 0.1, "{}", falls.position_mm());
 }
+
+fn profile_move(p: &PlantParams, cfg: &ControllerConfig, dist: f64, v: f64, a: f64) -> (f64, f64) {
+    use servotty::control::profile::Trapezoid;
+    let mut plant = Plant::new(p);
+    let cpu = p.counts_per_mm();
+    let mut c = Controller::new(cfg);
+    let x0 = plant.encoder_count() as f64 / cpu;
+    // hold 0.3 s first
+    let mut peak: f64 = 0.0;
+    let mut sum = 0.0;
+    let mut n = 0.0;
+    let prof = Trapezoid::plan(x0, 0.0, x0 + dist, v, a);
+    let total = prof.duration() + 0.3;
+    let mut k = 0u64;
+    loop {
+        let t = k as f64 * H;
+        if t > 0.3 + total { break; }
+        let sp = if t < 0.3 { Setpoint { position: x0, ..Setpoint::default() } } else { prof.sample(t - 0.3) };
+        let position = plant.encoder_count() as f64 / cpu;
+        let duty = c.update(&sp, position, H);
+        plant.step(duty / 100.0, H);
+        if t >= 0.3 && t <= 0.3 + prof.duration() {
+            let e = (sp.position - position).abs();
+            peak = peak.max(e);
+            sum += e * e;
+            n += 1.0;
+        }
+        k += 1;
+    }
+    (peak, (sum / n).sqrt())
+}
+
+#[test]
+fn zz_scratch_gravity_fe() {
+    let mut p = mid_rail("z");
+    p.gravity_load_kg = 4.0;
+    p.static_friction_n = 110.0;
+    p.coulomb_friction_n = 70.0;
+    let (up, down) = servotty::sim::plant::breakaway_duties(&p);
+    println!("breakaway up {} down {}", 100.0 * up, 100.0 * down);
+    let base = demo_controller("z");
+    for (mf, mr, fs, fsr) in [(12.0, 12.0, 2.0, None), (11.0, 8.5, 0.0, None), (11.0, 8.5, 2.0, None), (11.0, 8.5, 0.0, Some(0.0)), (8.5, 8.5, 0.0, None), (8.5, 8.5, 0.0, Some(0.0))] {
+        let mut c = base.clone();
+        c.min_duty_forward = mf;
+        c.min_duty_reverse = mr;
+        c.ff_static = fs;
+        c.ff_static_reverse = fsr;
+        let u = profile_move(&p, &c, 30.0, 20.0, 200.0);
+        let d = profile_move(&p, &c, -30.0, 20.0, 200.0);
+        println!("mf {mf} mr {mr} fs {fs} fsr {fsr:?}: up peak {:.3} rms {:.3} | down peak {:.3} rms {:.3}", u.0, u.1, d.0, d.1);
+    }
+}
