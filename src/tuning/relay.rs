@@ -21,7 +21,9 @@
 //!
 //! # Friction
 //! Sliding (Coulomb) friction costs a duty `u0` against the motion: the linear part of the
-//! axis sees `u − u0·sign(v)`. With `u0` known (from identification), the input's first
+//! axis sees `u − u0·sign(v)`. When it differs by direction (`u0f` forwards, `u0r` in reverse:
+//! a load under gravity), `u0f·[v > 0] − u0r·[v < 0]` is the mean `(u0f + u0r)/2` times
+//! `sign(v)` plus a constant, and a constant has no first harmonic: correct for the mean. With `u0` known (from identification), the input's first
 //! harmonic is corrected by `u0` times that of `sign(v)`, the velocity's sign taken from the
 //! turning points of the position (each plateau of equal counts at a top or bottom split where
 //! the drive and the friction put the turn, `turn_fraction` in [`analyze_relay`]). Without the correction the measured gain is too low by about `u0/d` and the

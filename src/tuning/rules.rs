@@ -293,7 +293,7 @@ impl IntegratingLag {
     pub fn at_phase(&self, phase_deg: f64) -> Option<FrequencyPoint> {
         let want = -phase_deg - 90.0;
         let lag = |w: f64| (w * self.lag_s).atan().to_degrees() + (w * self.delay_s).to_degrees();
-        if !(want > 0.0) || (self.delay_s == 0.0 && want >= 90.0) {
+        if want <= 0.0 || want.is_nan() || (self.delay_s == 0.0 && want >= 90.0) {
             return None;
         }
         // The lag grows monotonically with ω: bisection on a bracket found by doubling.
