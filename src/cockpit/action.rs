@@ -149,6 +149,8 @@ pub enum Action {
     SpotNext,
     /// Spot picker: go to the chosen spot.
     SpotGo,
+    /// Open the fault-drill menu of the selected axis (simulated axes only).
+    Drill,
 }
 
 /// Work outside the cockpit's own state, carried out by the runner without waiting in the
@@ -229,5 +231,12 @@ pub enum Effect {
     FetchHistory {
         /// Axis index.
         axis: usize,
+    },
+    /// Inject a fault drill into an axis's simulated board (never waits).
+    Drill {
+        /// Axis index.
+        axis: usize,
+        /// The drill.
+        pick: crate::cockpit::drill::Pick,
     },
 }

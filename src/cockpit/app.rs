@@ -19,6 +19,7 @@ use crate::cockpit::keys::Mode;
 use crate::cockpit::save::SaveReport;
 use crate::cockpit::theme::Theme;
 use crate::config::{ConfigSource, ControllerConfig, MachineConfig};
+use crate::engine::events::ChangedBy;
 use crate::engine::{AxisCommand, AxisSnapshot, AxisState};
 
 /// Samples kept per axis: 30 s at the default 20 frames/s.
@@ -75,6 +76,11 @@ pub enum Purpose {
     },
     /// A name for the present position (a spot).
     StoreSpot,
+    /// A fault drill for a simulated axis (the drill menu).
+    Drill {
+        /// Axis index.
+        axis: usize,
+    },
 }
 
 /// A prompt being typed.
@@ -150,6 +156,13 @@ pub enum Notice {
     ListProgress(crate::move_list::runner::Progress),
     /// A list run ended, or could not start.
     ListEnded(Result<crate::move_list::runner::ListOutcome, String>),
+    /// A fault drill reached its simulated board (or could not).
+    Drill {
+        /// Axis index.
+        axis: usize,
+        /// What the board did, in words, or why not.
+        result: Result<String, String>,
+    },
     /// A save finished.
     Saved {
         /// What happened.
@@ -252,6 +265,9 @@ pub struct App {
     pub trip_view: Option<crate::cockpit::trip_view::TripView>,
     /// The list screen.
     pub lists: crate::cockpit::lists::ListScreen,
+    /// Per axis: whether it takes fault drills (its board is simulated in process). Set by
+    /// the runner from the machine; all false until then.
+    pub drillable: Vec<bool>,
 }
 
 impl App {
@@ -299,6 +315,7 @@ impl App {
             quit: false,
             trip_view: None,
             lists: crate::cockpit::lists::ListScreen::default(),
+            drillable: Vec::new(),
         }
     }
 
@@ -412,6 +429,17 @@ impl App {
                 self.screen = Screen::Trip;
                 return vec![Effect::FetchHistory { axis: sel }];
             }
+            Action::Drill if self.drillable.get(sel).copied().unwrap_or(false) => {
+                self.prompt(Purpose::Drill { axis: sel }, String::new());
+            }
+            Action::Drill if n > 0 => {
+                let name = self.name(sel).to_owned();
+                self.note(
+                    Kind::Refused,
+                    format!("{name}: {}", crate::cockpit::drill::ONLY_SIMULATED),
+                );
+            }
+            Action::Drill => {}
             Action::ToggleLog => {
                 if self.screen == Screen::Log {
                     self.screen = self.log_return;
@@ -618,6 +646,11 @@ impl App {
             Purpose::Gain { axis, param } => self.submit_gain(axis, param, &text),
             Purpose::Test { axis } => self.submit_test(axis, &text),
             Purpose::StoreSpot => self.submit_store_spot(&text),
+            Purpose::Drill { axis } => crate::cockpit::drill::parse(&text).map(|pick| {
+                let name = self.name(axis).to_owned();
+                self.note(Kind::Operator, format!("{name}: DRILL {text}"));
+                vec![Effect::Drill { axis, pick }]
+            }),
             Purpose::SaveCopy => {
                 if text.is_empty() {
                     Err("type a file name".to_owned())
@@ -867,7 +900,7 @@ impl App {
         self.config = next;
         vec![self.command(
             axis,
-            AxisCommand::SetController(c),
+            AxisCommand::SetController(c, ChangedBy::CockpitSuggestion),
             "suggested gains applied (live; w writes them)",
         )]
     }
@@ -902,7 +935,11 @@ impl App {
             plain(old),
             plain(param.get(&controller))
         );
-        Ok(vec![self.command(axis, AxisCommand::SetController(controller), &words)])
+        Ok(vec![self.command(
+            axis,
+            AxisCommand::SetController(controller, ChangedBy::CockpitEdit),
+            &words,
+        )])
     }
 
     /// Takes news from background work.
@@ -925,6 +962,13 @@ impl App {
                 let name = self.name(axis).to_owned();
                 self.note(Kind::Refused, format!("{name}: no history for the trip screen: {why}"));
                 self.screen = Screen::Overview;
+            }
+            Notice::Drill { axis, result } => {
+                let name = self.name(axis).to_owned();
+                match result {
+                    Ok(did) => self.note(Kind::Operator, format!("{name}: drill: {did}")),
+                    Err(why) => self.note(Kind::Refused, format!("{name}: drill refused: {why}")),
+                }
             }
             Notice::Reply { axis, what, result: Err(why) } => {
                 let name = self.name(axis).to_owned();
