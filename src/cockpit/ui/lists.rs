@@ -59,18 +59,29 @@ fn state_lines(app: &App, s: &ListScreen, list: &MoveList) -> Vec<(String, Style
                     ));
                     out.push((st.reason.clone(), t.warn()));
                 }
-                None if out.is_empty() => out.push((
-                    format!(
-                        "ready: {n} steps × {} · Enter checks the limits and starts",
-                        list.times
+                // The dry run, drawn: every target of every pass from where the axes are
+                // bound now (the same check Enter makes before anything moves).
+                None if out.is_empty() => out.push(match check_from_here(app, list) {
+                    Ok(()) => (
+                        format!(
+                            "ready: {n} steps × {}, inside the soft limits · Enter starts",
+                            list.times
+                        ),
+                        t.bold(),
                     ),
-                    t.bold(),
-                )),
+                    Err(e) => (format!("will not start: {e}"), t.alarm()),
+                }),
                 None => {}
             }
             out
         }
     }
+}
+
+/// [`crate::move_list::check`] of the whole list from the axes' present goals.
+fn check_from_here(app: &App, list: &MoveList) -> Result<(), crate::move_list::ListError> {
+    let start = app.axes.iter().map(|v| (v.snap.axis.to_string(), v.snap.goal)).collect();
+    crate::move_list::check(list, &app.config, &start, 1).map(|_| ())
 }
 
 /// The steps as the runner would carry them out from here (targets worked out), or, when a
