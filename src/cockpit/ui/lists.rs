@@ -80,15 +80,13 @@ fn state_lines(app: &App, s: &ListScreen, list: &MoveList) -> Vec<(String, Style
 
 /// [`crate::move_list::check`] of the whole list from the axes' present goals.
 fn check_from_here(app: &App, list: &MoveList) -> Result<(), crate::move_list::ListError> {
-    let start = app.axes.iter().map(|v| (v.snap.axis.to_string(), v.snap.goal)).collect();
-    crate::move_list::check(list, &app.config, &start, 1).map(|_| ())
+    crate::move_list::check(list, &app.config, &app.goals(), 1).map(|_| ())
 }
 
 /// The steps as the runner would carry them out from here (targets worked out), or, when a
 /// target is outside the limits, as written.
 fn planned(app: &App, list: &MoveList) -> Vec<PlannedStep> {
-    let start = app.axes.iter().map(|v| (v.snap.axis.to_string(), v.snap.goal)).collect();
-    match crate::move_list::check(&list_one_pass(list), &app.config, &start, 1) {
+    match crate::move_list::check(&list_one_pass(list), &app.config, &app.goals(), 1) {
         Ok(p) => p,
         Err(_) => list
             .steps
