@@ -73,6 +73,7 @@ fn list_screen_says_where_a_trip_stopped_it_and_where_it_resumes() {
         step: 2,
         reason: "x: following error: following error 5.1 mm exceeded its band 4.8 mm".to_owned(),
         resume_from: 3,
+        resume_pass: 1,
     });
     check("list_stopped", &app, &[(80, 24), (60, 18)]);
     let text = s::screen(&app, 80, 24);
@@ -138,7 +139,7 @@ impl MachinePort for Recorded {
     fn run_list(
         &self,
         list: MoveList,
-        from: usize,
+        from: servotty::move_list::Start,
         control: watch::Receiver<ListControl>,
         progress: mpsc::UnboundedSender<Progress>,
     ) -> impl Future<Output = Result<ListOutcome, String>> + Send + 'static {

@@ -762,7 +762,11 @@ impl App {
             self.lists.refused = Some(why);
             return vec![];
         }
-        let resume = if from > 1 { format!(" from step {from}") } else { String::new() };
+        let resume = match from {
+            crate::move_list::Start { pass: 1, step: 1 } => String::new(),
+            crate::move_list::Start { pass: 1, step } => format!(" from step {step}"),
+            crate::move_list::Start { pass, step } => format!(" from step {step} of pass {pass}"),
+        };
         self.note(
             Kind::Operator,
             format!(
@@ -1091,8 +1095,8 @@ impl App {
                                 Kind::Refused,
                                 format!(
                                     "list stopped at step {} (pass {}): {}; every axis stopped. \
-                                     Clear the cause, then Enter resumes from step {}",
-                                    s.step, s.pass, s.reason, s.resume_from
+                                     Clear the cause, then Enter resumes from step {} (pass {})",
+                                    s.step, s.pass, s.reason, s.resume_from, s.resume_pass
                                 ),
                             );
                         }

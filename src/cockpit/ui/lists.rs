@@ -40,13 +40,14 @@ fn state_lines(app: &App, s: &ListScreen, list: &MoveList) -> Vec<(String, Style
                 out.push((format!("not started: {why}"), t.alarm()));
             }
             match &s.stopped {
-                Some(st) if st.resume_from <= n => {
+                Some(st) if st.resume(n).is_some() => {
                     out.push((
                         format!(
-                            "STOPPED at step {}{}: clear the cause, then Enter resumes from step {}",
+                            "STOPPED at step {}{}: clear the cause, then Enter resumes from step {}{}",
                             st.step,
                             pass(st.pass),
-                            st.resume_from
+                            st.resume_from,
+                            pass(st.resume_pass)
                         ),
                         t.alarm(),
                     ));
