@@ -184,10 +184,21 @@ pub fn run(args: &SimArgs) -> u8 {
                 eprintln!("servotty: axis {} is not simulated; skipped", axis.name);
                 continue;
             };
-            let (board_end, host_end) = match tokio_serial::SerialStream::pair() {
+            let (board_end, host_end) = match mio_serial::SerialStream::pair() {
                 Ok(p) => p,
                 Err(e) => {
                     eprintln!("servotty: cannot create a pseudo-terminal: {e}");
+                    return EXIT_FAILED;
+                }
+            };
+            // Our own stream type, not tokio-serial's: the master sees a hang-up until the
+            // host opens the other side, and tokio keeps a hang-up for good; tokio-serial's
+            // stream then read EAGAIN about a hundred times per tick and board (the bulk of
+            // this simulator's CPU). `TtyStream` registers afresh instead (see its docs).
+            let board_end = match crate::link::tty::TtyStream::new(board_end) {
+                Ok(s) => s,
+                Err(e) => {
+                    eprintln!("servotty: cannot wait on a pseudo-terminal: {e}");
                     return EXIT_FAILED;
                 }
             };
