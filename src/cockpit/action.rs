@@ -129,6 +129,8 @@ pub enum Action {
     EntryCancel,
     /// Open the trip screen of the selected axis: its history and why it tripped.
     TripView,
+    /// Open the fault-drill menu of the selected axis (simulated axes only).
+    Drill,
 }
 
 /// Work outside the cockpit's own state, carried out by the runner without waiting in the
@@ -184,5 +186,12 @@ pub enum Effect {
     FetchHistory {
         /// Axis index.
         axis: usize,
+    },
+    /// Inject a fault drill into an axis's simulated board (never waits).
+    Drill {
+        /// Axis index.
+        axis: usize,
+        /// The drill.
+        pick: crate::cockpit::drill::Pick,
     },
 }

@@ -19,6 +19,7 @@ use crate::cockpit::keys::Mode;
 use crate::cockpit::save::SaveReport;
 use crate::cockpit::theme::Theme;
 use crate::config::{ConfigSource, ControllerConfig, MachineConfig};
+use crate::engine::events::ChangedBy;
 use crate::engine::{AxisCommand, AxisSnapshot, AxisState};
 
 /// Samples kept per axis: 30 s at the default 20 frames/s.
@@ -73,6 +74,11 @@ pub enum Purpose {
     },
     /// A name for the present position (a spot).
     StoreSpot,
+    /// A fault drill for a simulated axis (the drill menu).
+    Drill {
+        /// Axis index.
+        axis: usize,
+    },
 }
 
 /// A prompt being typed.
@@ -132,6 +138,13 @@ pub enum Notice {
         axis: usize,
         /// The rows, or why there are none.
         result: Result<Vec<crate::engine::history::Sample>, String>,
+    },
+    /// A fault drill reached its simulated board (or could not).
+    Drill {
+        /// Axis index.
+        axis: usize,
+        /// What the board did, in words, or why not.
+        result: Result<String, String>,
     },
     /// A save finished.
     Saved {
@@ -233,6 +246,9 @@ pub struct App {
     pub quit: bool,
     /// The trip screen's history and diagnosis, once fetched.
     pub trip_view: Option<crate::cockpit::trip_view::TripView>,
+    /// Per axis: whether it takes fault drills (its board is simulated in process). Set by
+    /// the runner from the machine; all false until then.
+    pub drillable: Vec<bool>,
 }
 
 impl App {
@@ -279,6 +295,7 @@ impl App {
             suggested_worse: false,
             quit: false,
             trip_view: None,
+            drillable: Vec::new(),
         }
     }
 
@@ -390,6 +407,17 @@ impl App {
                 self.screen = Screen::Trip;
                 return vec![Effect::FetchHistory { axis: sel }];
             }
+            Action::Drill if self.drillable.get(sel).copied().unwrap_or(false) => {
+                self.prompt(Purpose::Drill { axis: sel }, String::new());
+            }
+            Action::Drill if n > 0 => {
+                let name = self.name(sel).to_owned();
+                self.note(
+                    Kind::Refused,
+                    format!("{name}: {}", crate::cockpit::drill::ONLY_SIMULATED),
+                );
+            }
+            Action::Drill => {}
             Action::ToggleLog => {
                 if self.screen == Screen::Log {
                     self.screen = self.log_return;
@@ -557,6 +585,11 @@ impl App {
             Purpose::Gain { axis, param } => self.submit_gain(axis, param, &text),
             Purpose::Test { axis } => self.submit_test(axis, &text),
             Purpose::StoreSpot => self.submit_store_spot(&text),
+            Purpose::Drill { axis } => crate::cockpit::drill::parse(&text).map(|pick| {
+                let name = self.name(axis).to_owned();
+                self.note(Kind::Operator, format!("{name}: DRILL {text}"));
+                vec![Effect::Drill { axis, pick }]
+            }),
             Purpose::SaveCopy => {
                 if text.is_empty() {
                     Err("type a file name".to_owned())
@@ -703,7 +736,7 @@ impl App {
         self.config = next;
         vec![self.command(
             axis,
-            AxisCommand::SetController(c),
+            AxisCommand::SetController(c, ChangedBy::CockpitSuggestion),
             "suggested gains applied (live; w writes them)",
         )]
     }
@@ -738,7 +771,11 @@ impl App {
             plain(old),
             plain(param.get(&controller))
         );
-        Ok(vec![self.command(axis, AxisCommand::SetController(controller), &words)])
+        Ok(vec![self.command(
+            axis,
+            AxisCommand::SetController(controller, ChangedBy::CockpitEdit),
+            &words,
+        )])
     }
 
     /// Takes news from background work.
@@ -761,6 +798,13 @@ impl App {
                 let name = self.name(axis).to_owned();
                 self.note(Kind::Refused, format!("{name}: no history for the trip screen: {why}"));
                 self.screen = Screen::Overview;
+            }
+            Notice::Drill { axis, result } => {
+                let name = self.name(axis).to_owned();
+                match result {
+                    Ok(did) => self.note(Kind::Operator, format!("{name}: drill: {did}")),
+                    Err(why) => self.note(Kind::Refused, format!("{name}: drill refused: {why}")),
+                }
             }
             Notice::Reply { axis, what, result: Err(why) } => {
                 let name = self.name(axis).to_owned();

@@ -244,7 +244,15 @@ pub const BINDINGS: &[Binding] = &[
         "axis detail",
     ),
     bind(&[Char('l')], "l", Action::ToggleLog, Modes::SCREENS, Group::Screens, "event log"),
-    bind(&[Char('v')], "v", Action::TripView, Modes::AXIS, Group::Screens, "why it tripped"),
+    bind(
+        &[Char('v')],
+        "v !",
+        Action::TripView,
+        Modes::AXIS,
+        Group::Screens,
+        "why it tripped / drills",
+    ),
+    bind(&[Char('!')], "", Action::Drill, Modes::AXIS, Group::Screens, ""),
     bind(
         &[Code(KeyCode::Esc)],
         "Esc",

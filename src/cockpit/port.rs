@@ -51,6 +51,17 @@ pub trait MachinePort: Send + Sync + 'static {
         let _ = axis;
         async { Err("this machine keeps no history".to_owned()) }
     }
+    /// Whether axis `axis` takes fault drills (its board is simulated in process).
+    fn drillable(&self, axis: usize) -> bool {
+        let _ = axis;
+        false
+    }
+    /// Injects a fault drill into axis `axis`'s simulated board; answers what it did, in
+    /// words. Must never wait (the board reads it at its next tick).
+    fn drill(&self, axis: usize, pick: &crate::cockpit::drill::Pick) -> Result<String, String> {
+        let _ = (axis, pick);
+        Err(crate::cockpit::drill::ONLY_SIMULATED.to_owned())
+    }
 }
 
 impl MachinePort for MachineHandle {
@@ -89,6 +100,27 @@ impl MachinePort for MachineHandle {
                 Ok(_) => Err("the axis answered something else".to_owned()),
                 Err(CommandError::Refused { reason, .. }) => Err(reason.to_string()),
                 Err(CommandError::Gone(_)) => Err("the axis task has stopped".to_owned()),
+            }
+        }
+    }
+
+    fn drillable(&self, axis: usize) -> bool {
+        self.axes().get(axis).is_some_and(|a| self.sim_board(a.name()).is_some())
+    }
+
+    fn drill(&self, axis: usize, pick: &crate::cockpit::drill::Pick) -> Result<String, String> {
+        use crate::cockpit::drill::{rail_mm, Pick, ONLY_SIMULATED};
+        use crate::sim::drill::{apply, Drill};
+        let h = self.axes().get(axis).ok_or_else(|| format!("no axis number {axis}"))?;
+        let board = self.sim_board(h.name()).ok_or_else(|| ONLY_SIMULATED.to_owned())?;
+        match pick {
+            Pick::Board(d) => Ok(apply(&board, d)),
+            Pick::JamAtPosition(p) => {
+                let cfg = self.config().axes.get(axis).ok_or("no such axis")?;
+                let rail = rail_mm(cfg, h.snapshot().position, board.view().position_mm, *p)
+                    .ok_or("this axis's scale cannot place the jam")?;
+                apply(&board, &Drill::JamAt(rail));
+                Ok(format!("will jam at {p} {} ({rail:.1} mm on its rail)", cfg.scale.unit))
             }
         }
     }

@@ -68,6 +68,7 @@ where
     P: MachinePort,
     S: Future<Output = ()>,
 {
+    app.drillable = (0..app.axes.len()).map(|i| port.drillable(i)).collect();
     let (notice_tx, mut notice_rx) = mpsc::channel(NOTICE_DEPTH);
     let lanes = spawn_lanes(&port, app.axes.len(), &notice_tx);
     if let Some(mut engine_events) = port.events() {
@@ -188,7 +189,7 @@ fn describe(c: &AxisCommand) -> &'static str {
         AxisCommand::MoveTo(_) | AxisCommand::MoveWithin { .. } => "go to",
         AxisCommand::Stop => "stop",
         AxisCommand::ClearTrip => "clear trip",
-        AxisCommand::SetController(_) => "new gains",
+        AxisCommand::SetController(..) => "new gains",
         AxisCommand::LinkReport { .. } => "link report",
         AxisCommand::Home => "home",
         AxisCommand::JogStep { .. } => "jog step",
@@ -268,6 +269,11 @@ fn execute<P: MachinePort>(
                 let result = job.await;
                 let _ = notices.send(Notice::History { axis, result }).await;
             });
+        }
+        Effect::Drill { axis, pick } => {
+            // A short lock the simulated board reads at its tick: done here, in the key path.
+            let result = port.drill(axis, &pick);
+            app.on_notice(now, Notice::Drill { axis, result });
         }
         Effect::WriteCopy { path, config } => {
             spawn_save(notices.clone(), config, true, move |c| {

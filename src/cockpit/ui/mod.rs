@@ -9,6 +9,7 @@
 
 pub mod axis_panel;
 pub mod detail;
+pub mod drill;
 pub mod footer;
 pub mod header;
 pub mod log_panel;

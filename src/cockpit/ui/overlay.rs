@@ -157,6 +157,9 @@ fn confirm(app: &App, area: Rect, buf: &mut Buffer) {
 fn prompt(app: &App, p: &Prompt, area: Rect, buf: &mut Buffer) {
     let t = app.theme;
     let (title, help) = match p.purpose {
+        Purpose::Drill { axis } => {
+            return crate::cockpit::ui::drill::render(app, p, axis, area, buf)
+        }
         Purpose::GoTo { axis } => {
             let a = &app.config.axes[axis];
             (
