@@ -212,7 +212,11 @@ async fn run(v: Variant, speed: f64, fault: Fault) -> Outcome {
             // For docs and for looking at a case by hand.
             let name = format!("{}-{speed}-{fault:?}.csv", v.name.replace([' ', ','], ""));
             let _ = std::fs::create_dir_all(&keep);
-            let _ = std::fs::write(std::path::Path::new(&keep).join(name), &text);
+            let keep = std::path::Path::new(&keep);
+            let _ = std::fs::write(keep.join(&name), &text);
+            // The sidecar says what tripped and how the axis was configured.
+            let sidecar = std::path::Path::new(&path).with_extension("json");
+            let _ = std::fs::copy(sidecar, keep.join(name).with_extension("json"));
         }
         CaptureFile::read(std::path::Path::new(&path)).expect("parses").record(None).expect("x")
     } else {

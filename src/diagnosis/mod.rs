@@ -169,8 +169,8 @@ pub const CANNOT_SEE_SLIP: &str = "whether the belt slipped: the encoder is on t
      carriage and compare its travel with the reading, or re-home and compare the switch \
      position)";
 
-/// The sentence about a supply the record does not measure; with saturation, gain too low
-/// and a weaker drive.
+/// The sentence about a supply the record does not measure; with saturation and gain too low
+/// (a weaker drive says it its own way).
 pub const CANNOT_SEE_SAG: &str = "whether the motor supply sagged: the record has the duty, not \
      the voltage, so a weak supply looks like a move too demanding for the motor (measure the \
      supply at the board while the axis accelerates)";
@@ -209,8 +209,15 @@ pub fn diagnose(rec: &TripRecord) -> Diagnosis {
             )
         }
     };
-    if matches!(head.cause, Cause::Saturation | Cause::GainTooLow | Cause::WeakerDrive) {
-        cannot_tell.push(CANNOT_SEE_SAG.to_owned());
+    match head.cause {
+        Cause::Saturation | Cause::GainTooLow => cannot_tell.push(CANNOT_SEE_SAG.to_owned()),
+        Cause::WeakerDrive => cannot_tell.push(
+            "whether the supply sagged or the load grew: the record has the duty, not the \
+             voltage or the current (measure the supply at the board while the axis moves, \
+             then move the carriage by hand with the motor unpowered)"
+                .to_owned(),
+        ),
+        _ => {}
     }
     let ambiguous = others
         .first()

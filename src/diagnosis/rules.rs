@@ -740,15 +740,18 @@ pub fn weaker_drive(v: &View<'_>) -> Option<Candidate> {
         0.8,
         vec![
             format!(
-                "at the one profile speed {:.1} {u}/s: {d_early:.0} % duty gave {v_early:.1}                  {u}/s at first ({}), {d_late:.0} % gave only {v_late:.1} {u}/s at the end",
+                "at the one profile speed {:.1} {u}/s: {d_early:.0} % duty gave {v_early:.1} \
+                 {u}/s at first ({}), {d_late:.0} % gave only {v_late:.1} {u}/s at the end",
                 cruise_v.abs(),
                 v.ago(first.t)
             ),
-            "the axis still moved: not a jam, but the motor got weaker or its load heavier              during the move"
+            "the axis still moved: not a jam, but the motor got weaker or its load heavier \
+             during the move"
                 .to_owned(),
         ],
         vec![
-            "the motor supply at the board while the axis moves: a sagging supply, a weak              battery, a thin or long supply cable"
+            "the motor supply at the board while the axis moves: a sagging supply, a weak \
+             battery, a thin or long supply cable"
                 .to_owned(),
             "something dragging on the carriage: a cable, a brake, debris on the rail".to_owned(),
         ],
