@@ -7,6 +7,7 @@
 //! - [`app`]: the cockpit's state; applies actions, samples snapshots, derives the event log.
 //! - [`history`], [`event_log`]: ring buffers of sampled values; the event log.
 //! - [`jog`]: jog settings and the one place jog/home keys meet the engine.
+//! - [`lists`]: the list screen's state (which list, how its run stands).
 //! - [`gain_edit`], [`save`]: checking a typed gain; saving gains into the file atomically.
 //! - [`ui`]: drawing, a pure function of the state.
 //! - [`runner`]: the event loop; [`port`]: the trait the loop needs from a machine.
@@ -24,6 +25,7 @@ pub mod gain_edit;
 pub mod history;
 pub mod jog;
 pub mod keys;
+pub mod lists;
 pub mod logging;
 pub mod port;
 pub mod runner;

@@ -1,13 +1,19 @@
 //! The cockpit's whole view of the engine, as a small trait.
 //!
-//! The runner needs five things from a machine: the latest snapshots, stop-all (set,
-//! release, read), a way to send one command to one axis, and machine-wide homing. Behind a trait, tests drive the
+//! The runner needs a few things from a machine: the latest snapshots, stop-all (set,
+//! release, read), a way to send one command to one axis, machine-wide homing, coordinated
+//! moves and move lists. Behind a trait, tests drive the
 //! real event loop with a fake machine, and the UI cannot grow a dependency on engine
 //! internals.
 
 use std::future::Future;
 
+use tokio::sync::{mpsc, watch};
+
+use crate::engine::line_move::LineOutcome;
 use crate::engine::{AxisCommand, AxisSnapshot, CommandError, MachineHandle};
+use crate::move_list::runner::{ListControl, ListOutcome, Progress};
+use crate::move_list::MoveList;
 
 /// What the cockpit needs from a running machine.
 pub trait MachinePort: Send + Sync + 'static {
@@ -37,6 +43,28 @@ pub trait MachinePort: Send + Sync + 'static {
     ) -> impl Future<Output = Result<crate::commission::Outcome, String>> + Send + 'static {
         let _ = (axis, config, step);
         async { Err("this machine cannot run tests".to_owned()) }
+    }
+    /// Moves `goals` together on one straight line ([`crate::engine::line_move::move_line`])
+    /// and resolves when every axis is in position or the move ended early.
+    fn move_line(
+        &self,
+        goals: Vec<(String, f64)>,
+    ) -> impl Future<Output = Result<LineOutcome, String>> + Send + 'static {
+        let _ = goals;
+        async { Err("this machine cannot make coordinated moves".to_owned()) }
+    }
+    /// Runs a move list ([`crate::move_list::runner::run_list`]) from step `from`, under
+    /// `control` (pause, resume, abort), sending every progress event to `progress`; resolves
+    /// to its outcome, or to why it could not start.
+    fn run_list(
+        &self,
+        list: MoveList,
+        from: usize,
+        control: watch::Receiver<ListControl>,
+        progress: mpsc::UnboundedSender<Progress>,
+    ) -> impl Future<Output = Result<ListOutcome, String>> + Send + 'static {
+        let _ = (list, from, control, progress);
+        async { Err("this machine cannot run move lists".to_owned()) }
     }
     /// The machine's event stream, when it has one (trip captures, notices).
     fn events(&self) -> Option<tokio::sync::broadcast::Receiver<crate::engine::Event>> {
@@ -80,6 +108,33 @@ impl MachinePort for MachineHandle {
                 ..crate::commission::StepRequest::new(step)
             };
             crate::commission::run(&h, &config, &req).await
+        }
+    }
+
+    fn move_line(
+        &self,
+        goals: Vec<(String, f64)>,
+    ) -> impl Future<Output = Result<LineOutcome, String>> + Send + 'static {
+        let h = self.clone();
+        async move {
+            crate::engine::line_move::move_line(&h, &goals, 1.0).await.map_err(|e| e.to_string())
+        }
+    }
+
+    fn run_list(
+        &self,
+        list: MoveList,
+        from: usize,
+        control: watch::Receiver<ListControl>,
+        progress: mpsc::UnboundedSender<Progress>,
+    ) -> impl Future<Output = Result<ListOutcome, String>> + Send + 'static {
+        let h = self.clone();
+        async move {
+            crate::move_list::runner::run_list(&h, &list, from, control, |p| {
+                let _ = progress.send(p.clone());
+            })
+            .await
+            .map_err(|e| e.to_string())
         }
     }
 
