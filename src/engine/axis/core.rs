@@ -14,16 +14,15 @@ use std::sync::Arc;
 use tokio::time::Instant;
 
 use super::handle::{AxisCommand, CommandError, Reply, StopAll};
+use super::motion::{Drive, JogTap, Motion};
 use super::move_stats::MoveStats;
-use super::{ActiveProfile, JogKeys};
 use crate::config::AxisConfig;
 use crate::control::{Controller, Setpoint};
 use crate::engine::events::EventKind;
-use crate::engine::experiment::{ExperimentResult, ExperimentRun};
+use crate::engine::experiment::ExperimentResult;
 use crate::engine::history::History;
-use crate::engine::homing::HomingRun;
 use crate::engine::link_quality::LinkQuality;
-use crate::engine::snapshot::{AxisSnapshot, AxisState, Trip, TripCause};
+use crate::engine::snapshot::{AxisSnapshot, AxisState, TripCause};
 use crate::engine::supervisor::Supervisor;
 use crate::protocol::{self, HostMessage, Telemetry};
 
@@ -41,46 +40,16 @@ impl Output {
     const NOTHING: Self = Self { send: None, ticks: 0 };
 }
 
-/// A stretch of duty answers, from the first Duty after Stop answers.
-#[derive(Debug, Clone, Copy)]
-pub(super) struct Drive {
-    /// Seq echoed by the first duty answer.
-    pub(super) since_seq: u16,
-    /// The board showed its motor on with an `ack_seq` of this drive: from then on a motor
-    /// it reports off is a trip.
-    pub(super) confirmed: bool,
-    /// Board ticks since the drive began.
-    pub(super) ticks: u32,
-}
-
-impl Drive {
-    /// Feeds one frame; true once the board's status counts: confirmed (motor on with an
-    /// ack of this drive), or never confirmed within `grace_ticks` (a board that ignores its
-    /// duty is as wrong as one that drops it). An ack alone is not proof: after Configure
-    /// the board's ack_seq starts at 0, which a drive beginning at seq 0 would match.
-    pub(super) fn frame(
-        &mut self,
-        ack_seq: u16,
-        motor_on: bool,
-        ticks: u32,
-        grace_ticks: u32,
-    ) -> bool {
-        self.ticks = self.ticks.saturating_add(ticks);
-        let acked = ack_seq.wrapping_sub(self.since_seq) < u16::MAX / 2;
-        self.confirmed |= acked && motor_on;
-        self.confirmed || self.ticks > grace_ticks
-    }
-}
-
 /// One axis's state and decisions.
 pub struct AxisCore {
     pub(super) cfg: AxisConfig,
     pub(super) name: Arc<str>,
     pub(super) controller: Controller,
     pub(super) supervisor: Supervisor,
-    pub(super) state: AxisState,
-    pub(super) trip: Option<Trip>,
-    pub(super) profile: Option<ActiveProfile>,
+    /// The motion state with the data only that state has (motion.rs).
+    pub(super) motion: Motion,
+    /// A first jog press waiting for its repeat (never kept while jogging).
+    pub(super) tap: Option<JogTap>,
     pub(super) setpoint: Setpoint,
     pub(super) goal: f64,
     /// Host-side unwrapped count.
@@ -91,11 +60,7 @@ pub struct AxisCore {
     /// Set when the motor comes on (or homing ends); cleared once the position is inside the
     /// soft limits. While set, the soft-limit rule is off so the axis can be brought back in.
     pub(super) outside_limits: bool,
-    pub(super) homing: Option<HomingRun>,
-    /// Extra |duty| limit while homing pushes into an end stop, %.
-    pub(super) duty_limit: Option<f64>,
-    pub(super) jog: Option<JogKeys>,
-    pub(super) experiment: Option<ExperimentRun>,
+    /// The last finished test's result, until it is taken.
     pub(super) experiment_result: Option<Box<ExperimentResult>>,
     pub(super) position: f64,
     pub(super) velocity: f64,
@@ -109,14 +74,7 @@ pub struct AxisCore {
     pub(super) stop: StopAll,
     /// Duty commanded for the interval now running, %.
     pub(super) duty: f64,
-    /// In-position dwell (moves) or standstill wait (category 1 stop) started at, board s.
-    pub(super) settle_since: Option<f64>,
     pub(super) moves: MoveStats,
-    /// Board time the running move's profile ends, s (for the not-in-position rule).
-    pub(super) move_planned_end: f64,
-    /// The present drive (None while the answers are Stop): whether the board has confirmed
-    /// it, which is when its status bits start to count.
-    pub(super) drive: Option<Drive>,
     /// Bad and missed frames over the last second, for link-quality events.
     quality: LinkQuality,
     pub(super) history: History,
@@ -141,19 +99,14 @@ impl AxisCore {
             cfg,
             controller,
             supervisor,
-            state: AxisState::Offline,
-            trip: None,
-            profile: None,
+            motion: Motion::Offline,
+            tap: None,
             setpoint: Setpoint::default(),
             goal: 0.0,
             count: 0,
             offset: 0.0,
             homed: false,
             outside_limits: true,
-            homing: None,
-            duty_limit: None,
-            jog: None,
-            experiment: None,
             experiment_result: None,
             position: 0.0,
             velocity: 0.0,
@@ -163,10 +116,7 @@ impl AxisCore {
             link_up: false,
             stop,
             duty: 0.0,
-            settle_since: None,
             moves: MoveStats::default(),
-            move_planned_end: 0.0,
-            drive: None,
             quality: LinkQuality::new(tick_hz),
             history,
             events: Vec::new(),
@@ -185,7 +135,7 @@ impl AxisCore {
 
     /// The motion state.
     pub fn state(&self) -> AxisState {
-        self.state
+        self.motion.state()
     }
 
     /// Board time, s.
@@ -201,11 +151,9 @@ impl AxisCore {
             self.event(e);
         }
         let send = self.answer();
-        match send {
-            HostMessage::Duty { seq, .. } => {
-                self.drive.get_or_insert(Drive { since_seq: seq, confirmed: false, ticks: 0 });
-            }
-            _ => self.drive = None,
+        // A Duty answer goes out only while driven; a Stop ends any drive with the motion.
+        if let (HostMessage::Duty { seq, .. }, Some(slot)) = (send, self.motion.drive_slot()) {
+            slot.get_or_insert(Drive { since_seq: seq, confirmed: false, ticks: 0 });
         }
         Output { send: Some(send), ticks }
     }
@@ -238,8 +186,8 @@ impl AxisCore {
         self.last = None;
         self.quality = LinkQuality::new(self.cfg.board.tick_hz);
         self.event(EventKind::Link { up: true, detail });
-        if self.state == AxisState::Offline {
-            self.state = if self.stop.latched { AxisState::Stopped } else { AxisState::Disabled };
+        if matches!(self.motion, Motion::Offline) {
+            self.motion = if self.stop.latched { Motion::Stopped } else { Motion::Disabled };
         }
     }
 
@@ -270,8 +218,8 @@ impl AxisCore {
         self.link_up = false;
         self.last = None;
         self.event(EventKind::Link { up: false, detail: why.to_owned() });
-        if self.trip.is_none() && self.state != AxisState::Offline {
-            let was_on = self.state.motor_on();
+        if !matches!(self.motion, Motion::Tripped(_) | Motion::Offline) {
+            let was_on = self.motion.driven();
             self.latch_trip(
                 TripCause::LinkLoss,
                 format!(
@@ -285,7 +233,9 @@ impl AxisCore {
     /// Stop, at once: the duty is zero from now on (disable, stop-all category 0, shutdown).
     pub fn motor_off(&mut self) -> Output {
         self.duty = 0.0;
-        self.drive = None;
+        if let Some(slot) = self.motion.drive_slot() {
+            *slot = None;
+        }
         Output { send: Some(HostMessage::Stop { seq: self.echo_seq() }), ticks: 0 }
     }
 
@@ -294,7 +244,7 @@ impl AxisCore {
     /// ticks (docs/protocol.md).
     pub fn answer(&self) -> HostMessage {
         let seq = self.echo_seq();
-        if self.state.motor_on() {
+        if self.motion.driven() {
             let sign = if self.cfg.scale.invert_motor { -1.0 } else { 1.0 };
             let full = f64::from(protocol::DUTY_FULL_SCALE);
             let wire = (sign * self.duty / 100.0 * full).round().clamp(-full, full) as i16;
@@ -321,7 +271,7 @@ impl AxisCore {
 
     /// Writes the core's part of the snapshot (everything but the link's figures).
     pub fn fill_snapshot(&self, s: &mut AxisSnapshot) {
-        s.state = self.state;
+        s.state = self.motion.state();
         s.homed = self.homed;
         s.position = self.position;
         s.target = self.setpoint.position;
@@ -330,8 +280,9 @@ impl AxisCore {
         s.following_error = self.setpoint.position - self.position;
         s.following_error_band = self.supervisor.following_error_band(self.setpoint.velocity);
         s.duty = self.duty;
-        if s.trip != self.trip {
-            s.trip.clone_from(&self.trip);
+        let trip = self.motion.trip();
+        if s.trip.as_ref() != trip {
+            s.trip = trip.cloned();
         }
         s.board_time_s = self.t;
         s.stop_latched = self.stop.latched;
@@ -519,19 +470,5 @@ mod tests {
             core.on_frame(&f.next(0), now);
         }
         assert_ne!(core.state(), AxisState::Testing, "the steps and settle time have passed");
-    }
-
-    // The board's fresh ack_seq after Configure is 0, the same number a drive that begins
-    // with frame 0 echoes: only the motor-on bit with that ack proves the duty arrived.
-    #[test]
-    fn a_drive_counts_once_the_board_shows_it_applied_or_after_the_grace() {
-        let mut d = Drive { since_seq: 0, confirmed: false, ticks: 0 };
-        assert!(!d.frame(0, false, 1, 100), "ack 0 before any duty arrived");
-        assert!(d.frame(0, true, 1, 100), "motor on with the drive's ack");
-        assert!(d.frame(5, false, 1, 100), "confirmed: a motor off now counts");
-        let mut d = Drive { since_seq: 7, confirmed: false, ticks: 0 };
-        assert!(!d.frame(6, true, 1, 100), "an older duty's ack is not this drive's");
-        assert!(!d.frame(6, false, 99, 100));
-        assert!(d.frame(6, false, 1, 100), "never applied within the grace");
     }
 }
