@@ -331,9 +331,16 @@ impl AxisCore {
         Ok(Reply::Done)
     }
 
+    /// A jog may start while steady, moving, jogging or in an operator's stop (a tap during
+    /// the deceleration), never during a stop that ends with power off: that is stop-all's,
+    /// and a jog would turn it back into motion with stop-all still latched.
     fn require_jog_ready(&self) -> Result<(), CommandError> {
         match self.motion.run() {
-            Some(Run::Steady | Run::Moving(_) | Run::Jogging(_) | Run::Stopping(_)) => Ok(()),
+            Some(Run::Steady | Run::Moving(_) | Run::Jogging(_)) => Ok(()),
+            Some(Run::Stopping(StopRun::Ramp { then: AfterStop::Hold, .. })) => Ok(()),
+            Some(Run::Stopping(_)) if self.stop.latched => {
+                Err(self.refuse(Refusal::StopAllLatched))
+            }
             _ => Err(self.refuse(Refusal::NotNow { asked: Asked::Jog, state: self.state() })),
         }
     }

@@ -300,20 +300,25 @@ mod tests {
     //! demo gantry's X axis (configs/demo-greenhouse.toml, invented numbers) is the subject.
     use std::time::Duration;
 
+    use super::super::motion::{AfterStop, Run, StopRun};
     use super::*;
     use crate::config::MachineConfig;
     use crate::engine::experiment::{ExperimentBounds, ExperimentSpec};
+    use crate::engine::refusal::Refusal;
 
     /// A board standing still at `count`, streaming at the configured tick.
     struct Frames {
         seq: u16,
         time_us: u32,
         tick_us: u32,
+        /// Status bits the next frames carry.
+        status: u8,
     }
 
     impl Frames {
         fn new(core: &AxisCore) -> Self {
-            Self { seq: 0, time_us: 0, tick_us: 1_000_000 / u32::from(core.cfg.board.tick_hz) }
+            let tick_us = 1_000_000 / u32::from(core.cfg.board.tick_hz);
+            Self { seq: 0, time_us: 0, tick_us, status: 0 }
         }
 
         fn next(&mut self, count: i32) -> Telemetry {
@@ -322,11 +327,22 @@ mod tests {
                 board_time_us: self.time_us,
                 count,
                 inputs: 0,
-                status: 0,
+                status: self.status,
                 ack_seq: 0,
             };
             self.seq = self.seq.wrapping_add(1);
             self.time_us = self.time_us.wrapping_add(self.tick_us);
+            tm
+        }
+
+        /// The next frame of a board that applies what the host answered (motor on with an
+        /// ack of the previous answer while the core drives).
+        fn applied(&mut self, core: &AxisCore, count: i32) -> Telemetry {
+            let mut tm = self.next(count);
+            if core.motion.driven() {
+                tm.status |= crate::protocol::status::MOTOR_ON;
+                tm.ack_seq = tm.seq.wrapping_sub(1);
+            }
             tm
         }
     }
@@ -470,5 +486,208 @@ mod tests {
             core.on_frame(&f.next(0), now);
         }
         assert_ne!(core.state(), AxisState::Testing, "the steps and settle time have passed");
+    }
+
+    // ---- Transitions carry their own data (motion.rs): what a state leaves behind. ----
+
+    /// Holding, and homed by declaration (a test shortcut: moves need a homed axis).
+    fn homed_x(stop_category: u8) -> (AxisCore, Frames, Instant) {
+        let (mut core, f, now) = holding_x(stop_category);
+        core.homed = true;
+        (core, f, now)
+    }
+
+    /// The raw count of a board whose axis follows the host's setpoint exactly (a perfect
+    /// drive, one tick late), up to an end stop at raw count `stop` on the positive side.
+    fn following(core: &AxisCore, stop: i32) -> i32 {
+        let raw = (core.setpoint.position - core.offset) * core.cfg.scale.counts_per_unit;
+        (raw.round() as i32).min(stop)
+    }
+
+    #[test]
+    fn a_stop_during_a_move_keeps_nothing_of_the_move() {
+        let (mut core, mut f, now) = homed_x(1);
+        let l = &core.cfg.limits;
+        let goal = (l.soft_min + 0.25 * (l.soft_max - l.soft_min)).max(l.soft_min + 1.0);
+        core.command(AxisCommand::MoveTo(goal), now).0.expect("moves");
+        let Some(Run::Moving(m)) = core.motion.run() else { panic!("{:?}", core.motion) };
+        assert!(m.ramp.is_some() && m.planned_end > core.t && m.settle_since.is_none());
+        for _ in 0..5 {
+            let tm = f.applied(&core, following(&core, i32::MAX));
+            core.on_frame(&tm, now);
+        }
+        core.command(AxisCommand::Stop, now).0.expect("stops");
+        // The stop holds its own ramp and what follows it; the move's goal, planned end and
+        // dwell timer are gone with the move.
+        let Some(Run::Stopping(StopRun::Ramp { ramp, then })) = core.motion.run() else {
+            panic!("{:?}", core.motion)
+        };
+        assert_eq!(*then, AfterStop::Hold);
+        assert_eq!(core.goal, ramp.profile.goal());
+        assert!((core.goal - goal).abs() > 1.0, "the stop aims near here, not at the goal");
+        for _ in 0..2000 {
+            if core.state() == AxisState::Steady {
+                break;
+            }
+            let tm = f.applied(&core, following(&core, i32::MAX));
+            core.on_frame(&tm, now);
+        }
+        assert_eq!(core.state(), AxisState::Steady);
+        assert_eq!(core.moves.moves_done, 0, "the stopped move never arrived");
+        assert!(!core.moves.in_position);
+    }
+
+    #[test]
+    fn clearing_a_trip_leaves_no_trip_data() {
+        let (mut core, mut f, now) = holding_x(1);
+        core.on_frame(&f.next(0), now);
+        core.on_frame(&f.next(core.cfg.limits.encoder_jump_counts as i32 * 10), now);
+        let cause = core.motion.trip().map(|t| t.cause);
+        assert_eq!(cause, Some(TripCause::EncoderJump));
+        let mut snap = AxisSnapshot::offline("x", "mm");
+        core.fill_snapshot(&mut snap);
+        assert!(snap.trip.is_some());
+        assert_eq!(core.command(AxisCommand::ClearTrip, now).0, Ok(Reply::Done));
+        assert!(matches!(core.motion, Motion::Disabled), "{:?}", core.motion);
+        assert!(core.motion.trip().is_none());
+        core.fill_snapshot(&mut snap);
+        assert_eq!((snap.state, snap.trip), (AxisState::Disabled, None));
+        // Enabled again, it holds where it is with no drive left over from before the trip.
+        core.command(AxisCommand::Enable, now).0.expect("enables");
+        assert!(core.motion.drive().is_none());
+    }
+
+    /// The demo's lift (z) homes by pushing into its top stop (configs/demo-greenhouse.toml).
+    fn holding_z() -> (AxisCore, Frames, Instant) {
+        let cfg = MachineConfig::demo().expect("demo").axes[2].clone();
+        assert_eq!(cfg.homing.method, crate::config::HomingMethod::HardStop);
+        let mut core = AxisCore::new(cfg, 1.0, StopAll { latched: false, category: 1 });
+        core.link_up("test link".to_owned());
+        let mut f = Frames::new(&core);
+        let now = Instant::now();
+        core.on_frame(&f.next(0), now);
+        core.command(AxisCommand::Enable, now).0.expect("enables");
+        (core, f, now)
+    }
+
+    #[test]
+    fn a_homing_duty_limit_lives_and_ends_with_homing() {
+        let (mut core, mut f, now) = holding_z();
+        // The end stop 3 mm above the start.
+        let stop = (3.0 * core.cfg.scale.counts_per_unit) as i32;
+        let hard_stop_duty = core.cfg.homing.hard_stop_duty;
+        core.command(AxisCommand::Home, now).0.expect("homes");
+        let mut limited = false;
+        for _ in 0..5000 {
+            if core.state() != AxisState::Homing {
+                break;
+            }
+            let tm = f.applied(&core, following(&core, stop));
+            core.on_frame(&tm, now);
+            if let Some(lim) = core.motion.duty_limit() {
+                limited = true;
+                assert_eq!(lim, hard_stop_duty);
+                assert!(core.duty.abs() <= lim + 1e-9, "duty {} over the limit", core.duty);
+            }
+        }
+        assert!(limited, "the push ran under the homing duty limit");
+        assert_eq!(core.state(), AxisState::Steady, "{:?}", core.motion.trip());
+        assert!(core.homed);
+        assert!(core.motion.homing().is_none() && core.motion.duty_limit().is_none());
+    }
+
+    #[test]
+    fn stopping_homing_drops_its_run_and_duty_limit() {
+        let (mut core, mut f, now) = holding_z();
+        core.command(AxisCommand::Home, now).0.expect("homes");
+        core.on_frame(&f.next(0), now);
+        assert_eq!(core.motion.duty_limit(), Some(core.cfg.homing.hard_stop_duty));
+        core.command(AxisCommand::Stop, now).0.expect("stops");
+        assert_eq!(core.state(), AxisState::Stopping);
+        assert!(core.motion.homing().is_none() && core.motion.duty_limit().is_none());
+        assert!(!core.homed, "a stopped homing run homes nothing");
+    }
+
+    #[test]
+    fn a_held_jog_key_lives_in_the_jog_and_a_tap_expires_on_its_own() {
+        let (mut core, mut f, t0) = holding_x(1);
+        let pulse = AxisCommand::JogPulse { direction: 1, speed: 5.0 };
+        core.command(pulse.clone(), t0).0.expect("first press");
+        assert!(core.tap.is_some(), "a first press waits for its repeat");
+        assert_eq!(core.state(), AxisState::Moving, "a tap is a short step");
+        let repeat = t0 + Duration::from_secs_f64(core.cfg.jog.repeat_window_s / 2.0);
+        core.command(pulse, repeat).0.expect("repeat");
+        let Some(Run::Jogging(j)) = core.motion.run() else { panic!("{:?}", core.motion) };
+        assert_eq!(j.direction, 1);
+        assert!(j.deadman > repeat);
+        assert!(core.tap.is_none(), "while jogging the key lives in the jog");
+        core.command(AxisCommand::JogRelease, repeat).0.expect("release");
+        assert_eq!(core.state(), AxisState::Stopping);
+        assert!(core.tap.is_none());
+        // A tap in the other direction while the release ramp runs, then no repeat: once its
+        // window has passed the key memory is gone.
+        let tap = AxisCommand::JogPulse { direction: -1, speed: 5.0 };
+        core.command(tap, repeat).0.expect("a tap during an operator's stop");
+        assert!(core.tap.is_some());
+        let late = repeat + Duration::from_secs_f64(core.cfg.jog.repeat_window_s * 2.0);
+        core.on_frame(&f.next(0), late);
+        assert!(core.tap.is_none());
+    }
+
+    #[test]
+    fn a_jog_press_cannot_turn_a_stop_all_ramp_back_into_motion() {
+        let (mut core, mut f, now) = homed_x(1);
+        core.stop_all(StopAll { latched: true, category: 1 });
+        let Some(Run::Stopping(StopRun::Ramp { then, .. })) = core.motion.run() else {
+            panic!("{:?}", core.motion)
+        };
+        assert_eq!(*then, AfterStop::Off);
+        let press = AxisCommand::JogPulse { direction: 1, speed: 5.0 };
+        let (answer, _) = core.command(press, now);
+        assert!(
+            matches!(answer, Err(CommandError::Refused { reason: Refusal::StopAllLatched, .. })),
+            "{answer:?}"
+        );
+        assert_eq!(core.state(), AxisState::Stopping);
+        for _ in 0..300 {
+            core.on_frame(&f.next(0), now);
+        }
+        assert_eq!(core.state(), AxisState::Stopped);
+    }
+
+    #[test]
+    fn stop_all_released_during_its_ramp_ends_disabled_not_stuck_stopped() {
+        let (mut core, mut f, now) = holding_x(1);
+        core.stop_all(StopAll { latched: true, category: 1 });
+        assert_eq!(core.state(), AxisState::Stopping);
+        core.stop_all(StopAll { latched: false, category: 1 });
+        assert_eq!(core.state(), AxisState::Stopping, "the stop runs to its end");
+        for _ in 0..300 {
+            core.on_frame(&f.next(0), now);
+        }
+        assert_eq!(core.state(), AxisState::Disabled);
+        assert!(matches!(core.answer(), HostMessage::Stop { .. }));
+        assert_eq!(core.command(AxisCommand::Enable, now).0, Ok(Reply::Done));
+    }
+
+    #[test]
+    fn a_trip_during_a_test_files_the_test_and_keeps_only_the_trip() {
+        let (mut core, mut f, now) = holding_x(1);
+        let spec = ExperimentSpec::DutySteps { steps: vec![(10.0, 1.0)], settle_s: 0.5 };
+        let bounds = ExperimentBounds { travel: 1.0, seconds: 2.0 };
+        core.command(AxisCommand::Experiment { spec, bounds }, now).0.expect("starts");
+        for _ in 0..3 {
+            core.on_frame(&f.next(0), now);
+        }
+        assert!(matches!(core.motion.run(), Some(Run::Testing(_))));
+        f.status = crate::protocol::status::DRIVER_FAULT;
+        core.on_frame(&f.next(0), now);
+        assert_eq!(core.motion.trip().map(|t| t.cause), Some(TripCause::BoardFault));
+        let Ok(Reply::Experiment(Some(result))) = core.command(AxisCommand::TakeExperiment, now).0
+        else {
+            panic!("the cut-short test is filed")
+        };
+        assert!(result.aborted.as_deref().is_some_and(|w| w.starts_with("trip")), "{result:?}");
+        assert!(!result.samples.is_empty());
     }
 }

@@ -335,7 +335,9 @@ impl AxisCore {
                 self.moves.arrived(t);
             }
             Next::Off => {
-                self.motion = Motion::Stopped;
+                // Stopped while stop-all holds; released during the stop, the axis ends
+                // disabled, as releasing would have made it (stopped would have no way out).
+                self.motion = if self.stop.latched { Motion::Stopped } else { Motion::Disabled };
                 self.supervisor.reset();
             }
         }
