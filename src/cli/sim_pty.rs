@@ -145,8 +145,14 @@ pub fn run(args: &SimArgs) -> Result<u8, Failure> {
                 eprintln!("servotty: axis {} is not simulated; skipped", axis.name);
                 continue;
             };
-            let (board_end, host_end) = tokio_serial::SerialStream::pair()
+            let (board_end, host_end) = mio_serial::SerialStream::pair()
                 .map_err(|e| Failure::Machine(format!("cannot create a pseudo-terminal: {e}")))?;
+            // Our own stream type, not tokio-serial's: the master sees a hang-up until the
+            // host opens the other side, and tokio keeps a hang-up for good; tokio-serial's
+            // stream then read EAGAIN about a hundred times per tick and board (the bulk of
+            // this simulator's CPU). `TtyStream` registers afresh instead (see its docs).
+            let board_end = crate::link::tty::TtyStream::new(board_end)
+                .map_err(|e| Failure::Machine(format!("cannot wait on a pseudo-terminal: {e}")))?;
             let Some(path) = serialport::SerialPort::name(&host_end) else {
                 return Err(Failure::Machine("the pseudo-terminal has no name".to_owned()));
             };
