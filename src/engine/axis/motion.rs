@@ -56,6 +56,10 @@ use crate::engine::homing::HomingRun;
 use crate::engine::snapshot::{AxisState, Trip};
 
 /// Where the axis's motion stands.
+// One value per axis, changed in place and never collected: the size difference between
+// the motor-off variants and a driven one with its profile costs nothing, while boxing would
+// allocate in the control loop at every move and stop.
+#[allow(clippy::large_enum_variant)]
 #[derive(Debug)]
 pub(super) enum Motion {
     /// No link to the board.
@@ -155,6 +159,8 @@ pub(super) struct HomingDrive {
 }
 
 /// A controlled deceleration and what follows it.
+// Kept inline for the same reason as `Motion`: a stop must not allocate.
+#[allow(clippy::large_enum_variant)]
 #[derive(Debug, Clone, Copy)]
 pub(super) enum StopRun {
     /// Following the deceleration ramp.
