@@ -8,7 +8,8 @@ use clap::Args;
 use serde::Serialize;
 use tokio::sync::watch;
 
-use crate::cli::{emit, emit_json, Failure, MachineArgs, EXIT_FAILED, EXIT_OK};
+use crate::cli::json_round::{emit_json, Rounding};
+use crate::cli::{emit, Failure, MachineArgs, EXIT_FAILED, EXIT_OK};
 use crate::move_list::runner::{self, ListControl, ListOutcome};
 use crate::move_list::{describe, ListError, MoveList, PlannedStep};
 
@@ -76,6 +77,7 @@ pub fn run(args: &RunArgs) -> Result<u8, Failure> {
     }
     let list = &list;
     crate::cli::with_machine(&args.machine, |h| async move {
+        let rounding = Rounding::of(h.config());
         let offline = h.wait_linked(std::time::Duration::from_secs(3)).await;
         if let Some(a) = offline.first() {
             return Err(Failure::Machine(format!("{a}: {}", h.offline_reason(a))));
@@ -88,7 +90,7 @@ pub fn run(args: &RunArgs) -> Result<u8, Failure> {
         if dry {
             let plan = runner::plan(&h, list, from).map_err(|e| list_failure(&e))?;
             if json {
-                emit_json(&DryRun { ok: true, dry_run: true, steps: &plan })?;
+                emit_json(&DryRun { ok: true, dry_run: true, steps: &plan }, &rounding)?;
             } else {
                 emit(&plan_table(&plan))?;
             }
@@ -116,7 +118,7 @@ pub fn run(args: &RunArgs) -> Result<u8, Failure> {
             e => list_failure(&e),
         })?;
         if json {
-            emit_json(&out)?;
+            emit_json(&out, &rounding)?;
         } else {
             emit(&outcome_table(&out, list.steps.len()))?;
         }
