@@ -124,9 +124,9 @@ pub fn run(args: &SimArgs) -> Result<u8, Failure> {
         )));
     }
     let (cfg, _) = crate::config::MachineConfig::load_or_demo(args.machine.config.as_deref())?;
-    // Unlike the host, the simulated boards pay a PTY read and write per tick each, which on
-    // a small VM costs most of a core for eight boards: spread them over two workers so the
-    // boards keep their tick (the host they test stays on one thread).
+    // The boards pay a PTY read and write per tick each (about 8 % of a core for sixteen on
+    // the 2-core build VM, docs/performance.md): two workers let them keep their tick while
+    // a host or a build takes the other core (the host they test stays on one thread).
     let rt = tokio::runtime::Builder::new_multi_thread()
         .worker_threads(2)
         .enable_all()
