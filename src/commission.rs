@@ -1,8 +1,11 @@
-//! Commissioning steps on a live machine: run one bounded experiment on an axis, analyse the
-//! record, and say what was found and which gains follow. Shared by `servotty tune` and the
-//! cockpit, so both run exactly the same procedure.
+//! Tuning steps on a live machine: run one or more trials on an axis, analyse the record, and
+//! say what was found and which gains follow. Shared by `servotty tune` and the cockpit, so
+//! both run exactly the same steps.
 //!
-//! The experiments run in the axis loop (`engine::experiment`); the analysis is pure
+//! Words (the same in every message, help text and doc): a *trial* is one bounded motion the
+//! axis loop runs and records (`engine::experiment`; state word `trialing`); *tuning* is what
+//! the operator does with them, one step at a time (`tune identify`) or all steps in turn
+//! (`tune all`, "full tuning"). The trials run in the axis loop; the analysis is pure
 //! (`tuning`). This module only sequences them and words the result.
 
 use std::path::PathBuf;
@@ -16,7 +19,7 @@ use crate::engine::{AxisCommand, AxisHandle, AxisState, MachineHandle, Reply};
 use crate::tuning::compare::{self, Comparison};
 use crate::tuning::{ident, relay, report, suggest};
 
-/// Which commissioning step.
+/// Which tuning step.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
 pub enum TuneStep {
     /// A short duty pulse forwards: does the encoder count up?
@@ -29,7 +32,7 @@ pub enum TuneStep {
     Relay,
     /// A closed-loop step: rise, overshoot, settling; CSV and SVG saved.
     Step,
-    /// The guided pass for a freshly wired axis: direction, breakaway, identify (gains),
+    /// Full tuning, guided, for a freshly wired axis: direction, breakaway, identify (gains),
     /// verification step, step report; stops at the first failure.
     All,
 }
@@ -43,9 +46,9 @@ pub struct StepRequest {
     pub travel: Option<f64>,
     /// Duty for direction and relay, %.
     pub duty: Option<f64>,
-    /// Step size for the step test, units.
+    /// Step size for the step trial, units.
     pub size: Option<f64>,
-    /// Folder for the step test's CSV and SVG (the state folder's `steps` when None).
+    /// Folder for the step trial's CSV and SVG (the state folder's `steps` when None).
     pub out_dir: Option<PathBuf>,
     /// Relay: the sliding-friction offset u0 (%) to correct for (from `identify`); none when
     /// None (the result then says so).
@@ -76,7 +79,7 @@ impl StepRequest {
 /// What a step found.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Outcome {
-    /// False when the axis did not do what the step checks (or the test was cut short).
+    /// False when the axis did not do what the step checks (or a trial was cut short).
     pub ok: bool,
     /// Lines for a person.
     pub text: String,
@@ -90,7 +93,7 @@ pub struct Outcome {
     pub verification: Option<Comparison>,
 }
 
-/// The plan of one step: experiment, bounds, and a sentence for the warning.
+/// The plan of one step: trial, bounds, and a sentence for the warning.
 pub fn plan(args: &StepRequest, a: &AxisConfig) -> (ExperimentSpec, ExperimentBounds) {
     let max = a.controller.max_duty;
     let duty = args.duty.unwrap_or(30.0).clamp(1.0, max);
@@ -210,7 +213,7 @@ pub fn identify_text(id: &ident::Identification, s: &suggest::Suggestion, u: &st
     )
 }
 
-/// What a relay experiment measured, one paragraph (shared with `analyze relay`).
+/// What a relay trial measured, one paragraph (shared with `analyze relay`).
 pub fn relay_text(rr: &relay::RelayResult, s: &suggest::Suggestion, u: &str) -> String {
     let u = if u.is_empty() { "unit" } else { u };
     let p = rr.point;
@@ -315,37 +318,41 @@ async fn run_experiment(
     let limit = Duration::from_secs_f64(bounds.seconds + 5.0);
     let _ = tokio::time::timeout(
         limit,
-        rx.wait_for(|s| !matches!(s.state, AxisState::Testing | AxisState::Stopping)),
+        rx.wait_for(|s| !matches!(s.state, AxisState::Trialing | AxisState::Stopping)),
     )
     .await;
     match a.send(AxisCommand::TakeExperiment).await.map_err(|e| e.to_string())? {
         Reply::Experiment(Some(r)) => Ok(*r),
-        _ => Err("the test did not finish".to_owned()),
+        _ => Err("the trial did not finish".to_owned()),
     }
 }
 
 /// Runs one step on axis `a` (which must be linked; it is enabled if it is not). The axis is
-/// left steady (or as the test left it); `a` is the axis's live configuration.
+/// left steady (or as the trial left it); `a` is the axis's live configuration.
 ///
 /// # Errors
-/// A sentence: the axis refused, the test did not finish, or the analysis failed.
+/// A sentence: the axis refused, a trial did not finish, or the analysis failed.
 pub async fn run(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Result<Outcome, String> {
     if args.step == TuneStep::All {
-        return pass(h, a, args).await;
+        return full_tuning(h, a, args).await;
     }
     run_one(h, a, args).await
 }
 
-/// The steps of the guided pass before the verification, in order.
+/// The steps of full tuning before the verification, in order.
 pub const PASS: [TuneStep; 4] =
     [TuneStep::Direction, TuneStep::Breakaway, TuneStep::Identify, TuneStep::Step];
 
-/// The guided pass (module docs of [`TuneStep::All`]): each step says what it will do and
-/// what it found; the first failure ends the pass with its reason. The suggestion is verified
+/// Full tuning ([`TuneStep::All`]): each step says what it will do and what it found; the
+/// first failure ends it with its reason. The suggestion is verified
 /// against the current gains; when it is not worse, the step report (CSV, SVG, text summary)
 /// is made with it, and the axis goes back to its current gains (the front end applies or
 /// saves on request).
-async fn pass(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Result<Outcome, String> {
+async fn full_tuning(
+    h: &MachineHandle,
+    a: &AxisConfig,
+    args: &StepRequest,
+) -> Result<Outcome, String> {
     let u = &a.scale.unit;
     let mut text = String::new();
     let mut steps = Vec::new();
@@ -388,10 +395,10 @@ async fn pass(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Result<O
             steps.push(serde_json::json!({ "step": name, "ok": r.ok, "result": r.result }));
             if let Some(csv) = r.result["csv"].as_str() {
                 let summary = std::path::Path::new(csv).with_extension("txt");
-                let body = format!("servotty guided pass, axis {}\n\n{text}", a.name);
+                let body = format!("servotty full tuning, axis {}\n\n{text}", a.name);
                 report::write_atomically(&summary, body.as_bytes())
                     .map_err(|e| format!("{}: {e}", summary.display()))?;
-                text.push_str(&format!("pass summary saved {}\n", summary.display()));
+                text.push_str(&format!("full-tuning summary saved {}\n", summary.display()));
             }
             break;
         }
@@ -416,7 +423,7 @@ async fn pass(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Result<O
         text.push_str(&format!("{}\n", out.text));
         steps.push(serde_json::json!({ "step": name, "ok": out.ok, "result": out.result }));
         if !out.ok {
-            text.push_str(&format!("stopped at {name}: it did not pass\n"));
+            text.push_str(&format!("stopped at {name}: its check failed\n"));
             return Ok(fail(text, steps));
         }
         if step == TuneStep::Breakaway {
@@ -428,7 +435,7 @@ async fn pass(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Result<O
             found = Some(out);
         }
     }
-    let found = found.ok_or("the pass ended before identification")?;
+    let found = found.ok_or("full tuning ended before identification")?;
     let worse = found.verification.as_ref().is_some_and(|v| v.is_worse());
     if worse {
         text.push_str("stopped at the gains: the suggestion is worse than the current gains\n");
@@ -446,13 +453,13 @@ async fn pass(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Result<O
 async fn run_one(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Result<Outcome, String> {
     let (spec, bounds) = plan(args, a);
     let axis = h.axis(&a.name).ok_or("no such axis")?;
-    // A test never enables an axis behind the operator's back: the front end enables it
+    // A trial never enables an axis behind the operator's back: the front end enables it
     // when the operator asked for that (the CLI says so in the plan it confirms).
     let state = axis.snapshot().state;
     if !state.motor_on() {
-        return Err(format!("{} is {state}: enable it first, then start the test", a.name));
+        return Err(format!("{} is {state}: enable it first, then tune", a.name));
     }
-    // Let the hold settle so the test starts from rest.
+    // Let the hold settle so the trial starts from rest.
     tokio::time::sleep(Duration::from_millis(200)).await;
     let u = a.scale.unit.clone();
     let resolution = 1.0 / a.scale.counts_per_unit;
@@ -475,7 +482,7 @@ async fn run_one(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
     if let Some(why) = &r.aborted {
         return Ok(Outcome {
             ok: false,
-            text: format!("test ended early: {why}"),
+            text: format!("trial ended early: {why}"),
             result: serde_json::json!({ "aborted": why }),
             proposed: String::new(),
             suggested: None,
@@ -486,7 +493,7 @@ async fn run_one(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
     let mut patch_text = String::new();
     let mut suggestion: Option<suggest::Suggestion> = None;
     let (ok, text, extra) = match args.step {
-        TuneStep::All => unreachable!("the pass runs its steps one at a time"),
+        TuneStep::All => unreachable!("full tuning runs its steps one at a time"),
         TuneStep::Direction => {
             let moved = r.samples.last().map_or(0.0, |s| s.position) - r.start_position;
             let counts = (moved / resolution).round();
@@ -566,7 +573,7 @@ async fn run_one(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
                 (breakaway_of(f, resolution).ok(), breakaway_of(r, resolution).ok())
             });
             // Never below the measured breakaway; without it, never below the configured
-            // minimum duty (which a breakaway test or a person set).
+            // minimum duty (which a breakaway trial or a person set).
             so.breakaway_forward_pct = Some(args.breakaway.map_or_else(
                 || bf.map_or(a.controller.min_duty_forward, |b| round_up_half(b.duty_pct)),
                 |b| b.0,

@@ -12,9 +12,9 @@
 //! - [`control`]: controllers (on-off, proportional, PID) and motion profiles.
 //! - [`engine`]: one task per axis (loop, supervision, state machine) and the machine core.
 //! - [`cockpit`]: the terminal UI (overview, axis detail, event log, keymap, gain saving).
-//! - [`tuning`]: commissioning analysis (identification, relay autotuning, tuning rules, gain
-//!   suggestions, step-test reports); pure functions on recorded samples.
-//! - [`commission`]: commissioning steps on a live machine (experiment, then analysis).
+//! - [`tuning`]: tuning analysis (identification, relay autotuning, tuning rules, gain
+//!   suggestions, step reports); pure functions on recorded trials.
+//! - [`commission`]: tuning steps on a live machine (trials, then analysis).
 //! - [`process`]: exit codes and the runtime every front end shares.
 //! - [`cli`]: the headless subcommands and argument parsing; `main.rs` only dispatches.
 

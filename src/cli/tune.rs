@@ -1,4 +1,4 @@
-//! `servotty tune STEP AXIS`: the commissioning steps, headless (the procedure itself is in
+//! `servotty tune STEP AXIS`: the tuning steps, headless (the steps themselves are in
 //! `commission`, shared with the cockpit).
 //!
 //! Every step moves the axis: it says how far and how long before it starts and does nothing
@@ -55,7 +55,7 @@ pub struct TuneArgs {
     /// current gains' (it is refused otherwise).
     #[arg(long)]
     pub even_if_worse: bool,
-    /// Folder for the step test's CSV and SVG (default: the state folder's `steps`).
+    /// Folder for the step trial's CSV and SVG (default: the state folder's `steps`).
     #[arg(long, value_name = "DIR")]
     pub out: Option<PathBuf>,
     /// Print one JSON object instead of text.

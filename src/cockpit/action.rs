@@ -74,9 +74,9 @@ pub enum Action {
     JogStep(Dir),
     /// Jog the selected axis continuously while the key is held (auto-repeat keeps it going).
     JogHold(Dir),
-    /// Run a commissioning test on the selected axis (asks which).
+    /// Run a tuning step on the selected axis (asks which).
     Test,
-    /// Apply the gains the last test suggested.
+    /// Apply the gains the last tuning step suggested.
     ApplySuggested,
     /// The held jog key was released (only terminals with the keyboard enhancement protocol
     /// report releases; elsewhere the engine's deadman ends the jog).
@@ -148,7 +148,7 @@ pub enum Effect {
     },
     /// Home every axis in the configured order (its end comes back as a notice).
     HomeAll,
-    /// Run a commissioning test (its result comes back as a notice).
+    /// Run a tuning step (its result comes back as a notice).
     Tune {
         /// Axis index.
         axis: usize,

@@ -196,8 +196,8 @@ fn describe(c: &AxisCommand) -> &'static str {
         AxisCommand::JogRelease => "jog release",
         AxisCommand::History => "history",
         AxisCommand::LiveController => "live gains",
-        AxisCommand::Experiment { .. } => "test",
-        AxisCommand::TakeExperiment => "test result",
+        AxisCommand::Experiment { .. } => "trial",
+        AxisCommand::TakeExperiment => "trial result",
     }
 }
 

@@ -43,7 +43,7 @@ fn items(app: &App) -> Vec<(&'static str, &'static str)> {
                 out.push(("w", "write file"));
             }
             out.extend_from_slice(for_axis);
-            out.extend_from_slice(&[("t", "test"), ("Tab", "axis"), ("?", "help")]);
+            out.extend_from_slice(&[("t", "tune"), ("Tab", "axis"), ("?", "help")]);
         }
         Mode::Log => out.extend_from_slice(&[("Esc", "back"), ("↑↓", "scroll"), ("End", "newest")]),
         Mode::Trip => out.extend_from_slice(&[("Esc", "back"), ("l", "log"), ("?", "help")]),

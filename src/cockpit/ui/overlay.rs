@@ -191,8 +191,8 @@ fn prompt(app: &App, p: &Prompt, area: Rect, buf: &mut Buffer) {
             "the built-in demo has no file; write a copy to:".to_owned(),
         ),
         Purpose::Test { axis } => (
-            format!("{}: commissioning test (the axis moves)", app.config.axes[axis].name),
-            "d direction · b breakaway · i identify · r relay · s step".to_owned(),
+            format!("{}: tune (the axis moves)", app.config.axes[axis].name),
+            "d direction · b breakaway · i identify · r relay · s step · a all".to_owned(),
         ),
     };
     let mut lines = vec![

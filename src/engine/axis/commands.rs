@@ -71,7 +71,7 @@ impl AxisCore {
             }
             AxisCommand::MoveWithin { goal, limits } => (self.start_move(goal, limits), false),
             AxisCommand::Stop => {
-                if self.state == AxisState::Testing {
+                if self.state == AxisState::Trialing {
                     self.end_experiment(Some("stopped by the operator".to_owned()));
                     self.setpoint.velocity = self.velocity;
                     self.state = AxisState::Moving;
@@ -144,7 +144,7 @@ impl AxisCore {
         self.homing = None;
         self.duty_limit = None;
         self.jog = None;
-        if self.state == AxisState::Testing {
+        if self.state == AxisState::Trialing {
             self.end_experiment(Some("stop-all".to_owned()));
             self.setpoint.velocity = self.velocity;
         }
@@ -366,19 +366,19 @@ impl AxisCore {
         bounds: ExperimentBounds,
     ) -> Result<Reply, CommandError> {
         if self.state != AxisState::Steady {
-            return Err(self.refuse(Refusal::NotNow { asked: Asked::Test, state: self.state }));
+            return Err(self.refuse(Refusal::NotNow { asked: Asked::Trial, state: self.state }));
         }
         let positive = |v: f64| v.is_finite() && v > 0.0;
         if !positive(bounds.travel) || !positive(bounds.seconds) {
             return Err(
-                self.refuse(Refusal::BadValue("a test needs a travel bound and a time bound > 0"))
+                self.refuse(Refusal::BadValue("a trial needs a travel bound and a time bound > 0"))
             );
         }
         self.experiment_result = None;
         self.experiment =
             Some(ExperimentRun::new(spec, bounds, self.position, self.count, &self.cfg.scale.unit));
         self.profile = None;
-        self.state = AxisState::Testing;
+        self.state = AxisState::Trialing;
         self.moves.leave();
         Ok(Reply::Done)
     }

@@ -514,11 +514,11 @@ mod tests {
         assert!(core.command(cmd.clone(), now).0.is_err(), "disabled: refused");
         core.command(AxisCommand::Enable, now).0.expect("enables");
         assert_eq!(core.command(cmd, now).0, Ok(Reply::Done));
-        assert_eq!(core.state(), AxisState::Testing);
+        assert_eq!(core.state(), AxisState::Trialing);
         for _ in 0..40 {
             core.on_frame(&f.next(0), now);
         }
-        assert_ne!(core.state(), AxisState::Testing, "the steps and settle time have passed");
+        assert_ne!(core.state(), AxisState::Trialing, "the steps and settle time have passed");
     }
 
     // The board's fresh ack_seq after Configure is 0, the same number a drive that begins

@@ -87,7 +87,7 @@ impl AxisCore {
             let l = &self.cfg.limits;
             self.outside_limits = !(l.soft_min..=l.soft_max).contains(&self.position);
         }
-        let testing = self.state == AxisState::Testing;
+        let trialing = self.state == AxisState::Trialing;
         let host_drives = self.state.motor_on() && self.drive.is_some();
         // The board's status counts once it has shown this drive applied (wrapping seq
         // arithmetic for the ack, docs/protocol.md), or after a grace of a link timeout.
@@ -109,8 +109,8 @@ impl AxisCore {
             motor_on: self.state.motor_on() && !pushing,
             limits_active: self.homed
                 && !self.outside_limits
-                && !matches!(self.state, AxisState::Homing | AxisState::Testing),
-            following_active: !testing,
+                && !matches!(self.state, AxisState::Homing | AxisState::Trialing),
+            following_active: !trialing,
             host_drives,
             drive_acked,
             board_motor_on: board_on,
@@ -160,7 +160,7 @@ impl AxisCore {
 
     /// Feeds a running experiment. Returns the open-loop duty to apply, if it gives one.
     fn step_experiment(&mut self) -> Option<f64> {
-        if self.state != AxisState::Testing {
+        if self.state != AxisState::Trialing {
             return None;
         }
         let run = self.experiment.as_mut()?;
@@ -203,8 +203,8 @@ impl AxisCore {
         if let Some(run) = self.experiment.take() {
             let result = run.finish(why);
             let text = match &result.aborted {
-                Some(r) => format!("test ended early: {r}"),
-                None => "test finished".to_owned(),
+                Some(r) => format!("trial ended early: {r}"),
+                None => "trial finished".to_owned(),
             };
             self.experiment_result = Some(Box::new(result));
             self.event(EventKind::Notice { text });
