@@ -14,6 +14,7 @@ use std::time::Duration;
 use clap::ValueEnum;
 
 use crate::config::{AxisConfig, ControllerConfig};
+use crate::engine::events::ChangedBy;
 use crate::engine::experiment::{ExperimentBounds, ExperimentResult, ExperimentSpec};
 use crate::engine::{AxisCommand, AxisHandle, AxisState, MachineHandle, Reply};
 use crate::tuning::compare::{self, Comparison};
@@ -287,10 +288,14 @@ pub async fn verify(
     }
     let current = figures(&first)?;
     run_experiment(axis, back.clone(), bounds).await?;
-    axis.send(AxisCommand::SetController(candidate.clone())).await.map_err(|e| e.to_string())?;
+    axis.send(AxisCommand::SetController(candidate.clone(), ChangedBy::Verification))
+        .await
+        .map_err(|e| e.to_string())?;
     let second = run_experiment(axis, out, bounds).await;
     // Back to the current gains whatever happened, then back to the start.
-    axis.send(AxisCommand::SetController(a.controller.clone())).await.map_err(|e| e.to_string())?;
+    axis.send(AxisCommand::SetController(a.controller.clone(), ChangedBy::Verification))
+        .await
+        .map_err(|e| e.to_string())?;
     let second = second?;
     on(axis)?;
     tokio::time::sleep(Duration::from_millis(200)).await;
@@ -376,7 +381,9 @@ async fn full_tuning(
             let worse = out.verification.as_ref().is_some_and(|v| v.is_worse());
             let c = out.suggested.clone().filter(|_| !worse).unwrap_or(a.controller.clone());
             let axis = h.axis(&a.name).ok_or("no such axis")?;
-            axis.send(AxisCommand::SetController(c.clone())).await.map_err(|e| e.to_string())?;
+            axis.send(AxisCommand::SetController(c.clone(), ChangedBy::GuidedPass))
+                .await
+                .map_err(|e| e.to_string())?;
             let mut with = a.clone();
             with.controller = c;
             text.push_str(&format!(
@@ -387,7 +394,7 @@ async fn full_tuning(
                 b.seconds
             ));
             let r = run_one(h, &with, &req).await;
-            axis.send(AxisCommand::SetController(a.controller.clone()))
+            axis.send(AxisCommand::SetController(a.controller.clone(), ChangedBy::GuidedPass))
                 .await
                 .map_err(|e| e.to_string())?;
             let r = r?;

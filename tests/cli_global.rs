@@ -56,6 +56,29 @@ fn config_before_or_after_the_subcommand_is_used() {
     assert!(err(&out).contains("broken.toml"), "{}", err(&out));
 }
 
+// One printer for every front end: the cockpit and `sim` fail as the headless commands do,
+// with the same single `servotty: ` line and the same exit code.
+#[test]
+fn every_front_end_fails_the_same_way() {
+    let (_d, path) = broken();
+    let home = servotty(&["-c", &path, "home", "--yes"]);
+    assert_eq!(home.status.code(), Some(2), "{}", err(&home));
+    for args in [&["-c", &path][..], &["-c", &path, "cockpit"], &["-c", &path, "sim", "--pty"]] {
+        let out = servotty(args);
+        assert_eq!(out.status.code(), home.status.code(), "{args:?}: {}", err(&out));
+        assert_eq!(err(&out), err(&home), "{args:?}");
+    }
+    assert_eq!(err(&home).lines().count(), 1, "{}", err(&home));
+    assert!(err(&home).starts_with("servotty: "), "{}", err(&home));
+    // Usage problems of the cockpit and of `sim` are exit 2 with one line too.
+    for args in [&["cockpit"][..], &["sim"]] {
+        let out = servotty(args);
+        assert_eq!(out.status.code(), Some(2), "{args:?}: {}", err(&out));
+        assert_eq!(err(&out).lines().count(), 1, "{args:?}: {}", err(&out));
+        assert!(err(&out).starts_with("servotty: "), "{args:?}: {}", err(&out));
+    }
+}
+
 #[test]
 fn port_before_or_after_the_subcommand_is_used() {
     let dev = "x=/dev/servotty-no-such-port";

@@ -9,6 +9,7 @@ use servotty::cockpit::app::{Notice, Overlay, Purpose, Screen};
 use servotty::cockpit::event_log::Kind;
 use servotty::cockpit::{App, Theme};
 use servotty::config::ConfigSource;
+use servotty::engine::events::ChangedBy;
 use servotty::engine::{AxisCommand, AxisState};
 
 fn now() -> std::time::Duration {
@@ -174,7 +175,8 @@ fn a_gain_is_checked_applied_live_and_marked_unsaved() {
     }
     type_text(&mut app, "9.5");
     let fx = app.apply(now(), Action::EntrySubmit);
-    let [Effect::Command { axis: 0, command: AxisCommand::SetController(c) }] = fx.as_slice()
+    let [Effect::Command { axis: 0, command: AxisCommand::SetController(c, ChangedBy::CockpitEdit) }] =
+        fx.as_slice()
     else {
         panic!("{fx:?}")
     };
@@ -321,7 +323,13 @@ fn a_commissioning_test_is_asked_for_run_and_its_gains_applied() {
     );
     assert!(log_texts(&app).iter().any(|t| t.contains("velocity gain 2.5")));
     let fx = app.apply(now(), Action::ApplySuggested);
-    assert_eq!(fx, vec![Effect::Command { axis: 0, command: AxisCommand::SetController(c) }]);
+    assert_eq!(
+        fx,
+        vec![Effect::Command {
+            axis: 0,
+            command: AxisCommand::SetController(c, ChangedBy::CockpitSuggestion)
+        }]
+    );
     assert_eq!(app.config.axes[0].controller.kp, 18.88);
     assert!(app.unsaved());
     // Nothing left to apply.
@@ -355,7 +363,13 @@ fn a_commissioning_test_is_asked_for_run_and_its_gains_applied() {
     assert_eq!(app.apply(now(), Action::ApplySuggested), vec![]);
     assert_eq!(app.config.axes[0].controller.kp, 18.88);
     let fx = app.apply(now(), Action::ApplySuggested);
-    assert_eq!(fx, vec![Effect::Command { axis: 0, command: AxisCommand::SetController(worse) }]);
+    assert_eq!(
+        fx,
+        vec![Effect::Command {
+            axis: 0,
+            command: AxisCommand::SetController(worse, ChangedBy::CockpitSuggestion)
+        }]
+    );
 }
 
 #[test]
@@ -377,7 +391,13 @@ fn engine_events_an_operator_must_know_reach_the_event_panel() {
     let mut app = s::normal();
     let x = Some(std::sync::Arc::from("x"));
     let feed = [
-        (x.clone(), EventKind::Gains { changes: vec!["kp 20.0 → 25.0".into()] }, Kind::Info),
+        (
+            x.clone(),
+            EventKind::Gains {
+                changes: vec!["kp 20.0 → 25.0".into()], by: ChangedBy::CockpitEdit
+            },
+            Kind::Info,
+        ),
         (
             x.clone(),
             EventKind::LinkQuality { missed: 250, bad: 0, window: 1000, poor: true },
@@ -394,7 +414,7 @@ fn engine_events_an_operator_must_know_reach_the_event_panel() {
     assert_eq!(
         texts,
         [
-            "x: gains changed live: kp 20.0 → 25.0",
+            "x: gains changed live by cockpit edit: kp 20.0 → 25.0",
             "x: poor link: 250 missed and 0 bad of the last 1000 frames",
             "machine: RECORDER FAILED: event log write failed",
             "machine: interrupted by SIGTERM: motors off",

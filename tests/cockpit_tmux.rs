@@ -167,3 +167,28 @@ fn alternate_on(t: &Tmux) -> String {
     let out = t.run(&["display-message", "-p", "-t", &t.session, "#{alternate_on}"]);
     String::from_utf8_lossy(&out.stdout).trim().to_owned()
 }
+
+// SIGTERM from outside (`timeout`, systemd, `kill`) ends the cockpit as it ends every
+// command: terminal restored, motors off, the one printer's line and 128 + 15 (IEEE Std
+// 1003.1, Shell Command Language, 2.8.2 "Exit Status for Commands").
+#[test]
+fn sigterm_ends_the_cockpit_with_143() {
+    if !tmux_present() {
+        eprintln!("tmux is not installed: skipping the cockpit signal test");
+        return;
+    }
+    let dir = tempfile::tempdir().expect("tempdir");
+    let t = start("cockpit-term", "", dir.path());
+    t.wait_for("three disabled axes", |s| s.matches("disabled").count() >= 3);
+    // The pane's shell runs servotty as its only child.
+    let out = t.run(&["display-message", "-p", "-t", &t.session, "#{pane_pid}"]);
+    let shell = String::from_utf8_lossy(&out.stdout).trim().to_owned();
+    let child = Command::new("pgrep").args(["-P", &shell]).output().expect("pgrep runs");
+    let pid = String::from_utf8_lossy(&child.stdout).lines().next().unwrap_or("").to_owned();
+    assert!(!pid.is_empty(), "no servotty under the pane's shell {shell}");
+    assert!(Command::new("kill").args(["-TERM", &pid]).status().expect("kill").success());
+    let s = t.wait_for("exit", |s| s.contains("servotty-exit="));
+    assert!(s.contains("servotty-exit=143"), "{s}");
+    assert!(s.contains("servotty: interrupted by SIGTERM; motors off"), "{s}");
+    assert_eq!(alternate_on(&t), "0", "terminal left in the alternate screen");
+}

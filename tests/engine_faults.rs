@@ -7,6 +7,7 @@
 use std::time::Duration;
 
 use servotty::config::MachineConfig;
+use servotty::engine::events::ChangedBy;
 use servotty::engine::{AxisCommand, AxisState, EventKind, Machine, MachineHandle, TripCause};
 use servotty::sim::plant::PlantFaults;
 
@@ -147,7 +148,7 @@ async fn a_poor_link_and_its_recovery_are_events() {
     m.shutdown().await;
 }
 
-/// Gains changed while the axis runs are an event naming each key, old → new.
+/// Gains changed while the axis runs are an event naming each key, old → new, and who.
 #[tokio::test(start_paused = true)]
 async fn a_live_gain_change_is_an_event_with_old_and_new() {
     let cfg = demo();
@@ -155,15 +156,25 @@ async fn a_live_gain_change_is_an_event_with_old_and_new() {
     let mut events = h.events();
     let mut c = cfg.axes[0].controller.clone();
     c.kp = 25.0;
-    h.axis("x").expect("x").send(AxisCommand::SetController(c)).await.expect("set");
-    let changes: Vec<String> = drained(&mut events)
+    let x = h.axis("x").expect("x");
+    x.send(AxisCommand::SetController(c.clone(), ChangedBy::CockpitEdit)).await.expect("set");
+    c.kd = 0.5;
+    x.send(AxisCommand::SetController(c.clone(), ChangedBy::TuneApply)).await.expect("set");
+    // The same gains again change nothing: no event.
+    x.send(AxisCommand::SetController(c, ChangedBy::Other)).await.expect("set");
+    let changes: Vec<(Vec<String>, ChangedBy)> = drained(&mut events)
         .into_iter()
         .filter_map(|k| match k {
-            EventKind::Gains { changes } => Some(changes),
+            EventKind::Gains { changes, by } => Some((changes, by)),
             _ => None,
         })
-        .flatten()
         .collect();
-    assert_eq!(changes, ["kp 20.0 → 25.0"]);
+    assert_eq!(changes.len(), 2, "{changes:?}");
+    assert_eq!(changes[0], (vec!["kp 20.0 → 25.0".to_owned()], ChangedBy::CockpitEdit));
+    assert_eq!(changes[1].1, ChangedBy::TuneApply);
+    assert!(
+        changes[1].0.iter().any(|c| c.starts_with("kd ") && c.ends_with("→ 0.5")),
+        "{changes:?}"
+    );
     m.shutdown().await;
 }

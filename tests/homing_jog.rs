@@ -252,7 +252,9 @@ async fn following_error_trip_writes_a_parseable_capture() {
     // the axis, not the configuration file's.
     let mut live = cfg.axis("x").expect("x").controller.clone();
     live.kp *= 1.25;
-    x.send(AxisCommand::SetController(live.clone())).await.expect("live gains");
+    x.send(AxisCommand::SetController(live.clone(), servotty::engine::events::ChangedBy::Other))
+        .await
+        .expect("live gains");
     x.send(AxisCommand::MoveTo(600.0)).await.expect("move");
     wait_for(&h, "x", Duration::from_secs(2), |s| s.velocity > 100.0).await;
     m.sim("x").expect("sim").set_plant_faults(servotty::sim::plant::PlantFaults {

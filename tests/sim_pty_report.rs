@@ -1,6 +1,6 @@
 //! `servotty sim --pty` reports like a board: on SIGTERM or SIGINT it prints one JSON line per
-//! axis with what the board counted about its host. Real binaries over real PTYs, so this polls
-//! under a generous deadline and asserts nothing about speed.
+//! axis with what the board counted about its host, then exits 143 or 130. Real binaries over
+//! real PTYs, so this polls under a generous deadline and asserts nothing about speed.
 
 use std::io::{BufRead, BufReader};
 use std::process::{Child, Command, Stdio};
@@ -92,7 +92,9 @@ fn sigterm_prints_one_json_line_per_axis_with_the_hosts_replies() {
         .expect("linktest runs");
     assert_eq!(out.status.code(), Some(0), "{}", String::from_utf8_lossy(&out.stderr));
     signal(&sim.0, "TERM");
-    assert_eq!(wait_exit(&mut sim.0), Some(0));
+    // After its report it exits as a command a signal ended does: 128 + 15 (IEEE Std
+    // 1003.1, Shell Command Language, 2.8.2 "Exit Status for Commands").
+    assert_eq!(wait_exit(&mut sim.0), Some(143));
     let r = reports(lines);
     let names: Vec<&str> = r.iter().map(|v| v["axis"].as_str().expect("axis")).collect();
     assert_eq!(names, ["x", "y", "z"]);
@@ -115,7 +117,8 @@ fn sigint_reports_too_and_an_unanswered_board_counts_no_replies() {
     let dir = tempfile::tempdir().expect("tempdir");
     let (mut sim, lines, _ports, _cfg) = start_sim(dir.path());
     signal(&sim.0, "INT");
-    assert_eq!(wait_exit(&mut sim.0), Some(0));
+    // 128 + 2, as above.
+    assert_eq!(wait_exit(&mut sim.0), Some(130));
     let r = reports(lines);
     assert_eq!(r.len(), 3, "{r:?}");
     for v in &r {

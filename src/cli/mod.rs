@@ -15,7 +15,6 @@ use crate::engine::PortOverride;
 pub mod analyze;
 pub mod ask;
 pub mod check;
-pub mod failure;
 pub mod home_cmd;
 pub mod linktest;
 pub mod manual;
@@ -25,8 +24,9 @@ pub mod run;
 pub mod sim_pty;
 pub mod tune;
 
-pub use crate::process::{runtime, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
-pub use failure::{emit, emit_json, Failure};
+pub use crate::process::{
+    emit, emit_json, failure_json, runtime, Failure, EXIT_FAILED, EXIT_OK, EXIT_USAGE,
+};
 
 /// servotty: bring up, tune and run small DC-servo machines from a terminal.
 ///
@@ -253,7 +253,7 @@ pub fn dispatch(cli: &Cli) -> Result<u8, Failure> {
                 }
             }
         }
-        Some(Command::Sim(a)) => Ok(sim_pty::run(a)),
+        Some(Command::Sim(a)) => sim_pty::run(a),
         Some(Command::Move(a)) => move_cmd::run(a),
         Some(Command::Run(a)) => run::run(a),
         Some(Command::Home(a)) => home_cmd::run(a),
@@ -271,8 +271,8 @@ pub fn dispatch(cli: &Cli) -> Result<u8, Failure> {
             refuse_machine("man", &cli.machine)?;
             manual::man_page()
         }
-        Some(Command::Cockpit(m)) => Ok(crate::cockpit::run(m.config.as_deref(), &m.ports)),
-        None => Ok(crate::cockpit::run(cli.machine.config.as_deref(), &cli.machine.ports)),
+        Some(Command::Cockpit(m)) => crate::cockpit::run(m.config.as_deref(), &m.ports),
+        None => crate::cockpit::run(cli.machine.config.as_deref(), &cli.machine.ports),
     }
 }
 
@@ -289,12 +289,6 @@ impl Cli {
             _ => false,
         }
     }
-}
-
-/// The JSON object a `--json` command prints when it fails: the same `ok` and `error` keys
-/// its success object has, plus the exit code.
-pub fn failure_json(message: &str, exit_code: u8) -> serde_json::Value {
-    serde_json::json!({ "ok": false, "error": message, "exit_code": exit_code })
 }
 
 /// Refuses `--port` for a command that opens no machine.

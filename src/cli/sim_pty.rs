@@ -2,12 +2,14 @@
 //! (or any other program) talks to it over a real tty device.
 //!
 //! Stdout carries two things for the programs that drive it: first one `AXIS PATH` line per
-//! served axis; then, when SIGINT or SIGTERM ends it, one JSON line per axis with what the
-//! board counted about its host (see [`AxisReport`]).
+//! served axis; then, when SIGINT, SIGTERM or SIGHUP ends it, one JSON line per axis with
+//! what the board counted about its host (see [`AxisReport`]). It then exits like every
+//! command a signal ends, 128 + the signal's number (130, 143, 129; [`crate::signals`]), so a
+//! script can tell an ended simulator from one that failed to start.
 
 use serde::Serialize;
 
-use crate::cli::{SimArgs, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
+use crate::cli::{Failure, SimArgs};
 use crate::config::TransportConfig;
 use crate::sim::board::{tick_clock, SimBoard, SimBoardHandle, TickClock};
 
@@ -48,43 +50,6 @@ impl AxisReport {
             rushed_ticks: r.rushed_ticks,
             longest_tick_gap_ms: r.longest_tick_gap_us as f64 / 1000.0,
         }
-    }
-}
-
-/// SIGINT and SIGTERM, listened for from creation on (a signal that arrives before the
-/// handler is installed would end the process without its report).
-struct Interrupt {
-    #[cfg(unix)]
-    signals: Option<(tokio::signal::unix::Signal, tokio::signal::unix::Signal)>,
-}
-
-impl Interrupt {
-    /// Installs the handlers (inside the runtime).
-    fn listen() -> Self {
-        #[cfg(unix)]
-        {
-            use tokio::signal::unix::{signal, SignalKind};
-            let signals = match (signal(SignalKind::interrupt()), signal(SignalKind::terminate())) {
-                (Ok(int), Ok(term)) => Some((int, term)),
-                _ => None,
-            };
-            Self { signals }
-        }
-        #[cfg(not(unix))]
-        Self {}
-    }
-
-    /// Resolves at the first SIGINT or SIGTERM.
-    async fn wait(&mut self) {
-        #[cfg(unix)]
-        if let Some((int, term)) = &mut self.signals {
-            tokio::select! {
-                _ = int.recv() => {}
-                _ = term.recv() => {}
-            }
-            return;
-        }
-        let _ = tokio::signal::ctrl_c().await;
     }
 }
 
@@ -143,39 +108,38 @@ async fn drills_from_stdin(boards: Vec<(String, SimBoardHandle)>) {
 }
 
 /// `servotty sim`.
-pub fn run(args: &SimArgs) -> u8 {
+///
+/// # Errors
+/// [`Failure::Usage`] without `--pty` or with `--port`, [`Failure::Config`], or
+/// [`Failure::Machine`] when no pseudo-terminal or runtime can be had; after serving,
+/// [`Failure::Ended`] with the signal that ended it (its report printed first).
+pub fn run(args: &SimArgs) -> Result<u8, Failure> {
     if !args.pty {
-        eprintln!("servotty: sim needs --pty (serve each simulated axis on a pseudo-terminal)");
-        return EXIT_USAGE;
+        return Err(Failure::Usage(
+            "sim needs --pty (serve each simulated axis on a pseudo-terminal)".to_owned(),
+        ));
     }
     if let Some(p) = args.machine.ports.first() {
-        eprintln!(
-            "servotty: --port {}=… does not apply to sim (it serves simulated axes; give the \
-             printed devices to the other command's --port)",
+        return Err(Failure::Usage(format!(
+            "--port {}=… does not apply to sim (it serves simulated axes; give the printed \
+             devices to the other command's --port)",
             p.axis
-        );
-        return EXIT_USAGE;
+        )));
     }
-    let cfg = match crate::config::MachineConfig::load_or_demo(args.machine.config.as_deref()) {
-        Ok((c, _)) => c,
-        Err(e) => {
-            eprintln!("servotty: {e}");
-            return EXIT_USAGE;
-        }
-    };
+    let (cfg, _) = crate::config::MachineConfig::load_or_demo(args.machine.config.as_deref())?;
     // Unlike the host, the simulated boards pay a PTY read and write per tick each, which on
     // a small VM costs most of a core for eight boards: spread them over two workers so the
     // boards keep their tick (the host they test stays on one thread).
-    let rt =
-        match tokio::runtime::Builder::new_multi_thread().worker_threads(2).enable_all().build() {
-            Ok(rt) => rt,
-            Err(e) => {
-                eprintln!("servotty: cannot start the runtime: {e}");
-                return EXIT_FAILED;
-            }
-        };
+    let rt = tokio::runtime::Builder::new_multi_thread()
+        .worker_threads(2)
+        .enable_all()
+        .build()
+        .map_err(|e| Failure::Machine(format!("cannot start the runtime: {e}")))?;
     rt.block_on(async {
-        let mut interrupt = Interrupt::listen();
+        // From the start: a signal that arrives before the handlers are installed would end
+        // the process without its report.
+        let mut signals = crate::signals::Signals::install()
+            .map_err(|e| Failure::Machine(format!("cannot watch for signals: {e}")))?;
         let mut served = Vec::new();
         // One fine-grained tick clock per configured rate, shared by the boards at that rate.
         let mut clocks: Vec<TickClock> = Vec::new();
@@ -184,16 +148,10 @@ pub fn run(args: &SimArgs) -> u8 {
                 eprintln!("servotty: axis {} is not simulated; skipped", axis.name);
                 continue;
             };
-            let (board_end, host_end) = match tokio_serial::SerialStream::pair() {
-                Ok(p) => p,
-                Err(e) => {
-                    eprintln!("servotty: cannot create a pseudo-terminal: {e}");
-                    return EXIT_FAILED;
-                }
-            };
+            let (board_end, host_end) = tokio_serial::SerialStream::pair()
+                .map_err(|e| Failure::Machine(format!("cannot create a pseudo-terminal: {e}")))?;
             let Some(path) = serialport::SerialPort::name(&host_end) else {
-                eprintln!("servotty: the pseudo-terminal has no name");
-                return EXIT_FAILED;
+                return Err(Failure::Machine("the pseudo-terminal has no name".to_owned()));
             };
             // The host opens the path itself (exclusively), so our handle must go.
             drop(host_end);
@@ -215,20 +173,19 @@ pub fn run(args: &SimArgs) -> u8 {
             tokio::spawn(board.run(board_end));
         }
         if served.is_empty() {
-            eprintln!("servotty: no simulated axes to serve");
-            return EXIT_USAGE;
+            return Err(Failure::Usage("no simulated axes to serve".to_owned()));
         }
         // Others read these lines from a pipe to find the devices.
         use std::io::Write as _;
         let _ = std::io::stdout().flush();
         tokio::spawn(drills_from_stdin(served.clone()));
-        interrupt.wait().await;
+        let sig = signals.recv().await;
         let mut out = std::io::stdout().lock();
         for (name, board) in &served {
             let line = serde_json::to_string(&AxisReport::of(name, board)).unwrap_or_default();
             let _ = writeln!(out, "{line}");
         }
         let _ = out.flush();
-        EXIT_OK
+        Err(Failure::Ended(sig))
     })
 }

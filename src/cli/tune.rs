@@ -13,6 +13,7 @@ use crate::cli::progress::{self, Progress};
 use crate::cli::{emit, emit_json, Failure, MachineArgs, EXIT_FAILED, EXIT_OK};
 use crate::commission::{self, StepRequest, TuneStep};
 use crate::config::AxisConfig;
+use crate::engine::events::ChangedBy;
 use crate::engine::{AxisCommand, MachineHandle};
 
 /// `servotty tune`.
@@ -181,7 +182,9 @@ async fn tune(
         let accepted = !worse || args.even_if_worse;
         if let Some(live) = out.suggested.clone().filter(|_| (args.apply || args.save) && accepted)
         {
-            axis.send(AxisCommand::SetController(live.clone())).await.map_err(|e| e.to_string())?;
+            axis.send(AxisCommand::SetController(live.clone(), ChangedBy::TuneApply))
+                .await
+                .map_err(|e| e.to_string())?;
             text.push_str("\napplied to the running axis");
             if args.save {
                 let Some(path) = &file else { return Err("--save needs --config FILE".to_owned()) };

@@ -19,6 +19,7 @@ use crate::cockpit::keys::Mode;
 use crate::cockpit::save::SaveReport;
 use crate::cockpit::theme::Theme;
 use crate::config::{ConfigSource, ControllerConfig, MachineConfig};
+use crate::engine::events::ChangedBy;
 use crate::engine::{AxisCommand, AxisSnapshot, AxisState};
 
 /// Samples kept per axis: 30 s at the default 20 frames/s.
@@ -701,7 +702,7 @@ impl App {
         self.config = next;
         vec![self.command(
             axis,
-            AxisCommand::SetController(c),
+            AxisCommand::SetController(c, ChangedBy::CockpitSuggestion),
             "suggested gains applied (live; w writes them)",
         )]
     }
@@ -736,7 +737,11 @@ impl App {
             plain(old),
             plain(param.get(&controller))
         );
-        Ok(vec![self.command(axis, AxisCommand::SetController(controller), &words)])
+        Ok(vec![self.command(
+            axis,
+            AxisCommand::SetController(controller, ChangedBy::CockpitEdit),
+            &words,
+        )])
     }
 
     /// Takes news from background work.

@@ -41,49 +41,45 @@ pub use theme::Theme;
 use crate::config::MachineConfig;
 use crate::engine::events::EventKind;
 use crate::engine::{EngineStartError, EngineThread, MachineHandle, PortOverride};
-use crate::process::{EXIT_FAILED, EXIT_OK, EXIT_USAGE};
+use crate::process::{Failure, EXIT_OK};
 use crate::signals::{Interrupt, Signals};
 
 /// Opens the cockpit on the machine in `config` (the built-in demo when `None`), with the
-/// axes in `ports` on serial devices; returns the process exit code.
+/// axes in `ports` on serial devices; returns the process exit code, or the failure for the
+/// one printer ([`crate::process::report`]) to print after the terminal is restored.
 ///
-/// Configuration errors are reported on stderr before the terminal is touched. Whatever
-/// happens after, every motor is off when this returns.
-pub fn run(config: Option<&std::path::Path>, ports: &[PortOverride]) -> u8 {
-    let (cfg, source) = match MachineConfig::load_or_demo(config) {
-        Ok(c) => c,
-        Err(e) => {
-            eprintln!("servotty: {e}");
-            return EXIT_USAGE;
-        }
-    };
+/// Configuration errors come back before the terminal is touched. Whatever happens after,
+/// every motor is off when this returns.
+///
+/// # Errors
+/// [`Failure::Config`], [`Failure::Usage`] without a terminal, [`Failure::Start`] for a
+/// `--port` the machine lacks, [`Failure::Interrupted`] when a signal ended it,
+/// [`Failure::Machine`] for what the OS or the terminal refused.
+pub fn run(config: Option<&std::path::Path>, ports: &[PortOverride]) -> Result<u8, Failure> {
+    let (cfg, source) = MachineConfig::load_or_demo(config)?;
     if !(std::io::stdin().is_terminal() && std::io::stdout().is_terminal()) {
-        eprintln!(
-            "servotty: the cockpit needs a terminal; for scripts use `servotty move` or \
+        return Err(Failure::Usage(
+            "the cockpit needs a terminal; for scripts use `servotty move` or \
              `servotty linktest`"
-        );
-        return EXIT_USAGE;
+                .to_owned(),
+        ));
     }
     // Read the local offset now, while the process has one thread (the OS-level lookup is
     // not safe once threads run); the event panel then shows local time of day.
     let day_origin = local_seconds_of_day();
     let log_file = logging::init();
     let paths = crate::engine::recorder::RecorderPaths::resolve(&cfg, &source);
-    let engine = match EngineThread::start(cfg.clone(), ports.to_vec(), Some(paths.clone())) {
-        Ok(e) => e,
-        Err(e) => {
-            eprintln!("servotty: {e}");
-            return match e {
-                EngineStartError::Start(_) => EXIT_USAGE,
-                EngineStartError::Os(_) => EXIT_FAILED,
-            };
-        }
-    };
+    let engine = EngineThread::start(cfg.clone(), ports.to_vec(), Some(paths.clone())).map_err(
+        |e| match e {
+            EngineStartError::Start(s) => Failure::Start(s),
+            e @ EngineStartError::Os(_) => Failure::Machine(e.to_string()),
+        },
+    )?;
     let rt = match crate::process::runtime() {
         Ok(rt) => rt,
         Err(e) => {
-            eprintln!("servotty: cannot start the runtime: {e}");
-            return EXIT_FAILED;
+            engine.shutdown();
+            return Err(Failure::Machine(format!("cannot start the runtime: {e}")));
         }
     };
     let mut app = App::new(cfg, source, Theme::from_env());
@@ -103,16 +99,19 @@ pub fn run(config: Option<&std::path::Path>, ports: &[PortOverride]) -> u8 {
         // `session` drops here: the terminal is restored before anything is printed.
     });
     // Motors off and tasks joined before the process reports anything.
-    engine.shutdown();
+    let report = engine.shutdown();
     if let Some(sig) = caught.get() {
-        eprintln!("servotty: interrupted by {}; motors off", sig.name());
-        return sig.exit_code();
+        return Err(Failure::Interrupted(*sig));
     }
     match result {
-        Ok(()) => EXIT_OK,
+        Ok(()) if report.is_clean() => Ok(EXIT_OK),
+        Ok(()) => Err(Failure::Machine(report.to_string())),
         Err(e) => {
-            eprintln!("servotty: {e}");
-            EXIT_FAILED
+            if !report.is_clean() {
+                // The cockpit's own failure is the one reported; this is what shutdown found.
+                eprintln!("servotty: {report}");
+            }
+            Err(Failure::Machine(e))
         }
     }
 }

@@ -188,7 +188,7 @@ fn describe(c: &AxisCommand) -> &'static str {
         AxisCommand::MoveTo(_) | AxisCommand::MoveWithin { .. } => "go to",
         AxisCommand::Stop => "stop",
         AxisCommand::ClearTrip => "clear trip",
-        AxisCommand::SetController(_) => "new gains",
+        AxisCommand::SetController(..) => "new gains",
         AxisCommand::LinkReport { .. } => "link report",
         AxisCommand::Home => "home",
         AxisCommand::JogStep { .. } => "jog step",

@@ -81,6 +81,8 @@ pub enum EventKind {
     Gains {
         /// One `key old → new` per changed key.
         changes: Vec<String>,
+        /// Who changed them.
+        by: ChangedBy,
     },
     /// The link's quality over the last window of frames fell below the threshold, or
     /// recovered.
@@ -110,6 +112,41 @@ pub enum EventKind {
         /// Why, in words.
         reason: String,
     },
+}
+
+/// Who changed an axis's controller while it runs: every live change says so in its
+/// [`EventKind::Gains`] event, so a trip after a change can be traced to the hand or the step
+/// that made it.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum ChangedBy {
+    /// A value typed into the cockpit's gain editor.
+    CockpitEdit,
+    /// The cockpit's key that applies a commissioning test's suggested gains.
+    CockpitSuggestion,
+    /// `servotty tune … --apply` (or `--save`) putting verified gains on the running axis.
+    TuneApply,
+    /// A verification step trying suggested gains on the axis, and putting the current ones
+    /// back after.
+    Verification,
+    /// The guided pass (`tune all`) running its step report with the gains it settled on,
+    /// and putting the current ones back after.
+    GuidedPass,
+    /// Anything else that sends new gains (a test, a program using the library).
+    Other,
+}
+
+impl std::fmt::Display for ChangedBy {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(match self {
+            Self::CockpitEdit => "cockpit edit",
+            Self::CockpitSuggestion => "cockpit (suggestion applied)",
+            Self::TuneApply => "tune --apply",
+            Self::Verification => "verification step",
+            Self::GuidedPass => "guided pass",
+            Self::Other => "another caller",
+        })
+    }
 }
 
 impl Event {
@@ -142,7 +179,9 @@ impl Event {
             EventKind::Notice { text } => text.clone(),
             EventKind::Capture { path } => format!("capture written: {path}"),
             EventKind::Interrupted { signal } => format!("interrupted by {signal}: motors off"),
-            EventKind::Gains { changes } => format!("gains changed live: {}", changes.join(", ")),
+            EventKind::Gains { changes, by } => {
+                format!("gains changed live by {by}: {}", changes.join(", "))
+            }
             EventKind::LinkQuality { missed, bad, window, poor: true } => {
                 format!("poor link: {missed} missed and {bad} bad of the last {window} frames")
             }

@@ -98,10 +98,10 @@ impl AxisCore {
                 }
                 (Ok(Reply::Done), false)
             }
-            AxisCommand::SetController(c) => {
+            AxisCommand::SetController(c, by) => {
                 let changes = controller_changes(&self.cfg.controller, &c);
                 if !changes.is_empty() {
-                    self.event(EventKind::Gains { changes });
+                    self.event(EventKind::Gains { changes, by });
                 }
                 self.controller.set_config(&c);
                 self.cfg.controller = c;

@@ -53,8 +53,9 @@ pub enum AxisCommand {
     },
     /// The jog key was released (terminals that report releases).
     JogRelease,
-    /// Replace the controller parameters without a bump.
-    SetController(ControllerConfig),
+    /// Replace the controller parameters without a bump; the second field says who (it goes
+    /// into the gain-change event).
+    SetController(ControllerConfig, crate::engine::events::ChangedBy),
     /// Link measurements since the last report (optionally starting afresh).
     LinkReport {
         /// Start a new measurement window after reporting.
@@ -101,7 +102,7 @@ impl AxisCommand {
             Self::JogStep { distance, .. } => format!("jog step {distance:+}"),
             Self::JogPulse { direction, speed } => format!("jog {direction:+} at {speed}"),
             Self::JogRelease => "jog release".into(),
-            Self::SetController(_) => "set controller".into(),
+            Self::SetController(..) => "set controller".into(),
             Self::LinkReport { .. } => "link report".into(),
             Self::History => "history".into(),
             Self::LiveController => "live controller".into(),
