@@ -381,7 +381,7 @@ async fn full_tuning(
             let worse = out.verification.as_ref().is_some_and(|v| v.is_worse());
             let c = out.suggested.clone().filter(|_| !worse).unwrap_or(a.controller.clone());
             let axis = h.axis(&a.name).ok_or("no such axis")?;
-            axis.send(AxisCommand::SetController(c.clone(), ChangedBy::GuidedPass))
+            axis.send(AxisCommand::SetController(c.clone(), ChangedBy::FullTuning))
                 .await
                 .map_err(|e| e.to_string())?;
             let mut with = a.clone();
@@ -394,7 +394,7 @@ async fn full_tuning(
                 b.seconds
             ));
             let r = run_one(h, &with, &req).await;
-            axis.send(AxisCommand::SetController(a.controller.clone(), ChangedBy::GuidedPass))
+            axis.send(AxisCommand::SetController(a.controller.clone(), ChangedBy::FullTuning))
                 .await
                 .map_err(|e| e.to_string())?;
             let r = r?;
