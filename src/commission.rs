@@ -660,25 +660,9 @@ async fn run_one(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
             text.push_str(&format!("  note: {n}\n"));
         }
     }
-    // The same four significant digits as the proposed lines: what is applied live is what a
-    // person reads and what `w` writes.
-    let suggested = suggestion.as_ref().map(|s| {
-        let mut c = s.patch.apply(&a.controller);
-        for v in [
-            &mut c.kp,
-            &mut c.ki,
-            &mut c.kd,
-            &mut c.derivative_filter_s,
-            &mut c.min_duty_forward,
-            &mut c.min_duty_reverse,
-            &mut c.ff_velocity,
-            &mut c.ff_acceleration,
-            &mut c.ff_static,
-        ] {
-            *v = suggest::round_sig(*v, 4);
-        }
-        c
-    });
+    // Rounded as the proposed lines are (the parameter table's rounding): what is applied
+    // live is what a person reads and what `w` writes.
+    let suggested = suggestion.as_ref().map(|s| s.patch.apply_rounded(&a.controller));
     let mut verification = None;
     if let Some(c) = suggested.as_ref().filter(|_| args.verify) {
         let size = args.size.unwrap_or(VERIFY_STEP);

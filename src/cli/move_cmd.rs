@@ -6,9 +6,9 @@ use serde::Serialize;
 
 use crate::cli::progress::{self, Progress};
 use crate::cli::{emit, emit_json, Failure, MoveArgs, Target, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
-use crate::cockpit::format::num;
 use crate::config::MachineConfig;
 use crate::engine::{AxisCommand, AxisState, MachineHandle};
+use crate::format::num;
 
 /// How long the boards have to link.
 const LINK_WAIT: Duration = Duration::from_secs(3);

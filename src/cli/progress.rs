@@ -14,8 +14,8 @@ use std::time::Duration;
 
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 
-use crate::cockpit::format::{decimals_for, num};
 use crate::engine::MachineHandle;
+use crate::format::{decimals_for, num};
 
 /// How often the line is refreshed: often enough to follow an axis, rare enough to cost
 /// nothing over SSH.

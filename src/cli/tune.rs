@@ -188,18 +188,14 @@ async fn tune(
             text.push_str("\napplied to the running axis");
             if args.save {
                 let Some(path) = &file else { return Err("--save needs --config FILE".to_owned()) };
-                let mut whole = h.config().clone();
-                if let Some(ax) = whole.axes.iter_mut().find(|x| x.name == a.name) {
-                    ax.controller = live;
-                }
-                let path = path.clone();
+                let (path, machine, name) = (path.clone(), h.config().clone(), a.name.clone());
                 let step = format!("{:?}", args.step).to_lowercase();
-                let note = crate::cockpit::save::note(&format!(
+                let note = crate::config_write::note(&format!(
                     "tune {step}{}",
                     if worse { " (verified worse, saved anyway)" } else { ", verified" }
                 ));
                 let saved = tokio::task::spawn_blocking(move || {
-                    crate::cockpit::save::save_controllers(&path, &whole, &note)
+                    crate::config_write::save_axis_controller(&path, &machine, &name, &live, &note)
                 })
                 .await
                 .map_err(|e| e.to_string())?

@@ -12,13 +12,14 @@ use std::time::Duration;
 use crate::cockpit::action::{Action, Effect};
 use crate::cockpit::event_log::{EventLog, Kind};
 use crate::cockpit::format::{decimals_for, num, plain};
-use crate::cockpit::gain_edit::{self, Param};
+use crate::cockpit::gain_edit;
 use crate::cockpit::history::{History, Sample};
 use crate::cockpit::jog::{self, JogSettings};
 use crate::cockpit::keys::Mode;
-use crate::cockpit::save::SaveReport;
 use crate::cockpit::theme::Theme;
 use crate::config::{ConfigSource, ControllerConfig, MachineConfig};
+use crate::config_write::SaveReport;
+use crate::control::params::{self, Param};
 use crate::engine::events::ChangedBy;
 use crate::engine::{AxisCommand, AxisSnapshot, AxisState};
 
@@ -321,7 +322,7 @@ impl App {
         self.config
             .axes
             .get(self.selected)
-            .map_or_else(Vec::new, |a| gain_edit::params_for(&a.controller))
+            .map_or_else(Vec::new, |a| params::used_by(&a.controller))
     }
 
     fn name(&self, axis: usize) -> &str {

@@ -23,7 +23,7 @@ use crate::cockpit::action::Effect;
 use crate::cockpit::app::{App, Notice};
 use crate::cockpit::keys;
 use crate::cockpit::port::MachinePort;
-use crate::cockpit::save;
+use crate::config_write as save;
 use crate::engine::AxisCommand;
 
 /// Time between frames (20 frames/s): smooth enough for numbers and bars, and cheap on an
