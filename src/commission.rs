@@ -51,8 +51,8 @@ pub struct StepRequest {
     pub size: Option<f64>,
     /// Folder for the step trial's CSV and SVG (the state folder's `steps` when None).
     pub out_dir: Option<PathBuf>,
-    /// Relay: the sliding-friction offset u0 (%) to correct for (from `identify`); none when
-    /// None (the result then says so).
+    /// Relay: the sliding-friction offset u0 (%) to correct for (from `identify`: the mean of
+    /// its two directions); none when None (the result then says so).
     pub friction: Option<f64>,
     /// Run the verification steps on suggested gains ([`verify`]) before offering them.
     pub verify: bool,
@@ -90,8 +90,9 @@ pub struct Outcome {
     pub proposed: String,
     /// The axis's controller with the suggested gains, when the step suggests gains.
     pub suggested: Option<ControllerConfig>,
-    /// The suggested gains' verification step against the current gains', when asked for.
-    pub verification: Option<Comparison>,
+    /// The suggested gains' verification step against the current gains', when asked for
+    /// (boxed: it is large next to the other fields).
+    pub verification: Option<Box<Comparison>>,
 }
 
 /// The plan of one step: trial, bounds, and a sentence for the warning.
@@ -177,13 +178,15 @@ fn breakaway_ramp(direction: i8, max_duty: f64) -> ExperimentSpec {
 pub const BREAKAWAY_STOP_COUNTS: i64 = 3;
 
 /// Relay hysteresis: proportional to the duty left after sliding friction, `d − u0` (0.3
-/// counts per %, at least 3 counts), so the oscillation keeps the same shape at every duty
-/// and the relay measures the same point of the frequency response whatever duty is chosen
-/// (by homogeneity of the linear part; our choice, measured in docs/tuning.md). Three counts at
-/// least, so a one-count flicker cannot switch the relay. The band is a whole number n of
-/// counts less half a count: the relay switches at the n-th count whatever the rounding.
+/// counts per %), so the oscillation keeps about the same shape at every duty (by homogeneity
+/// of the linear part; our choice, measured in docs/tuning.md). At least 2 counts, so the band
+/// is 3 counts wide and a one-count flicker cannot switch the relay back. The band is a whole
+/// number n of counts less half a count, n the count at or above `0.3·(d − u0)`: the relay
+/// switches at the n-th count whatever the floating-point rounding. A floor of 3 counts and
+/// rounding to the nearest count made the band 0.39, 0.22 and 0.27 counts per % at d = 10,
+/// 15 and 20 % on demo X, and the limit cycle moved between 70 and 81 rad/s.
 pub fn relay_hysteresis(duty: f64, friction: f64, resolution: f64) -> f64 {
-    let n = (0.3 * (duty.abs() - friction.max(0.0))).round().max(3.0);
+    let n = (0.3 * (duty.abs() - friction.max(0.0))).ceil().max(2.0);
     (n - 0.5) * resolution
 }
 
@@ -201,12 +204,15 @@ fn breakaway_of(r: &ExperimentResult, resolution: f64) -> Result<ident::Breakawa
 pub fn identify_text(id: &ident::Identification, s: &suggest::Suggestion, u: &str) -> String {
     let u = if u.is_empty() { "unit" } else { u };
     let m = id.model;
+    let offset = match m.offset_reverse_pct {
+        Some(r) => format!("{:.2} % forwards, {r:.2} % in reverse", m.offset_pct),
+        None => format!("{:.2} %", m.offset_pct),
+    };
     format!(
-        "velocity gain {:.4} {u}/s per %, time constant {:.4} s, friction offset {:.2} %, \
-         delay {} (fit R² {:.4}, position RMS {:.4} {u})\n{}",
+        "velocity gain {:.4} {u}/s per %, time constant {:.4} s, sliding friction offset \
+         {offset}, delay {} (fit R² {:.4}, position RMS {:.4} {u})\n{}",
         m.gain,
         m.time_constant_s,
-        m.offset_pct,
         m.delay_s.map_or_else(|| "not measured".to_owned(), |d| format!("{d:.4} s")),
         id.r_squared,
         id.position_rms,
@@ -579,20 +585,32 @@ async fn run_one(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
             let (bf, br) = ramps.as_ref().map_or((None, None), |(f, r)| {
                 (breakaway_of(f, resolution).ok(), breakaway_of(r, resolution).ok())
             });
-            // Never below the measured breakaway; without it, never below the configured
-            // minimum duty (which a breakaway trial or a person set).
-            so.breakaway_forward_pct = Some(args.breakaway.map_or_else(
-                || bf.map_or(a.controller.min_duty_forward, |b| round_up_half(b.duty_pct)),
-                |b| b.0,
-            ));
-            so.breakaway_reverse_pct = Some(args.breakaway.map_or_else(
-                || br.map_or(a.controller.min_duty_reverse, |b| round_up_half(b.duty_pct)),
-                |b| b.1,
-            ));
+            // Never below the measured breakaway of that direction (nor its sliding offset, in
+            // case a ramp read low); without a breakaway, never below the configured minimum
+            // duty (which a breakaway trial or a person set).
+            let measured = args.breakaway.or_else(|| {
+                bf.zip(br).map(|(f, r)| (round_up_half(f.duty_pct), round_up_half(r.duty_pct)))
+            });
+            let (mf, mr) =
+                measured.unwrap_or((a.controller.min_duty_forward, a.controller.min_duty_reverse));
+            let m = id.model;
+            so.breakaway_forward_pct = Some(mf.max(round_up_half(m.offset_pct)));
+            so.breakaway_reverse_pct = Some(mr.max(round_up_half(m.offset_for(-1.0))));
             let s = suggest::simc(&id.model, &a.controller, &so).map_err(|e| e.to_string())?;
-            let text = format!("{}: {}", a.name, identify_text(&id, &s, &u));
+            let mut text = format!("{}: {}", a.name, identify_text(&id, &s, &u));
+            let raw = bf.zip(br).map(|(f, r)| (f.duty_pct, r.duty_pct));
+            if let Some((f, r)) = raw {
+                text.push_str(&format!(
+                    "\nbreaks away at {f:+.2} % forwards and {r:+.2} % in reverse (ramps)"
+                ));
+            }
             patch_text = s.patch.to_toml_lines();
-            let extra = serde_json::to_value(&id).unwrap_or_default();
+            let mut extra = serde_json::to_value(&id).unwrap_or_default();
+            if let Some(obj) = extra.as_object_mut() {
+                let (f, r) = raw.map_or((None, None), |(f, r)| (Some(f), Some(r)));
+                obj.insert("breakaway_forward_pct".into(), serde_json::json!(f));
+                obj.insert("breakaway_reverse_pct".into(), serde_json::json!(r));
+            }
             suggestion = Some(s);
             (true, text, extra)
         }
@@ -672,7 +690,7 @@ async fn run_one(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
              suggested ones:\n{}",
             v.to_text(&u)
         ));
-        verification = Some(v);
+        verification = Some(Box::new(v));
     }
     Ok(Outcome {
         ok,

@@ -480,9 +480,17 @@ pub struct ControllerConfig {
     /// Acceleration feedforward, % per unit/s² of profile acceleration.
     #[serde(default)]
     pub ff_acceleration: f64,
-    /// Static-friction feedforward, %, added in the direction of profile velocity.
+    /// Static-friction feedforward, %, added in the direction of profile velocity (in both
+    /// directions, unless `ff_static_reverse` gives the reverse one). Negative when the
+    /// minimum duty already pays more than sliding friction: it then takes back at most what
+    /// the velocity feedforward adds.
     #[serde(default)]
     pub ff_static: f64,
+    /// Static-friction feedforward while the profile runs in reverse, % (positive pushes the
+    /// reverse way, as `ff_static` does forwards): for an axis whose friction differs by
+    /// direction, e.g. a lift carrying a weight. `ff_static` when absent.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub ff_static_reverse: Option<f64>,
 }
 
 impl Default for ControllerConfig {
@@ -506,6 +514,7 @@ impl Default for ControllerConfig {
             ff_velocity: 0.0,
             ff_acceleration: 0.0,
             ff_static: 0.0,
+            ff_static_reverse: None,
         }
     }
 }

@@ -97,8 +97,10 @@ pub fn update_text(
         };
         let file_ctl = &on_disk.axes[index].controller;
         for p in params::ALL.iter().copied() {
-            let v = p.get(&axis.controller);
-            if p.get(file_ctl).to_bits() == v.to_bits() {
+            // As stored, not as in force: a key the file leaves out stays out unless the
+            // live value gives it one, and one the live value drops is taken out.
+            let v = p.stored(&axis.controller);
+            if p.stored(file_ctl).map(f64::to_bits) == v.map(f64::to_bits) {
                 continue;
             }
             let table = doc
@@ -111,7 +113,12 @@ pub fn update_text(
                     path: source_name.into(),
                     axis: axis.name.clone(),
                 })?;
-            set_number(table, p.key(), v, note);
+            match v {
+                Some(v) => set_number(table, p.key(), v, note),
+                None => {
+                    table.remove(p.key());
+                }
+            }
             changed.push(format!("{}.controller.{}", axis.name, p.key()));
         }
     }

@@ -115,6 +115,35 @@ pub fn targets(cfg: &MachineConfig, name: &str) -> Result<Vec<Target>, String> {
         .collect())
 }
 
+/// Why spot `name` cannot be gone to now, if it cannot: a value outside its axis's soft
+/// limits (the live configuration may differ from the file's), or an axis that is not homed
+/// (its position is not trusted yet). `homed` answers for an axis name.
+pub fn unreachable(
+    cfg: &MachineConfig,
+    name: &str,
+    homed: impl Fn(&str) -> bool,
+) -> Option<String> {
+    let spot = cfg.spots.get(name.strip_prefix('@').unwrap_or(name))?;
+    let mut outside = Vec::new();
+    let mut unhomed = Vec::new();
+    for (axis, &v) in spot {
+        match cfg.axis(axis) {
+            Some(a) if (a.limits.soft_min..=a.limits.soft_max).contains(&v) => {}
+            _ => outside.push(axis.as_str()),
+        }
+        if !homed(axis) {
+            unhomed.push(axis.as_str());
+        }
+    }
+    if !outside.is_empty() {
+        Some(format!("outside the soft limits: {}", outside.join(", ")))
+    } else if !unhomed.is_empty() {
+        Some(format!("not homed: {}", unhomed.join(", ")))
+    } else {
+        None
+    }
+}
+
 /// `text` (a configuration file) with `name = { axis = value, … }` set in `[spots]`,
 /// replacing a spot of that name, adding the table if there is none. Values are rounded to
 /// the axis's encoder resolution. The result must load (soft limits included).

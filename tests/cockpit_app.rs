@@ -355,7 +355,7 @@ fn a_commissioning_test_is_asked_for_run_and_its_gains_applied() {
                 result: serde_json::Value::Null,
                 proposed: "kp = 30\n".to_owned(),
                 suggested: Some(worse.clone()),
-                verification: Some(v),
+                verification: Some(Box::new(v)),
             }),
         },
     );

@@ -1,4 +1,5 @@
-//! The cockpit's spot keys: `g` takes `@spot` as well as a number, `P` stores the homed axes'
+//! The cockpit's spot keys: `g` takes `@spot` as well as a number (one coordinated move), `@`
+//! picks a spot from a list, `P` stores the homed axes'
 //! present positions under a name (in the configuration file when there is one). Plain data
 //! in, plain data out. Servotty's own feature: no outside source.
 mod cockpit_support;
@@ -7,7 +8,6 @@ use cockpit_support as s;
 use servotty::cockpit::action::{Action, Effect};
 use servotty::cockpit::app::Overlay;
 use servotty::config::ConfigSource;
-use servotty::engine::AxisCommand;
 
 fn now() -> std::time::Duration {
     s::at(200)
@@ -25,12 +25,13 @@ fn go_to_a_spot_moves_every_axis_it_names() {
     app.apply(now(), Action::GoTo);
     type_text(&mut app, "@tray2");
     let fx = app.apply(now(), Action::EntrySubmit);
+    // One coordinated move of every axis the spot names, not one move per axis.
     assert_eq!(
         fx,
-        vec![
-            Effect::Command { axis: 0, command: AxisCommand::MoveTo(550.0) },
-            Effect::Command { axis: 1, command: AxisCommand::MoveTo(300.0) },
-        ]
+        vec![Effect::MoveLine {
+            what: "@tray2".to_owned(),
+            goals: vec![("x".to_owned(), 550.0), ("y".to_owned(), 300.0)],
+        }]
     );
     // An unknown spot keeps the prompt open with the names there are.
     app.apply(now(), Action::GoTo);
@@ -38,6 +39,33 @@ fn go_to_a_spot_moves_every_axis_it_names() {
     assert!(app.apply(now(), Action::EntrySubmit).is_empty());
     let Overlay::Prompt(p) = &app.overlay else { panic!("prompt closed") };
     assert!(p.error.as_deref().is_some_and(|e| e.contains("tray1")), "{p:?}");
+}
+
+#[test]
+fn the_spot_picker_goes_to_the_chosen_spot_and_refuses_an_unhomed_one() {
+    let mut app = s::normal();
+    app.apply(now(), Action::OpenSpots);
+    assert_eq!(app.overlay, Overlay::Spots(0));
+    // Spots in name order: park, probe_depth, tray1, …; Up wraps to the last.
+    app.apply(now(), Action::SpotPrev);
+    assert_eq!(app.overlay, Overlay::Spots(4));
+    let fx = app.apply(now(), Action::SpotGo);
+    assert_eq!(
+        fx,
+        vec![Effect::MoveLine {
+            what: "@tray3".to_owned(),
+            goals: vec![("x".to_owned(), 900.0), ("y".to_owned(), 300.0)],
+        }]
+    );
+    assert_eq!(app.overlay, Overlay::None, "Enter closes the picker");
+    // park names z, which is not homed in this scene: refused, the picker stays open.
+    app.apply(now(), Action::OpenSpots);
+    assert!(app.apply(now(), Action::SpotGo).is_empty());
+    assert_eq!(app.overlay, Overlay::Spots(0));
+    let last = app.log.entries().back().map(|e| e.text_with_count()).unwrap_or_default();
+    assert!(last.contains("not homed: z"), "{last}");
+    app.apply(now(), Action::CloseOverlay);
+    assert_eq!(app.overlay, Overlay::None);
 }
 
 #[test]

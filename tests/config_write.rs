@@ -200,3 +200,27 @@ fn the_cockpit_and_the_cli_write_the_same_bytes_for_the_same_gains() {
     assert_ne!(a, DEMO_CONFIG.as_bytes(), "something was written");
     assert_eq!(a, b, "the two front ends wrote different files");
 }
+
+// A key the file may leave out (`ff_static_reverse`: "same as ff_static" when absent) is
+// added when a value is given and taken out again when it is dropped; nothing else moves.
+#[test]
+fn a_key_the_file_may_leave_out_is_added_and_taken_out() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let path = demo_in(&dir);
+    let cfg = MachineConfig::load(&path).expect("loads");
+    assert_eq!(cfg.axes[0].controller.ff_static_reverse, None, "the demo's x leaves it out");
+    let live = gain_edit::edit(&cfg, 0, p("ff_static_reverse"), "-1.5").expect("valid");
+    let report = save_controllers(&path, &live, "").expect("saved");
+    assert_eq!(report.changed, ["x.controller.ff_static_reverse"]);
+    let added = fs::read_to_string(&path).expect("read");
+    assert_eq!(added.lines().count(), DEMO_CONFIG.lines().count() + 1);
+    assert_eq!(
+        MachineConfig::load(&path).expect("loads").axes[0].controller,
+        live.axes[0].controller
+    );
+    let mut back = live.clone();
+    back.axes[0].controller.ff_static_reverse = None;
+    let report = save_controllers(&path, &back, "").expect("saved");
+    assert_eq!(report.changed, ["x.controller.ff_static_reverse"]);
+    assert_eq!(fs::read_to_string(&path).expect("read"), DEMO_CONFIG);
+}

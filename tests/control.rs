@@ -391,6 +391,7 @@ fn any_config() -> impl Strategy<Value = ControllerConfig> {
                     ff_velocity: fv,
                     ff_acceleration: fa,
                     ff_static: fs,
+                    ff_static_reverse: None,
                 }
             },
         )

@@ -22,6 +22,7 @@ use servotty::sim::plant::PlantFaults;
 #[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord)]
 enum Fault {
     Jam,
+    JamAt,
     Saturation,
     GainTooLow,
     CutLink,
@@ -30,6 +31,8 @@ enum Fault {
     EncoderJump,
     ReversedMotor,
     LinkBlackout,
+    DriverTrip,
+    SupplySag,
     BeltSlip,
 }
 
@@ -37,13 +40,16 @@ impl Fault {
     /// The cause the diagnosis must name.
     fn expected(self) -> Cause {
         match self {
-            Self::Jam => Cause::Jam,
+            Self::Jam | Self::JamAt => Cause::Jam,
             Self::Saturation => Cause::Saturation,
             Self::GainTooLow => Cause::GainTooLow,
             Self::CutLink | Self::LossyLink => Cause::LinkTrouble,
             Self::EncoderGlitch | Self::EncoderJump => Cause::EncoderFault,
             Self::ReversedMotor => Cause::Wiring,
             Self::LinkBlackout => Cause::BoardWatchdog,
+            Self::DriverTrip => Cause::DriverFault,
+            // Seen as the motor getting weaker mid-move; the record has no volts to say why.
+            Self::SupplySag => Cause::WeakerDrive,
             Self::BeltSlip => Cause::Undetermined,
         }
     }
@@ -112,6 +118,9 @@ fn config(v: Variant, speed: f64, fault: Fault) -> MachineConfig {
 struct Outcome {
     diagnosis: Diagnosis,
     tripped: bool,
+    /// The carriage on its rail at the end, and before the move, mm.
+    trip_mm: f64,
+    start_mm: f64,
 }
 
 async fn run(v: Variant, speed: f64, fault: Fault) -> Outcome {
@@ -132,6 +141,13 @@ async fn run(v: Variant, speed: f64, fault: Fault) -> Outcome {
         sim.set_plant_faults(PlantFaults { reversed_motor: true, ..Default::default() });
     }
     let start = x.snapshot().position;
+    let start_mm = sim.view().position_mm;
+    if fault == Fault::JamAt {
+        // Armed before the move, sprung by the board where the carriage gets to: 300 mm on,
+        // at cruise for every speed here.
+        let rail = sim.view().position_mm + 300.0;
+        sim.set_plant_faults(PlantFaults { jam_at_mm: Some(rail), ..Default::default() });
+    }
     x.send(AxisCommand::MoveTo(start + 600.0)).await.expect("move accepted");
     // Into the move: at speed for most faults.
     let mut rx = x.watch();
@@ -156,6 +172,14 @@ async fn run(v: Variant, speed: f64, fault: Fault) -> Outcome {
         Fault::LossyLink => {
             sim.set_link_faults(LinkFaults { drop_probability: 0.3, ..Default::default() })
         }
+        Fault::DriverTrip => sim.set_driver_fault(true),
+        Fault::SupplySag => {
+            // At cruise (past the profile's acceleration), so the record shows the motor
+            // before and after. Four fifths of the supply gone: a fifth of the motor's speed is left, below
+            // every cruise speed here.
+            tokio::time::sleep(Duration::from_millis(150)).await;
+            sim.set_plant_faults(PlantFaults { supply_sag: 0.8, ..Default::default() });
+        }
         Fault::LinkBlackout => {
             // 70 ms dark: longer than the board's 50 ms watchdog, shorter than the host's
             // 100 ms link timeout.
@@ -165,8 +189,10 @@ async fn run(v: Variant, speed: f64, fault: Fault) -> Outcome {
         }
         _ => {}
     }
+    // A jam armed ahead trips once the carriage gets there.
+    let wait = if fault == Fault::JamAt { 2.0 + 300.0 / speed } else { 2.0 };
     let tripped = tokio::time::timeout(
-        Duration::from_secs(2),
+        Duration::from_secs_f64(wait),
         rx.wait_for(|s| s.state == AxisState::Tripped),
     )
     .await
@@ -186,7 +212,11 @@ async fn run(v: Variant, speed: f64, fault: Fault) -> Outcome {
             // For docs and for looking at a case by hand.
             let name = format!("{}-{speed}-{fault:?}.csv", v.name.replace([' ', ','], ""));
             let _ = std::fs::create_dir_all(&keep);
-            let _ = std::fs::write(std::path::Path::new(&keep).join(name), &text);
+            let keep = std::path::Path::new(&keep);
+            let _ = std::fs::write(keep.join(&name), &text);
+            // The sidecar says what tripped and how the axis was configured.
+            let sidecar = std::path::Path::new(&path).with_extension("json");
+            let _ = std::fs::copy(sidecar, keep.join(name).with_extension("json"));
         }
         CaptureFile::read(std::path::Path::new(&path)).expect("parses").record(None).expect("x")
     } else {
@@ -196,14 +226,16 @@ async fn run(v: Variant, speed: f64, fault: Fault) -> Outcome {
         };
         TripRecord::from_history(&cfg.axes[0], rows, None)
     };
+    let trip_mm = sim.view().position_mm;
     m.shutdown().await;
-    Outcome { diagnosis: diagnose(&rec), tripped }
+    Outcome { diagnosis: diagnose(&rec), tripped, trip_mm, start_mm }
 }
 
 #[tokio::test(start_paused = true)]
 async fn every_injected_fault_is_named() {
     let faults = [
         Fault::Jam,
+        Fault::JamAt,
         Fault::Saturation,
         Fault::GainTooLow,
         Fault::CutLink,
@@ -212,6 +244,8 @@ async fn every_injected_fault_is_named() {
         Fault::EncoderJump,
         Fault::ReversedMotor,
         Fault::LinkBlackout,
+        Fault::DriverTrip,
+        Fault::SupplySag,
         Fault::BeltSlip,
     ];
     let speeds = [60.0, 120.0, 180.0];
@@ -228,6 +262,18 @@ async fn every_injected_fault_is_named() {
                     Fault::BeltSlip => {
                         (d.cause == Cause::Undetermined || d.cause == Cause::LightLoad)
                             && d.cannot_tell.iter().any(|c| c.contains("belt"))
+                    }
+                    // Named as a weaker drive, and the record says it cannot see the supply.
+                    Fault::SupplySag => {
+                        d.cause == f.expected()
+                            && !d.ambiguous
+                            && d.cannot_tell.iter().any(|c| c.contains("supply sagged"))
+                    }
+                    // The jam sprang where it was armed, not anywhere.
+                    Fault::JamAt => {
+                        d.cause == f.expected()
+                            && !d.ambiguous
+                            && (o.trip_mm - o.start_mm - 300.0).abs() < 5.0
                     }
                     _ => d.cause == f.expected() && !d.ambiguous,
                 };

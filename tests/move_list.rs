@@ -10,6 +10,7 @@ use std::collections::BTreeMap;
 use std::path::Path;
 use std::time::Duration;
 
+use servotty::cli::move_cmd::{resolve, run_moves};
 use servotty::config::MachineConfig;
 use servotty::engine::line_move::{move_line, plan_line};
 use servotty::engine::{AxisCommand, AxisState, Machine, MachineHandle};
@@ -141,6 +142,25 @@ async fn a_coordinated_move_arrives_together_within_one_tick() {
     let gap = if at[0] > at[1] { at[0] - at[1] } else { at[1] - at[0] };
     println!("arrivals {gap:?} apart, planned {:.3} s", out.planned_s);
     assert!(gap <= tick, "arrivals {gap:?} apart");
+    for a in &out.axes {
+        assert!((a.final_position - a.target).abs() <= 0.1, "{a:#?}");
+    }
+    m.shutdown().await;
+}
+
+#[tokio::test(start_paused = true)]
+async fn move_to_a_spot_is_one_line_arriving_within_one_tick() {
+    // `servotty move --to @tray3` runs through run_moves.
+    let cfg = demo();
+    let (m, h) = started(&cfg).await;
+    let targets = resolve(&cfg, &["@tray3".parse().expect("spot")]).expect("resolves");
+    let goals: Vec<(String, f64)> = targets.iter().map(|t| (t.axis.clone(), t.position)).collect();
+    let (out, at) = tokio::join!(run_moves(&h, &targets), arrival_times(&h, &goals));
+    let out = out.expect("moves");
+    assert!(out.ok, "{out:#?}");
+    let gap = if at[0] > at[1] { at[0] - at[1] } else { at[1] - at[0] };
+    println!("move --to @tray3: arrivals {gap:?} apart");
+    assert!(gap <= Duration::from_millis(1), "arrivals {gap:?} apart");
     for a in &out.axes {
         assert!((a.final_position - a.target).abs() <= 0.1, "{a:#?}");
     }

@@ -1,4 +1,5 @@
-//! `servotty move`: link, enable, profiled moves, wait for in-position, disable.
+//! `servotty move`: link, enable, one coordinated move of every named axis (a straight line,
+//! arriving together: [`crate::engine::line_move`]), wait for in-position, disable.
 
 use std::time::Duration;
 
@@ -7,13 +8,12 @@ use serde::Serialize;
 use crate::cli::progress::{self, Progress};
 use crate::cli::{emit, emit_json, Failure, MoveArgs, Target, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
 use crate::config::MachineConfig;
+use crate::engine::line_move::{move_line, LineError};
 use crate::engine::{AxisCommand, AxisState, MachineHandle};
 use crate::format::num;
 
 /// How long the boards have to link.
 const LINK_WAIT: Duration = Duration::from_secs(3);
-/// Slack on top of the profile time for settling, s.
-const SETTLE_SLACK_S: f64 = 10.0;
 
 /// One axis's result, as printed in JSON.
 #[derive(Debug, Clone, Serialize, PartialEq)]
@@ -56,6 +56,9 @@ pub enum MoveError {
     /// An axis refused.
     #[error(transparent)]
     Refused(#[from] crate::engine::CommandError),
+    /// The coordinated move could not start (an axis not holding).
+    #[error("{0}")]
+    Line(String),
 }
 
 impl MoveError {
@@ -94,51 +97,36 @@ pub async fn run_moves(m: &MachineHandle, targets: &[Target]) -> Result<MoveOutc
 }
 
 async fn start_and_wait(m: &MachineHandle, targets: &[Target]) -> Result<MoveOutcome, MoveError> {
-    let mut before = Vec::new();
-    let mut limit_s: f64 = 0.0;
     for t in targets {
         let a = m.axis(&t.axis).ok_or_else(|| MoveError::UnknownAxis(t.axis.clone()))?;
         a.send(AxisCommand::Enable).await?;
-        let snap = a.snapshot();
-        let motion =
-            &m.config().axis(&t.axis).ok_or_else(|| MoveError::UnknownAxis(t.axis.clone()))?.motion;
-        let d = (t.position - snap.position).abs();
-        limit_s =
-            limit_s.max(d / motion.max_velocity + motion.max_velocity / motion.max_acceleration);
-        before.push(snap.moves_done);
     }
+    // Every axis of the command on one straight line, arriving together: the same rule as a
+    // list step (a trip on one stops the others, category 1).
+    let goals: Vec<(String, f64)> = targets.iter().map(|t| (t.axis.clone(), t.position)).collect();
+    let line = move_line(m, &goals, 1.0).await.map_err(|e| match e {
+        LineError::Refused(c) => MoveError::Refused(c),
+        LineError::UnknownAxis(a) => MoveError::UnknownAxis(a),
+        e => MoveError::Line(e.to_string()),
+    })?;
+    let mut outcomes = Vec::new();
     for t in targets {
         let a = m.axis(&t.axis).ok_or_else(|| MoveError::UnknownAxis(t.axis.clone()))?;
-        a.send(AxisCommand::MoveTo(t.position)).await?;
-    }
-    let deadline = tokio::time::Instant::now() + Duration::from_secs_f64(limit_s + SETTLE_SLACK_S);
-    let mut outcomes = Vec::new();
-    let mut ok = true;
-    for (t, done_before) in targets.iter().zip(before) {
-        let a = m.axis(&t.axis).ok_or_else(|| MoveError::UnknownAxis(t.axis.clone()))?;
-        let mut rx = a.watch();
-        let finished = tokio::time::timeout_at(
-            deadline,
-            rx.wait_for(|s| {
-                s.moves_done > done_before
-                    || !matches!(s.state, AxisState::Moving | AxisState::Steady)
-            }),
-        )
-        .await;
         let s = a.snapshot();
-        let settled = finished.is_ok() && s.moves_done > done_before;
-        ok &= settled;
+        // An axis already at its goal is not part of the line: it counts as arrived.
+        let part = line.axes.iter().find(|o| o.axis == t.axis);
+        let settled = line.ok && s.state == AxisState::Steady;
         outcomes.push(AxisOutcome {
             axis: t.axis.clone(),
             target: t.position,
             final_position: s.position,
-            max_following_error: s.move_peak_following_error,
-            settle_s: if settled { s.move_settle_s } else { None },
+            max_following_error: part.map_or(0.0, |o| o.max_following_error),
+            settle_s: if settled && part.is_some() { s.move_settle_s } else { None },
             state: s.state.word().to_owned(),
             trip: s.trip.as_ref().map(|tr| format!("{}: {}", tr.cause, tr.detail)),
         });
     }
-    Ok(MoveOutcome { ok, axes: outcomes })
+    Ok(MoveOutcome { ok: line.ok, axes: outcomes })
 }
 
 /// One `--to` item: `AXIS=POS`, or `@SPOT` for a named position of the configuration.
@@ -223,7 +211,7 @@ pub fn run(args: &MoveArgs) -> Result<u8, Failure> {
         let out = out.map_err(|e| match e {
             MoveError::UnknownAxis(_) => Failure::Usage(e.to_string()),
             MoveError::Refused(c) => Failure::Refused(c),
-            MoveError::Offline(..) => Failure::Machine(e.to_string()),
+            MoveError::Offline(..) | MoveError::Line(_) => Failure::Machine(e.to_string()),
         })?;
         if json {
             emit_json(&out)?;

@@ -99,9 +99,6 @@ async fn drills_from_stdin(boards: Vec<(String, SimBoardHandle)>) {
             continue;
         }
         for (name, board) in picked {
-            if let crate::sim::drill::Drill::JamAt(mm) = cmd.drill {
-                tokio::spawn(crate::sim::drill::watch_jam_at(board.clone(), mm));
-            }
             eprintln!("drill: {name}: {}", crate::sim::drill::apply(board, &cmd.drill));
         }
     }

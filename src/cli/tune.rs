@@ -37,7 +37,8 @@ pub struct TuneArgs {
     #[arg(long)]
     pub duty: Option<f64>,
     /// Relay: the sliding-friction offset to correct for, % (the `u0` that `tune identify`
-    /// reports; default: none).
+    /// reports; the mean of its two values when it reports one per direction; default:
+    /// none).
     #[arg(long, value_name = "PCT")]
     pub friction: Option<f64>,
     /// Step size for `step`, axis units (default 5).

@@ -129,6 +129,28 @@ pub enum Action {
     EntryCancel,
     /// Open the trip screen of the selected axis: its history and why it tripped.
     TripView,
+    /// Open the move-list screen.
+    OpenLists,
+    /// List screen: the previous list.
+    ListPrev,
+    /// List screen: the next list.
+    ListNext,
+    /// List screen: check the list against the limits and start it, or resume it.
+    ListGo,
+    /// List screen: pause at the end of the step that is running.
+    ListPause,
+    /// List screen: abort the list (every axis stops, category 1).
+    ListAbort,
+    /// Open the spot picker.
+    OpenSpots,
+    /// Spot picker: previous spot.
+    SpotPrev,
+    /// Spot picker: next spot.
+    SpotNext,
+    /// Spot picker: go to the chosen spot.
+    SpotGo,
+    /// Open the fault-drill menu of the selected axis (simulated axes only).
+    Drill,
 }
 
 /// Work outside the cockpit's own state, carried out by the runner without waiting in the
@@ -148,6 +170,14 @@ pub enum Effect {
     },
     /// Home every axis in the configured order (its end comes back as a notice).
     HomeAll,
+    /// Move these axes together on one straight line, arriving together (a spot); its end
+    /// comes back as a notice.
+    MoveLine {
+        /// What it is, for the log (`@tray2`).
+        what: String,
+        /// Axis → goal, in configuration order.
+        goals: Vec<(String, f64)>,
+    },
     /// Run a tuning step (its result comes back as a notice).
     Tune {
         /// Axis index.
@@ -180,9 +210,33 @@ pub enum Effect {
         /// The live configuration.
         config: MachineConfig,
     },
+    /// Find and read the move lists beside the configuration (blocking: off the key path).
+    FindLists {
+        /// The live configuration (axes and spots the lists are checked against).
+        config: Box<MachineConfig>,
+        /// Where it came from (the lists are beside it).
+        source: crate::config::ConfigSource,
+    },
+    /// Start a move list from step `from` (1-based); progress and the end come back as
+    /// notices.
+    RunList {
+        /// The list.
+        list: Box<crate::move_list::MoveList>,
+        /// First step.
+        from: usize,
+    },
+    /// Pause, resume or abort the running list.
+    ListControl(crate::move_list::runner::ListControl),
     /// Fetch an axis's full-rate history for the trip screen.
     FetchHistory {
         /// Axis index.
         axis: usize,
+    },
+    /// Inject a fault drill into an axis's simulated board (never waits).
+    Drill {
+        /// Axis index.
+        axis: usize,
+        /// The drill.
+        pick: crate::cockpit::drill::Pick,
     },
 }

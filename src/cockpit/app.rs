@@ -49,6 +49,8 @@ pub enum Screen {
     Log,
     /// One axis's trip: history and diagnosis.
     Trip,
+    /// Move lists: choose, run, pause, resume, abort.
+    Lists,
 }
 
 /// What a prompt is for.
@@ -75,6 +77,11 @@ pub enum Purpose {
     },
     /// A name for the present position (a spot).
     StoreSpot,
+    /// A fault drill for a simulated axis (the drill menu).
+    Drill {
+        /// Axis index.
+        axis: usize,
+    },
 }
 
 /// A prompt being typed.
@@ -99,6 +106,8 @@ pub enum Overlay {
     ConfirmQuit,
     /// A prompt.
     Prompt(Prompt),
+    /// The spot picker, with the chosen row (index into the spots in name order).
+    Spots(usize),
 }
 
 /// News from background work.
@@ -134,6 +143,26 @@ pub enum Notice {
         axis: usize,
         /// The rows, or why there are none.
         result: Result<Vec<crate::engine::history::Sample>, String>,
+    },
+    /// A coordinated move (a spot) ended.
+    Line {
+        /// What it was (`@tray2`).
+        what: String,
+        /// Its outcome, or why it did not start.
+        result: Result<crate::engine::line_move::LineOutcome, String>,
+    },
+    /// The move lists beside the configuration, read.
+    Lists(Vec<crate::move_list::catalog::Found>),
+    /// A running list reported a step.
+    ListProgress(crate::move_list::runner::Progress),
+    /// A list run ended, or could not start.
+    ListEnded(Result<crate::move_list::runner::ListOutcome, String>),
+    /// A fault drill reached its simulated board (or could not).
+    Drill {
+        /// Axis index.
+        axis: usize,
+        /// What the board did, in words, or why not.
+        result: Result<String, String>,
     },
     /// A save finished.
     Saved {
@@ -235,6 +264,11 @@ pub struct App {
     pub quit: bool,
     /// The trip screen's history and diagnosis, once fetched.
     pub trip_view: Option<crate::cockpit::trip_view::TripView>,
+    /// The list screen.
+    pub lists: crate::cockpit::lists::ListScreen,
+    /// Per axis: whether it takes fault drills (its board is simulated in process). Set by
+    /// the runner from the machine; all false until then.
+    pub drillable: Vec<bool>,
 }
 
 impl App {
@@ -281,6 +315,8 @@ impl App {
             suggested_worse: false,
             quit: false,
             trip_view: None,
+            lists: crate::cockpit::lists::ListScreen::default(),
+            drillable: Vec::new(),
         }
     }
 
@@ -290,10 +326,12 @@ impl App {
             (Overlay::Help, _) => Mode::Help,
             (Overlay::ConfirmQuit, _) => Mode::ConfirmQuit,
             (Overlay::Prompt(_), _) => Mode::Entry,
+            (Overlay::Spots(_), _) => Mode::Spots,
             (Overlay::None, Screen::Overview) => Mode::Overview,
             (Overlay::None, Screen::Detail) => Mode::Detail,
             (Overlay::None, Screen::Log) => Mode::Log,
             (Overlay::None, Screen::Trip) => Mode::Trip,
+            (Overlay::None, Screen::Lists) => Mode::Lists,
         }
     }
 
@@ -333,7 +371,7 @@ impl App {
         self.config.axes.get(axis).map_or("", |a| a.scale.unit.as_str())
     }
 
-    fn note(&mut self, kind: Kind, text: impl Into<String>) {
+    pub(crate) fn note(&mut self, kind: Kind, text: impl Into<String>) {
         self.log.push(self.now, kind, text);
     }
 
@@ -392,6 +430,17 @@ impl App {
                 self.screen = Screen::Trip;
                 return vec![Effect::FetchHistory { axis: sel }];
             }
+            Action::Drill if self.drillable.get(sel).copied().unwrap_or(false) => {
+                self.prompt(Purpose::Drill { axis: sel }, String::new());
+            }
+            Action::Drill if n > 0 => {
+                let name = self.name(sel).to_owned();
+                self.note(
+                    Kind::Refused,
+                    format!("{name}: {}", crate::cockpit::drill::ONLY_SIMULATED),
+                );
+            }
+            Action::Drill => {}
             Action::ToggleLog => {
                 if self.screen == Screen::Log {
                     self.screen = self.log_return;
@@ -501,6 +550,45 @@ impl App {
                 }
             }
             Action::EntrySubmit => return self.submit(),
+            Action::OpenLists => {
+                self.screen = Screen::Lists;
+                // Read afresh each time (a list edited meanwhile), but never swap the list
+                // under a run.
+                if !self.lists.phase.active() {
+                    return vec![Effect::FindLists {
+                        config: Box::new(self.config.clone()),
+                        source: self.source.clone(),
+                    }];
+                }
+            }
+            Action::ListPrev => self.lists.choose(-1),
+            Action::ListNext => self.lists.choose(1),
+            Action::ListGo => return self.list_go(),
+            Action::ListPause => return self.list_pause(),
+            Action::ListAbort => return self.list_abort(),
+            Action::OpenSpots => {
+                if self.config.spots.is_empty() {
+                    self.note(
+                        Kind::Info,
+                        "no spots: add a [spots] table to the configuration, or P stores one",
+                    );
+                } else {
+                    self.overlay = Overlay::Spots(0);
+                }
+            }
+            Action::SpotPrev | Action::SpotNext => {
+                let n = self.config.spots.0.len();
+                if let Overlay::Spots(i) = &mut self.overlay {
+                    if n > 0 {
+                        *i = if action == Action::SpotPrev {
+                            (*i + n - 1) % n
+                        } else {
+                            (*i + 1) % n
+                        };
+                    }
+                }
+            }
+            Action::SpotGo => return self.spot_go(),
         }
         vec![]
     }
@@ -559,6 +647,11 @@ impl App {
             Purpose::Gain { axis, param } => self.submit_gain(axis, param, &text),
             Purpose::Test { axis } => self.submit_test(axis, &text),
             Purpose::StoreSpot => self.submit_store_spot(&text),
+            Purpose::Drill { axis } => crate::cockpit::drill::parse(&text).map(|pick| {
+                let name = self.name(axis).to_owned();
+                self.note(Kind::Operator, format!("{name}: DRILL {text}"));
+                vec![Effect::Drill { axis, pick }]
+            }),
             Purpose::SaveCopy => {
                 if text.is_empty() {
                     Err("type a file name".to_owned())
@@ -583,16 +676,119 @@ impl App {
         }
     }
 
-    /// `@spot` in the go-to prompt: every axis the spot names to its position there.
+    /// `@spot` in the go-to prompt: every axis the spot names to its position there, on one
+    /// straight line, arriving together.
     fn submit_goto_spot(&mut self, text: &str) -> Result<Vec<Effect>, String> {
-        let targets = crate::spots::targets(&self.config, text)?;
-        let mut fx = Vec::new();
-        for t in targets {
-            let Some(i) = self.config.axes.iter().position(|a| a.name == t.axis) else { continue };
-            let words = format!("go to {} {} ({text})", plain(t.position), self.unit(i));
-            fx.push(self.command(i, AxisCommand::MoveTo(t.position), &words));
+        let name = text.strip_prefix('@').unwrap_or(text).to_owned();
+        self.line_to_spot(&name)
+    }
+
+    /// The spot picker's Enter: like `g @name`; the picker stays open when refused.
+    fn spot_go(&mut self) -> Vec<Effect> {
+        let Overlay::Spots(i) = self.overlay else { return vec![] };
+        let Some(name) = self.config.spots.names().nth(i).map(str::to_owned) else {
+            return vec![];
+        };
+        match self.line_to_spot(&name) {
+            Ok(fx) => {
+                self.overlay = Overlay::None;
+                fx
+            }
+            Err(e) => {
+                self.note(Kind::Refused, format!("@{name}: {e}"));
+                vec![]
+            }
         }
-        Ok(fx)
+    }
+
+    /// One coordinated move to spot `name`, refused when an axis it names is not homed.
+    fn line_to_spot(&mut self, name: &str) -> Result<Vec<Effect>, String> {
+        let targets = crate::spots::targets(&self.config, name)?;
+        if let Some(why) = crate::spots::unreachable(&self.config, name, |axis| {
+            self.axes.iter().any(|v| &*v.snap.axis == axis && v.snap.homed)
+        }) {
+            return Err(why);
+        }
+        let words: Vec<String> = targets
+            .iter()
+            .map(|t| {
+                let i = self.config.axes.iter().position(|a| a.name == t.axis).unwrap_or(0);
+                format!("{} {} {}", t.axis, plain(t.position), self.unit(i))
+            })
+            .collect();
+        self.note(
+            Kind::Operator,
+            format!("go to @{name} ({}) on one line, arriving together", words.join(", ")),
+        );
+        let goals = targets.into_iter().map(|t| (t.axis, t.position)).collect();
+        Ok(vec![Effect::MoveLine { what: format!("@{name}"), goals }])
+    }
+
+    /// Enter on the list screen: resume a paused list, or check the chosen list against the
+    /// limits from where the axes are bound and start it (at the resume step after an early
+    /// end).
+    fn list_go(&mut self) -> Vec<Effect> {
+        use crate::cockpit::lists::Phase;
+        use crate::move_list::runner::ListControl;
+        match self.lists.phase {
+            Phase::Paused | Phase::Pausing => {
+                self.lists.phase = Phase::Running;
+                self.note(Kind::Operator, "list: carry on");
+                return vec![Effect::ListControl(ListControl::Run)];
+            }
+            Phase::Starting | Phase::Running => {
+                self.note(Kind::Info, "the list is running: p pauses, x aborts");
+                return vec![];
+            }
+            Phase::Idle | Phase::Finished => {}
+        }
+        let Some((name, list)) = self.lists.chosen_list() else {
+            self.note(Kind::Info, "no list to run");
+            return vec![];
+        };
+        let (name, list) = (name.to_owned(), list.clone());
+        let from = self.lists.next_from();
+        // The dry run, as `servotty run` does it: every target of every pass against the soft
+        // limits, before anything moves (the runner checks again against the engine's own
+        // goals when it starts).
+        let start = self.axes.iter().map(|v| (v.snap.axis.to_string(), v.snap.goal)).collect();
+        if let Err(e) = crate::move_list::check(&list, &self.config, &start, from) {
+            let why = format!("{name}: {e}");
+            self.note(Kind::Refused, format!("list not started: {why}"));
+            self.lists.refused = Some(why);
+            return vec![];
+        }
+        let resume = if from > 1 { format!(" from step {from}") } else { String::new() };
+        self.note(
+            Kind::Operator,
+            format!(
+                "list {name}{resume}: {} steps × {} (Space stops everything)",
+                list.steps.len(),
+                list.times
+            ),
+        );
+        self.lists.starting(from);
+        vec![Effect::RunList { list: Box::new(list), from }]
+    }
+
+    fn list_pause(&mut self) -> Vec<Effect> {
+        use crate::cockpit::lists::Phase;
+        if self.lists.phase != Phase::Running && self.lists.phase != Phase::Starting {
+            self.note(Kind::Info, "no list is running");
+            return vec![];
+        }
+        self.lists.phase = Phase::Pausing;
+        self.note(Kind::Operator, "list: pause at the end of this step");
+        vec![Effect::ListControl(crate::move_list::runner::ListControl::Pause)]
+    }
+
+    fn list_abort(&mut self) -> Vec<Effect> {
+        if !self.lists.phase.active() {
+            self.note(Kind::Info, "no list is running");
+            return vec![];
+        }
+        self.note(Kind::Operator, "list: abort, every axis stops");
+        vec![Effect::ListControl(crate::move_list::runner::ListControl::Abort)]
     }
 
     /// Stores the homed axes' present positions as a spot: in the live configuration at once,
@@ -766,6 +962,13 @@ impl App {
                 self.note(Kind::Refused, format!("{name}: no history for the trip screen: {why}"));
                 self.screen = Screen::Overview;
             }
+            Notice::Drill { axis, result } => {
+                let name = self.name(axis).to_owned();
+                match result {
+                    Ok(did) => self.note(Kind::Operator, format!("{name}: drill: {did}")),
+                    Err(why) => self.note(Kind::Refused, format!("{name}: drill refused: {why}")),
+                }
+            }
             Notice::Reply { axis, what, result: Err(why) } => {
                 let name = self.name(axis).to_owned();
                 self.note(Kind::Refused, format!("{name}: {what} refused: {why}"));
@@ -838,6 +1041,59 @@ impl App {
             Notice::HomeAll { result: Ok(()) } => self.note(Kind::Info, "all axes homed"),
             Notice::HomeAll { result: Err(e) } => {
                 self.note(Kind::Refused, format!("homing stopped: {e}"));
+            }
+            Notice::Line { what, result } => match result {
+                Ok(out) if out.ok => {
+                    let axes: Vec<&str> = out.axes.iter().map(|a| a.axis.as_str()).collect();
+                    let together = if axes.len() > 1 { " together" } else { "" };
+                    self.note(
+                        Kind::Info,
+                        format!(
+                            "{what} reached: {}{together} in {:.2} s",
+                            axes.join(", "),
+                            out.planned_s
+                        ),
+                    );
+                }
+                Ok(out) => {
+                    let (axis, why) = out.ended_by.unwrap_or_default();
+                    self.note(
+                        Kind::Refused,
+                        format!("{what}: move ended by {axis}: {why}; the other axes stopped, motors off"),
+                    );
+                }
+                Err(e) => self.note(Kind::Refused, format!("{what} refused: {e}")),
+            },
+            Notice::Lists(found) => self.lists.set_found(found),
+            Notice::ListProgress(p) => {
+                if p.phase != "done" {
+                    let pass = if p.pass > 1 { format!("pass {} ", p.pass) } else { String::new() };
+                    let kind = if p.phase == "failed" { Kind::Refused } else { Kind::Info };
+                    self.note(
+                        kind,
+                        format!("list {pass}step {}/{} {}: {}", p.step, p.steps, p.phase, p.what),
+                    );
+                }
+                self.lists.on_progress(&p);
+            }
+            Notice::ListEnded(result) => {
+                match &result {
+                    Ok(out) if out.ok => self.note(Kind::Info, "list finished"),
+                    Ok(out) => {
+                        if let Some(s) = &out.stopped {
+                            self.note(
+                                Kind::Refused,
+                                format!(
+                                    "list stopped at step {} (pass {}): {}; every axis stopped. \
+                                     Clear the cause, then Enter resumes from step {}",
+                                    s.step, s.pass, s.reason, s.resume_from
+                                ),
+                            );
+                        }
+                    }
+                    Err(e) => self.note(Kind::Refused, format!("list not started: {e}")),
+                }
+                self.lists.on_end(&result);
             }
             Notice::Saved { result: Err(e), .. } => {
                 self.note(Kind::Refused, format!("not saved: {e}"))

@@ -33,10 +33,14 @@ pub enum Mode {
     Entry,
     /// One axis's trip: its history around the trip and the diagnosis.
     Trip,
+    /// The move-list screen: choose a list, run, pause, resume, abort.
+    Lists,
+    /// The spot picker over the screen.
+    Spots,
 }
 
 impl Mode {
-    const fn bit(self) -> u8 {
+    const fn bit(self) -> u16 {
         match self {
             Self::Overview => 1,
             Self::Detail => 2,
@@ -45,19 +49,21 @@ impl Mode {
             Self::ConfirmQuit => 16,
             Self::Entry => 32,
             Self::Trip => 64,
+            Self::Lists => 128,
+            Self::Spots => 256,
         }
     }
 }
 
 /// A set of modes, as bits.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub struct Modes(u8);
+pub struct Modes(u16);
 
 impl Modes {
     /// Every mode, overlays and prompts included.
-    pub const ALL: Self = Self(127);
+    pub const ALL: Self = Self(511);
     /// The screens (no overlay open).
-    pub const SCREENS: Self = Self(1 | 2 | 4 | 64);
+    pub const SCREENS: Self = Self(1 | 2 | 4 | 64 | 128);
     /// Overview and detail: where axis and motion keys work.
     pub const AXIS: Self = Self(1 | 2);
     /// Overview only.
@@ -66,8 +72,12 @@ impl Modes {
     pub const DETAIL: Self = Self(2);
     /// Log only.
     pub const LOG: Self = Self(4);
-    /// Detail, log and trip.
-    pub const SUBSCREENS: Self = Self(2 | 4 | 64);
+    /// Detail, log, trip and lists.
+    pub const SUBSCREENS: Self = Self(2 | 4 | 64 | 128);
+    /// The move-list screen.
+    pub const LISTS: Self = Self(128);
+    /// The spot picker.
+    pub const SPOTS: Self = Self(256);
     /// Help overlay.
     pub const HELP: Self = Self(8);
     /// Quit confirmation.
@@ -124,6 +134,8 @@ pub enum Group {
     Detail,
     /// Log screen.
     Log,
+    /// Move lists and spots.
+    Lists,
     /// Prompts and questions.
     Prompts,
 }
@@ -138,6 +150,7 @@ impl Group {
             Self::Screens => "screens",
             Self::Detail => "detail screen",
             Self::Log => "log screen",
+            Self::Lists => "lists and spots",
             Self::Prompts => "prompts",
         }
     }
@@ -244,7 +257,15 @@ pub const BINDINGS: &[Binding] = &[
         "axis detail",
     ),
     bind(&[Char('l')], "l", Action::ToggleLog, Modes::SCREENS, Group::Screens, "event log"),
-    bind(&[Char('v')], "v", Action::TripView, Modes::AXIS, Group::Screens, "why it tripped"),
+    bind(
+        &[Char('v')],
+        "v !",
+        Action::TripView,
+        Modes::AXIS,
+        Group::Screens,
+        "why it tripped / drills",
+    ),
+    bind(&[Char('!')], "", Action::Drill, Modes::AXIS, Group::Screens, ""),
     bind(
         &[Code(KeyCode::Esc)],
         "Esc",
@@ -325,6 +346,27 @@ pub const BINDINGS: &[Binding] = &[
     ),
     bind(&[Code(KeyCode::End)], "", Action::ScrollEnd, Modes::LOG, Group::Log, ""),
     bind(
+        &[Char('m')],
+        "m @",
+        Action::OpenLists,
+        Modes::AXIS,
+        Group::Lists,
+        "list screen · spot picker",
+    ),
+    bind(&[Char('@')], "", Action::OpenSpots, Modes::AXIS, Group::Lists, ""),
+    bind(&[Code(KeyCode::Up)], "", Action::ListPrev, Modes::LISTS, Group::Lists, ""),
+    bind(&[Code(KeyCode::Down)], "", Action::ListNext, Modes::LISTS, Group::Lists, ""),
+    bind(
+        &[Code(KeyCode::Enter)],
+        "Enter p x",
+        Action::ListGo,
+        Modes::LISTS,
+        Group::Lists,
+        "run/resume · pause · abort",
+    ),
+    bind(&[Char('p')], "", Action::ListPause, Modes::LISTS, Group::Lists, ""),
+    bind(&[Char('x')], "", Action::ListAbort, Modes::LISTS, Group::Lists, ""),
+    bind(
         &[Char('?'), Char('q'), Code(KeyCode::Esc)],
         "",
         Action::CloseOverlay,
@@ -332,6 +374,10 @@ pub const BINDINGS: &[Binding] = &[
         Group::Prompts,
         "",
     ),
+    bind(&[Code(KeyCode::Up)], "", Action::SpotPrev, Modes::SPOTS, Group::Prompts, ""),
+    bind(&[Code(KeyCode::Down)], "", Action::SpotNext, Modes::SPOTS, Group::Prompts, ""),
+    bind(&[Code(KeyCode::Enter)], "", Action::SpotGo, Modes::SPOTS, Group::Prompts, ""),
+    bind(&[Code(KeyCode::Esc)], "", Action::CloseOverlay, Modes::SPOTS, Group::Prompts, ""),
     bind(&[Char('y')], "y n", Action::ConfirmQuit, Modes::CONFIRM, Group::Prompts, "quit / stay"),
     bind(
         &[Char('n'), Code(KeyCode::Esc)],
@@ -387,8 +433,17 @@ mod tests {
         KeyEvent::new(code, KeyModifiers::NONE)
     }
 
-    const MODES: [Mode; 6] =
-        [Mode::Overview, Mode::Detail, Mode::Log, Mode::Help, Mode::ConfirmQuit, Mode::Entry];
+    const MODES: [Mode; 9] = [
+        Mode::Overview,
+        Mode::Detail,
+        Mode::Log,
+        Mode::Help,
+        Mode::ConfirmQuit,
+        Mode::Entry,
+        Mode::Trip,
+        Mode::Lists,
+        Mode::Spots,
+    ];
 
     #[test]
     fn no_key_is_bound_twice_in_one_mode() {

@@ -7,6 +7,7 @@
 //! - [`app`]: the cockpit's state; applies actions, samples snapshots, derives the event log.
 //! - [`history`], [`event_log`]: ring buffers of sampled values; the event log.
 //! - [`jog`]: jog settings and the one place jog/home keys meet the engine.
+//! - [`lists`]: the list screen's state (which list, how its run stands).
 //! - [`gain_edit`]: checking a typed gain (saving it is [`crate::config_write`]).
 //! - [`ui`]: drawing, a pure function of the state.
 //! - [`runner`]: the event loop; [`port`]: the trait the loop needs from a machine.
@@ -17,6 +18,7 @@
 
 pub mod action;
 pub mod app;
+pub mod drill;
 pub mod event_log;
 /// Number formatting now lives at the crate root, shared with the CLI; kept here by name.
 pub use crate::format;
@@ -24,6 +26,7 @@ pub mod gain_edit;
 pub mod history;
 pub mod jog;
 pub mod keys;
+pub mod lists;
 pub mod logging;
 pub mod port;
 pub mod runner;

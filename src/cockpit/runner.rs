@@ -17,6 +17,7 @@ use futures::{Stream, StreamExt};
 use ratatui::backend::Backend;
 use ratatui::Terminal;
 use tokio::sync::mpsc::{self, error::TrySendError};
+use tokio::sync::watch;
 use tokio::time::{Instant, MissedTickBehavior};
 
 use crate::cockpit::action::Effect;
@@ -25,6 +26,7 @@ use crate::cockpit::keys;
 use crate::cockpit::port::MachinePort;
 use crate::config_write as save;
 use crate::engine::AxisCommand;
+use crate::move_list::runner::ListControl;
 
 /// Time between frames (20 frames/s): smooth enough for numbers and bars, and cheap on an
 /// SSH link because only changed cells are sent.
@@ -68,6 +70,7 @@ where
     P: MachinePort,
     S: Future<Output = ()>,
 {
+    app.drillable = (0..app.axes.len()).map(|i| port.drillable(i)).collect();
     let (notice_tx, mut notice_rx) = mpsc::channel(NOTICE_DEPTH);
     let lanes = spawn_lanes(&port, app.axes.len(), &notice_tx);
     if let Some(mut engine_events) = port.events() {
@@ -101,6 +104,8 @@ where
     let start = Instant::now();
     let mut snaps = Vec::with_capacity(app.axes.len());
     let mut dirty = true;
+    // The running move list's control channel (pause, resume, abort); stop-all aborts it.
+    let mut list_control: Option<watch::Sender<ListControl>> = None;
     tokio::pin!(stop);
     loop {
         if crate::cockpit::terminal::panicked() {
@@ -125,7 +130,7 @@ where
                     {
                         let action = crate::cockpit::action::Action::JogRelease;
                         for fx in app.apply(start.elapsed(), action) {
-                            execute(fx, &*port, &lanes, &notice_tx, app, start.elapsed());
+                            execute(fx, &*port, &lanes, &notice_tx, app, start.elapsed(), &mut list_control);
                         }
                     }
                 }
@@ -133,7 +138,7 @@ where
                 Some(Ok(Event::Key(k))) => {
                     if let Some(action) = keys::map_key(app.mode(), &k) {
                         for fx in app.apply(start.elapsed(), action) {
-                            execute(fx, &*port, &lanes, &notice_tx, app, start.elapsed());
+                            execute(fx, &*port, &lanes, &notice_tx, app, start.elapsed(), &mut list_control);
                         }
                         dirty = true;
                     }
@@ -209,9 +214,62 @@ fn execute<P: MachinePort>(
     notices: &mpsc::Sender<Notice>,
     app: &mut App,
     now: Duration,
+    list_control: &mut Option<watch::Sender<ListControl>>,
 ) {
     match effect {
-        Effect::StopAll => port.stop_all(),
+        Effect::StopAll => {
+            port.stop_all();
+            // Stop-all stops the list too (the axes stopping would end it anyway).
+            if let Some(c) = list_control {
+                let _ = c.send(ListControl::Abort);
+            }
+        }
+        Effect::ListControl(c) => {
+            if let Some(tx) = list_control {
+                let _ = tx.send(c);
+            }
+        }
+        Effect::RunList { list, from } => {
+            let (tx, rx) = watch::channel(ListControl::Run);
+            *list_control = Some(tx);
+            let (progress_tx, mut progress) = mpsc::unbounded_channel();
+            let job = port.run_list(*list, from, rx, progress_tx);
+            let notices = notices.clone();
+            // One task forwards progress and then the end, so the end is never seen before
+            // the steps that led to it.
+            tokio::spawn(async move {
+                tokio::pin!(job);
+                let result = loop {
+                    tokio::select! {
+                        biased;
+                        Some(p) = progress.recv() => {
+                            let _ = notices.send(Notice::ListProgress(p)).await;
+                        }
+                        r = &mut job => break r,
+                    }
+                };
+                while let Ok(p) = progress.try_recv() {
+                    let _ = notices.send(Notice::ListProgress(p)).await;
+                }
+                let _ = notices.send(Notice::ListEnded(result)).await;
+            });
+        }
+        Effect::FindLists { config, source } => {
+            let notices = notices.clone();
+            tokio::spawn(async move {
+                let job = move || crate::move_list::catalog::find(&config, &source);
+                let found = tokio::task::spawn_blocking(job).await.unwrap_or_default();
+                let _ = notices.send(Notice::Lists(found)).await;
+            });
+        }
+        Effect::MoveLine { what, goals } => {
+            let job = port.move_line(goals);
+            let notices = notices.clone();
+            tokio::spawn(async move {
+                let result = job.await;
+                let _ = notices.send(Notice::Line { what, result }).await;
+            });
+        }
         Effect::ReleaseStopAll => port.release_stop_all(),
         Effect::Command { axis, command } => {
             let what = describe(&command).to_owned();
@@ -268,6 +326,11 @@ fn execute<P: MachinePort>(
                 let result = job.await;
                 let _ = notices.send(Notice::History { axis, result }).await;
             });
+        }
+        Effect::Drill { axis, pick } => {
+            // A short lock the simulated board reads at its tick: done here, in the key path.
+            let result = port.drill(axis, &pick);
+            app.on_notice(now, Notice::Drill { axis, result });
         }
         Effect::WriteCopy { path, config } => {
             spawn_save(notices.clone(), config, true, move |c| {

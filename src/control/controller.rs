@@ -28,7 +28,11 @@
 //!     (backward difference, stable for every h). The filter state is kept as the filtered
 //!     velocity of the measurement (units/s, see [`filtered_derivative`]) and multiplied by
 //!     `kd` at use, so a `kd` change moves D by a known amount that the integral absorbs.
-//!   - `FF = ff_velocity·v_sp + ff_acceleration·a_sp + ff_static·sign(v_sp)` from the profile.
+//!   - `FF = ff_velocity·v_sp + ff_acceleration·a_sp + ff_static·sign(v_sp)` from the profile,
+//!     with `ff_static_reverse` in place of `ff_static` while `v_sp < 0` when it is given
+//!     (friction that differs by direction, e.g. a lift carrying a weight). A negative static
+//!     term (the minimum duty already pays more than the friction) is limited to
+//!     `|ff_velocity·v_sp|`, so it never turns the feedforward against the profile.
 //!   - Anti-windup [`AntiWindup::Clamp`]: the integral holds while the output is saturated
 //!     and the error pushes further into saturation (`(v − u)·e > 0`).
 //!     [`AntiWindup::BackCalculation`]: `I += ki·h·e + (h/Tt)·(u − v)`; `h/Tt` is capped at 1
@@ -329,7 +333,15 @@ fn feedforward(c: &ControllerConfig, sp: &Setpoint) -> f64 {
     } else {
         0.0
     };
-    c.ff_velocity * sp.velocity + c.ff_acceleration * sp.acceleration + c.ff_static * direction
+    // Per direction: a lift's weight adds to the friction going up and takes from it going
+    // down.
+    let stat =
+        if direction < 0.0 { c.ff_static_reverse.unwrap_or(c.ff_static) } else { c.ff_static };
+    // A negative value (the minimum duty pays more than the friction) takes back no more than
+    // the velocity feedforward adds: near standstill at the ends of a move it must not turn
+    // the output against the profile, where the minimum-duty map would kick it the other way.
+    let stat = if stat < 0.0 { stat.max(-(c.ff_velocity * sp.velocity).abs()) } else { stat };
+    c.ff_velocity * sp.velocity + c.ff_acceleration * sp.acceleration + stat * direction
 }
 
 /// A magnitude limit from a configuration number: negative or NaN counts as 0.

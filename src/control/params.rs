@@ -62,6 +62,9 @@ pub enum Range {
     Percent,
     /// A duty that must also be > 0 (an output limit).
     PositivePercent,
+    /// A duty of either sign, −100…100 % (a static feedforward: negative where the minimum
+    /// duty already pays more than sliding friction).
+    SignedPercent,
 }
 
 impl Range {
@@ -78,6 +81,9 @@ impl Range {
             }
             Self::Percent | Self::PositivePercent if !percent => {
                 Some(format!("expected 0…100 %, found {v}"))
+            }
+            Self::SignedPercent if !(v.is_finite() && (-100.0..=100.0).contains(&v)) => {
+                Some(format!("expected −100…100 %, found {v}"))
             }
             _ => None,
         }
@@ -136,6 +142,9 @@ pub struct Param {
     pub rounding: Rounding,
     get: fn(&ControllerConfig) -> f64,
     set: fn(&mut ControllerConfig, f64),
+    /// For a key the file may leave out: what the file holds (None: absent, and `get` gives
+    /// the value in force instead).
+    stored: Option<fn(&ControllerConfig) -> Option<f64>>,
 }
 
 impl Param {
@@ -149,9 +158,15 @@ impl Param {
         self.unit.text(u)
     }
 
-    /// Its value in `c`.
+    /// Its value in force in `c` (for a key left out, the value that stands in for it).
     pub fn get(self, c: &ControllerConfig) -> f64 {
         (self.get)(c)
+    }
+
+    /// Its value as the file holds it: None when the key is left out (only for a key that
+    /// may be, like `ff_static_reverse`).
+    pub fn stored(self, c: &ControllerConfig) -> Option<f64> {
+        self.stored.map_or_else(|| Some(self.get(c)), |f| f(c))
     }
 
     /// Sets its value in `c`.
@@ -175,7 +190,7 @@ impl Param {
         if self.checked_only_when_used && !self.used_by(c) {
             return None;
         }
-        self.range.problem(self.get(c))
+        self.range.problem(self.stored(c)?)
     }
 }
 
@@ -221,6 +236,7 @@ const fn row(
         rounding,
         get,
         set,
+        stored: None,
     }
 }
 
@@ -228,6 +244,11 @@ impl Param {
     /// The same row, used only with anti-windup method `w`.
     const fn only_with(self, w: AntiWindup) -> Self {
         Self { anti_windup: Some(w), ..self }
+    }
+
+    /// The same row for a key the file may leave out; `stored` reads it as written.
+    const fn optional(self, stored: fn(&ControllerConfig) -> Option<f64>) -> Self {
+        Self { stored: Some(stored), ..self }
     }
 
     /// The same row, its range checked only where the mode uses it.
@@ -264,7 +285,11 @@ pub const ALL: &[Param] = &[
     row("ff_acceleration", "acceleration feedforward", Unit::PercentSecondSquaredPerUnit, &[Pid],
         Range::NonNegative, GAIN, |c| c.ff_acceleration, |c, v| c.ff_acceleration = v),
     row("ff_static", "static friction feedforward", Unit::Percent, &[Pid],
-        Range::Percent, DUTY, |c| c.ff_static, |c, v| c.ff_static = v),
+        Range::SignedPercent, DUTY, |c| c.ff_static, |c, v| c.ff_static = v),
+    row("ff_static_reverse", "static friction feedforward in reverse", Unit::Percent, &[Pid],
+        Range::SignedPercent, DUTY, |c| c.ff_static_reverse.unwrap_or(c.ff_static),
+        |c, v| c.ff_static_reverse = Some(v))
+        .optional(|c| c.ff_static_reverse),
     row("on_off_duty", "on-off duty", Unit::Percent, &[OnOff],
         Range::Percent, DUTY, |c| c.on_off_duty, |c, v| c.on_off_duty = v),
     row("tolerance", "on-off tolerance band", Unit::AxisUnit, &[OnOff],
@@ -282,14 +307,15 @@ pub fn used_by(c: &ControllerConfig) -> Vec<Param> {
     ALL.iter().copied().filter(|p| p.used_by(c)).collect()
 }
 
-/// The controller's mode and every parameter as a JSON object keyed like the file, for
-/// records that must say which gains were in force (the trip capture's sidecar).
+/// The controller's mode and every parameter as a JSON object keyed like the file (null for
+/// a key left out), for records that must say which gains were in force (the trip
+/// capture's sidecar).
 pub fn to_json(c: &ControllerConfig) -> serde_json::Value {
     let mut m = serde_json::Map::new();
     m.insert("mode".into(), serde_json::to_value(c.mode).unwrap_or_default());
     m.insert("anti_windup".into(), serde_json::to_value(c.anti_windup).unwrap_or_default());
     for p in ALL {
-        m.insert(p.key.into(), serde_json::json!(p.get(c)));
+        m.insert(p.key.into(), serde_json::json!(p.stored(c)));
     }
     serde_json::Value::Object(m)
 }
@@ -298,24 +324,48 @@ pub fn to_json(c: &ControllerConfig) -> serde_json::Value {
 mod tests {
     use super::*;
 
-    /// The numeric keys of a controller configuration, as the file spells them.
-    fn numeric_keys(c: &ControllerConfig) -> Vec<String> {
-        let text = toml::to_string(c).expect("serialises");
-        let table: toml::Table = text.parse().expect("reads back");
-        let mut keys: Vec<String> = table
-            .into_iter()
-            .filter(|(_, v)| v.is_float() || v.is_integer())
-            .map(|(k, _)| k)
-            .collect();
-        keys.sort();
-        keys
+    /// Asks `ControllerConfig`'s own `Deserialize` for the field names it knows (serde hands
+    /// them to `deserialize_struct`), so a key the file may leave out counts too.
+    struct FieldNames<'a>(&'a mut Vec<&'static str>);
+
+    impl<'de> serde::Deserializer<'de> for FieldNames<'_> {
+        type Error = serde::de::value::Error;
+
+        fn deserialize_any<V: serde::de::Visitor<'de>>(
+            self,
+            _: V,
+        ) -> Result<V::Value, Self::Error> {
+            Err(serde::de::Error::custom("only a struct's field names are wanted"))
+        }
+
+        fn deserialize_struct<V: serde::de::Visitor<'de>>(
+            self,
+            _name: &'static str,
+            fields: &'static [&'static str],
+            _visitor: V,
+        ) -> Result<V::Value, Self::Error> {
+            self.0.extend_from_slice(fields);
+            Err(serde::de::Error::custom("field names taken"))
+        }
+
+        serde::forward_to_deserialize_any! {
+            bool i8 i16 i32 i64 i128 u8 u16 u32 u64 u128 f32 f64 char str string bytes byte_buf
+            option unit unit_struct newtype_struct seq tuple tuple_struct map enum identifier
+            ignored_any
+        }
     }
 
     #[test]
     fn every_numeric_controller_field_has_a_row_and_no_row_is_extra() {
-        let mut table: Vec<String> = ALL.iter().map(|p| p.key.to_owned()).collect();
-        table.sort();
-        assert_eq!(numeric_keys(&ControllerConfig::default()), table);
+        let mut fields = Vec::new();
+        let _ = <ControllerConfig as serde::Deserialize>::deserialize(FieldNames(&mut fields));
+        // The two choices that are not numbers; a new non-numeric key must be added here.
+        let mut numeric: Vec<&str> =
+            fields.into_iter().filter(|f| !["mode", "anti_windup"].contains(f)).collect();
+        numeric.sort_unstable();
+        let mut table: Vec<&str> = ALL.iter().map(|p| p.key).collect();
+        table.sort_unstable();
+        assert_eq!(numeric, table, "ControllerConfig's numeric keys and the table's rows");
         let mut unique = table.clone();
         unique.dedup();
         assert_eq!(unique, table, "a key appears twice");
@@ -349,7 +399,7 @@ mod tests {
         assert!(keys(&c).contains(&"tracking_time_s"));
         c.anti_windup = AntiWindup::Clamp;
         assert!(!keys(&c).contains(&"tracking_time_s"));
-        assert_eq!(keys(&c).len(), 11);
+        assert_eq!(keys(&c).len(), 12);
     }
 
     #[test]
@@ -390,5 +440,16 @@ mod tests {
         assert!(tol.problem(&c).is_none());
         let c = ControllerConfig { mode: ControlMode::OnOff, ..c };
         assert!(tol.problem(&c).is_some());
+    }
+
+    #[test]
+    fn a_key_the_file_leaves_out_reads_as_the_value_standing_in_for_it() {
+        let rev = find("ff_static_reverse").expect("row");
+        let mut c = ControllerConfig { ff_static: 2.5, ..ControllerConfig::default() };
+        assert_eq!((rev.get(&c), rev.stored(&c)), (2.5, None));
+        rev.set(&mut c, -1.0);
+        assert_eq!((rev.get(&c), rev.stored(&c)), (-1.0, Some(-1.0)));
+        assert_eq!(to_json(&c)["ff_static_reverse"], -1.0);
+        assert!(to_json(&ControllerConfig::default())["ff_static_reverse"].is_null());
     }
 }

@@ -27,6 +27,7 @@
 //! | wiring / polarity | in the last 0.1 s, ≥ 60 % of the driven rows move against the duty (duty above 10 % of its limit) and the speed grows | 0.85 (0.92 when recorded as runaway) |
 //! | jam / hard stop | the count stays within 2 counts for ≥ 10 ms up to the trip while the board drives the motor, the duty is above 15 % of its limit and the error grows | 0.6–0.9 with the duration up to 0.1 s (0.92 when recorded as stall) |
 //! | saturation | the output at its limit in ≥ 30 % of the last 0.2 s and ≥ 50 % of the last 50 ms, while the axis moves the duty's way | 0.8 (0.75 when the duty swings limit to limit: gains too high) |
+//! | weaker drive (supply sag?) | at one profile speed, the last 20 ms took ≥ 15 % of the duty's limit more than the first 30 ms of the cruise, for ≤ 90 % of the speed and ≤ 60 % of the speed per duty, while still moving (≥ 15 % of the profile speed, ≥ 10 % in the last 10 ms); saturation is then kept below it | 0.8 |
 //! | gain too low | during motion the duty stays below 80 % of its limit (never saturated), the axis still moves the profile's way at the trip (≥ 3 counts in the last 20 ms), and the error has grown into the band (≥ 50 % of it the frame before, ≥ 70 % at the trip); \|error\| correlating with profile speed (r ≥ 0.5) raises it. Or: the target moved off but the axis never started, with the duty below 15 % of its limit | 0.5–0.7 (0.65) |
 //! | lighter load than tuned (belt slip?) | at cruise, the P + I parts take back ≥ 30 % of the feedforward | 0.45 |
 //! | out of travel, homing | the supervisor's record (their own rules) | 0.85 |
@@ -43,6 +44,10 @@
 //! load looks lighter than the feedforward was tuned for. Every diagnosis says so. A jam and
 //! a motor whose encoder stopped counting look the same too (duty, no counts): the check
 //! list says how to tell them apart by hand.
+//!
+//! A sagging motor supply cannot be told from a move too demanding for the motor either: the
+//! record has duty, not volts, and a weak supply makes the same duty weaker. When the cause
+//! is saturation or gain too low, the diagnosis says so ([`CANNOT_SEE_SAG`]).
 
 pub mod capture;
 pub mod chart;
@@ -69,6 +74,8 @@ pub enum Cause {
     Jam,
     /// The output at its limit while the error grows.
     Saturation,
+    /// The same profile speed took more duty for less speed as the move went on.
+    WeakerDrive,
     /// The axis follows but lags: gains (or feedforward) too low for the speed.
     GainTooLow,
     /// Lost frames or a lost link.
@@ -97,6 +104,7 @@ impl Cause {
         match self {
             Self::Jam => "mechanical jam or hard stop",
             Self::Saturation => "duty saturation",
+            Self::WeakerDrive => "motor weaker than at the start of the move (supply sag?)",
             Self::GainTooLow => "gain too low",
             Self::LinkTrouble => "link trouble",
             Self::EncoderFault => "encoder fault",
@@ -161,6 +169,12 @@ pub const CANNOT_SEE_SLIP: &str = "whether the belt slipped: the encoder is on t
      carriage and compare its travel with the reading, or re-home and compare the switch \
      position)";
 
+/// The sentence about a supply the record does not measure; with saturation and gain too low
+/// (a weaker drive says it its own way).
+pub const CANNOT_SEE_SAG: &str = "whether the motor supply sagged: the record has the duty, not \
+     the voltage, so a weak supply looks like a move too demanding for the motor (measure the \
+     supply at the board while the axis accelerates)";
+
 /// Diagnoses one axis's record.
 pub fn diagnose(rec: &TripRecord) -> Diagnosis {
     let view = rules::View::new(rec);
@@ -195,6 +209,16 @@ pub fn diagnose(rec: &TripRecord) -> Diagnosis {
             )
         }
     };
+    match head.cause {
+        Cause::Saturation | Cause::GainTooLow => cannot_tell.push(CANNOT_SEE_SAG.to_owned()),
+        Cause::WeakerDrive => cannot_tell.push(
+            "whether the supply sagged or the load grew: the record has the duty, not the \
+             voltage or the current (measure the supply at the board while the axis moves, \
+             then move the carriage by hand with the motor unpowered)"
+                .to_owned(),
+        ),
+        _ => {}
+    }
     let ambiguous = others
         .first()
         .is_some_and(|o| o.confidence >= 0.5 && head.confidence - o.confidence < AMBIGUOUS_WITHIN);

@@ -159,6 +159,7 @@ pub fn all(v: &View<'_>) -> Vec<Candidate> {
         wiring(v),
         jam(v),
         saturation(v),
+        weaker_drive(v),
         gain_too_low(v),
         light_load(v),
         recorded_only(v),
@@ -170,6 +171,12 @@ pub fn all(v: &View<'_>) -> Vec<Candidate> {
     // the watchdog's evidence and the link below it.
     if out.iter().any(|c| c.cause == Cause::BoardWatchdog) {
         for c in out.iter_mut().filter(|c| c.cause == Cause::LinkTrouble) {
+            c.confidence = c.confidence.min(0.6);
+        }
+    }
+    // A drive that weakened mid-move saturates next: the weakening is the finding.
+    if out.iter().any(|c| c.cause == Cause::WeakerDrive) {
+        for c in out.iter_mut().filter(|c| c.cause == Cause::Saturation) {
             c.confidence = c.confidence.min(0.6);
         }
     }
@@ -678,6 +685,79 @@ fn too_weak_to_start(v: &View<'_>) -> Option<Candidate> {
     ))
 }
 
+/// Rows of the early cruise that [`weaker_drive`] compares with, s.
+const WEAKER_EARLY_S: f64 = 0.03;
+/// The end of the record [`weaker_drive`] compares, s.
+const WEAKER_LATE_S: f64 = 0.02;
+
+/// At one profile speed (cruise), the motor gives less speed for more duty than it did
+/// earlier in the window: its drive weakened (supply sag) or its load grew (drag), while the
+/// axis still moves (a standstill is the jam rule's).
+pub fn weaker_drive(v: &View<'_>) -> Option<Candidate> {
+    let before = v.before();
+    let cruise_v = before.last()?.target_velocity;
+    if cruise_v.abs() <= v.v_noise {
+        return None;
+    }
+    let at_cruise = |r: &&Sample| {
+        r.state.motor_on()
+            && r.target_acceleration.abs() < 1e-9
+            && (r.target_velocity - cruise_v).abs() < 1e-6 * cruise_v.abs().max(1.0)
+    };
+    let cruise: Vec<&Sample> = before.iter().filter(at_cruise).collect();
+    let (first, last) = (cruise.first()?, cruise.last()?);
+    let early: Vec<&&Sample> = cruise.iter().filter(|r| r.t <= first.t + WEAKER_EARLY_S).collect();
+    let late: Vec<&&Sample> = cruise.iter().filter(|r| r.t >= last.t - WEAKER_LATE_S).collect();
+    if early.len() < 5 || late.len() < 5 || last.t - first.t < 3.0 * WEAKER_EARLY_S {
+        return None;
+    }
+    let mean = |rows: &[&&Sample], f: fn(&Sample) -> f64| {
+        rows.iter().map(|r| f(r)).sum::<f64>() / rows.len() as f64
+    };
+    let s = cruise_v.signum();
+    let (v_early, d_early) = (mean(&early, |r| r.velocity) * s, mean(&early, |r| r.duty) * s);
+    let (v_late, d_late) = (mean(&late, |r| r.velocity) * s, mean(&late, |r| r.duty) * s);
+    // Still moving at the very end: a standstill is a jam.
+    let slowest_end = cruise
+        .iter()
+        .filter(|r| r.t >= last.t - 0.01)
+        .map(|r| r.velocity * s)
+        .fold(f64::INFINITY, f64::min);
+    // More duty for less speed, by a margin no cruise wobble gives.
+    let weaker = d_early > 0.0
+        && v_early > 0.0
+        && d_late - d_early >= 0.15 * v.max_duty()
+        && v_late / d_late <= 0.6 * v_early / d_early
+        && v_late <= 0.9 * v_early
+        && v_late >= 0.15 * cruise_v.abs()
+        && slowest_end >= 0.1 * cruise_v.abs();
+    if !weaker {
+        return None;
+    }
+    let u = v.unit();
+    Some(cand(
+        Cause::WeakerDrive,
+        0.8,
+        vec![
+            format!(
+                "at the one profile speed {:.1} {u}/s: {d_early:.0} % duty gave {v_early:.1} \
+                 {u}/s at first ({}), {d_late:.0} % gave only {v_late:.1} {u}/s at the end",
+                cruise_v.abs(),
+                v.ago(first.t)
+            ),
+            "the axis still moved: not a jam, but the motor got weaker or its load heavier \
+             during the move"
+                .to_owned(),
+        ],
+        vec![
+            "the motor supply at the board while the axis moves: a sagging supply, a weak \
+             battery, a thin or long supply cable"
+                .to_owned(),
+            "something dragging on the carriage: a cable, a brake, debris on the rail".to_owned(),
+        ],
+    ))
+}
+
 /// At cruise the P and I parts take back a good part of the feedforward: the load is lighter
 /// than the feedforward was tuned for.
 pub fn light_load(v: &View<'_>) -> Option<Candidate> {
@@ -846,6 +926,25 @@ mod tests {
 
     #[test]
     fn saturation_is_duty_at_the_limit_while_moving_and_lagging() {
+        // The motor never had the profile's speed: at its limit all through the window.
+        let r = record(600, 150.0, |j, s| {
+            if j >= 50 {
+                let lag = (j - 50) as f64 * 0.004;
+                s.position -= lag;
+                s.count = (s.position * CPU).round() as i64;
+                s.velocity = 146.0;
+                s.duty = 100.0;
+                s.saturated = true;
+            }
+        });
+        let d = diagnose(&recorded(r, "following error"));
+        assert_eq!(d.cause, Cause::Saturation, "{d:#?}");
+        assert!(d.cannot_tell.iter().any(|c| c.contains("supply sagged")), "{d:?}");
+    }
+
+    #[test]
+    fn a_drive_that_weakens_at_cruise_is_named_before_saturation() {
+        // At 150 mm/s on its usual duty, then all the duty there is for less speed.
         let r = record(600, 150.0, |j, s| {
             if j >= 450 {
                 let lag = (j - 450) as f64 * 0.02;
@@ -857,7 +956,9 @@ mod tests {
             }
         });
         let d = diagnose(&recorded(r, "following error"));
-        assert_eq!(d.cause, Cause::Saturation, "{d:#?}");
+        assert_eq!(d.cause, Cause::WeakerDrive, "{d:#?}");
+        assert!(!d.ambiguous, "{d:#?}");
+        assert!(d.others.iter().any(|o| o.cause == Cause::Saturation), "{d:?}");
     }
 
     #[test]

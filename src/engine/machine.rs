@@ -134,6 +134,9 @@ pub struct MachineHandle {
     config: Arc<MachineConfig>,
     events: broadcast::Sender<Event>,
     recorder: Option<Arc<RecorderPaths>>,
+    /// The in-process simulated boards, by axis name, for fault drills: their handles take
+    /// a short lock the board reads at its tick, so nothing here waits on an axis loop.
+    sims: Arc<[(String, SimBoardHandle)]>,
 }
 
 /// Why homing did not finish.
@@ -184,6 +187,7 @@ impl Machine {
             links.push(built.link);
         }
         let mut m = Self::start_links(cfg, links, recorder);
+        m.handle.sims = sims.clone().into();
         m.sims = sims;
         Ok(m)
     }
@@ -256,6 +260,7 @@ impl Machine {
                 config,
                 events: events_tx,
                 recorder: recorder.map(Arc::new),
+                sims: Arc::new([]),
             },
             shutdown: shutdown_tx,
             flush,
@@ -383,6 +388,12 @@ impl MachineHandle {
     /// The configuration the machine was started with.
     pub fn config(&self) -> &MachineConfig {
         &self.config
+    }
+
+    /// The in-process simulated board behind `axis`, for fault drills (None for a real
+    /// board, or a simulated one served elsewhere).
+    pub fn sim_board(&self, axis: &str) -> Option<SimBoardHandle> {
+        self.sims.iter().find(|(a, _)| a == axis).map(|(_, h)| h.clone())
     }
 
     /// Latches stop-all on every axis (category from the configuration). Never waits.

@@ -25,8 +25,9 @@
 //! This module owns the format, reading it with errors that name the file, line and step,
 //! and [`check`]: every target of every repetition worked out and checked against the soft
 //! limits before anything moves (`servotty run --dry-run` prints it). [`runner`] carries a
-//! checked list out on a machine.
+//! checked list out on a machine; [`catalog`] finds the lists beside a configuration.
 
+pub mod catalog;
 pub mod runner;
 
 use std::collections::BTreeMap;

@@ -172,7 +172,8 @@ pub async fn run_list(
         }
         if *control.borrow() == ListControl::Abort {
             stop_then_off(&every).await;
-            let stopped = stopped(p, "aborted by the operator");
+            // This step never started: resuming begins with it.
+            let stopped = Stopped { resume_from: p.step, ..stopped(p, "aborted by the operator") };
             return Ok(ListOutcome { ok: false, steps: reports, stopped: Some(stopped) });
         }
         on(&event("start"));

@@ -57,6 +57,8 @@ pub struct SimBoardHandle {
 struct Shared {
     plant_faults: PlantFaults,
     link_faults: LinkFaults,
+    /// The driver stage reports a fault (docs/protocol.md section 9, rule 7).
+    driver_fault: bool,
     /// A one-off blackout still to run, ms (see [`SimBoardHandle::black_out`]).
     blackout_ms: u32,
     view: BoardView,
@@ -75,8 +77,13 @@ pub struct BoardView {
     pub duty: f64,
     /// Whether the bridge is on.
     pub motor_on: bool,
-    /// Whether the watchdog has turned the motor off.
+    /// Whether the watchdog has fired (the WATCHDOG_TRIPPED bit).
     pub watchdog_tripped: bool,
+    /// Whether the driver stage reports a fault (the DRIVER_FAULT bit).
+    pub driver_fault: bool,
+    /// Whether the board streams telemetry (a valid Configure since power-up or the last
+    /// Hello).
+    pub streaming: bool,
     /// Board ticks since power-up.
     pub ticks: u64,
     /// Telemetry frames sent.
@@ -134,6 +141,17 @@ impl SimBoardHandle {
     /// board keeps ticking, counting sequence numbers and running its watchdog meanwhile.
     pub fn black_out(&self, ms: u32) {
         self.lock().blackout_ms = ms;
+    }
+
+    /// Makes the driver stage report a fault (true) or clear it (false): while set, the board
+    /// keeps its motor off, refuses to drive it and sends the DRIVER_FAULT bit.
+    pub fn set_driver_fault(&self, on: bool) {
+        self.lock().driver_fault = on;
+    }
+
+    /// Whether a driver fault is injected.
+    pub fn driver_fault(&self) -> bool {
+        self.lock().driver_fault
     }
 
     /// Current plant faults.
@@ -275,8 +293,13 @@ impl SimBoard {
             count: plant.encoder_count(),
             ..BoardView::default()
         };
-        let shared =
-            Arc::new(Mutex::new(Shared { plant_faults, link_faults, blackout_ms: 0, view }));
+        let shared = Arc::new(Mutex::new(Shared {
+            plant_faults,
+            link_faults,
+            driver_fault: false,
+            blackout_ms: 0,
+            view,
+        }));
         Self {
             plant,
             plant_params: params.clone(),
@@ -308,9 +331,12 @@ impl SimBoard {
 
     /// Runs the board on `stream` until the stream closes.
     ///
-    /// Mirrors the firmware contract in docs/protocol.md: motor off at power-up; answer Hello
-    /// with capabilities; stream telemetry every tick after Configure; apply each valid Duty at
-    /// the next tick; motor off on Stop, and on watchdog expiry until the next valid Duty.
+    /// Mirrors the board contract in docs/protocol.md (sections 6, 7 and 9): motor off and a
+    /// lone delimiter at power-up; Hello stops streaming, switches the motor off and is
+    /// answered with capabilities; a valid Configure (an out-of-range one is ignored) starts
+    /// telemetry every tick; each valid Duty applies at the next tick; motor off on Stop; the
+    /// watchdog fires whenever no Duty or Stop came in time while streaming (motor on or not)
+    /// and its bit stays until the next valid Duty; a driver fault keeps the motor off.
     ///
     /// Like a firmware main loop, the board does everything at its tick: read what the host
     /// sent since the last tick, then sample, step and send. One wake-up per tick (not one
@@ -322,6 +348,8 @@ impl SimBoard {
         let mut rx = vec![0u8; 4096];
         let mut retry_read_at: Option<tokio::time::Instant> = None;
         let mut last_tick_at: Option<tokio::time::Instant> = None;
+        // docs/protocol.md section 3: a lone delimiter at power-up flushes the host's receiver.
+        send(&mut stream, &[0]).await;
         loop {
             if !ticker.tick().await {
                 b.motor_off();
@@ -373,6 +401,7 @@ impl SimBoard {
                     }
                 }
             }
+            b.driver_fault = self.handle.lock().driver_fault;
             // Host messages take effect when due (at once unless a reply delay is injected).
             while b.inbox.front().is_some_and(|(due, _)| *due <= b.ticks) {
                 let Some((_, msg)) = b.inbox.pop_front() else { break };
@@ -403,14 +432,27 @@ impl SimBoard {
             }
             let dark = lf.cut || b.dark_ticks > 0;
             b.dark_ticks = b.dark_ticks.saturating_sub(1);
-            if b.motor_on && b.ticks.saturating_sub(b.last_command_tick) > b.watchdog_ticks {
+            // The watchdog runs while streaming whether or not the motor is on (a host that
+            // stops answering an idle axis trips it too); `watchdog_trips` counts the times it
+            // switched a running motor off.
+            if b.streaming && b.ticks.saturating_sub(b.last_command_tick) > b.watchdog_ticks {
+                if b.motor_on {
+                    b.replies.watchdog_trips += 1;
+                    b.motor_off_at_tick = Some(b.ticks);
+                }
                 b.motor_on = false;
                 b.watchdog_tripped = true;
-                b.replies.watchdog_trips += 1;
+            }
+            if b.driver_fault && b.motor_on {
+                b.motor_on = false;
                 b.motor_off_at_tick = Some(b.ticks);
             }
             let period = 1.0 / f64::from(b.tick_hz);
+            let before_mm = self.plant.position_mm();
             self.plant.step(if b.motor_on { b.duty } else { 0.0 }, period);
+            if let Some(mm) = self.plant.faults.jam_at_mm {
+                self.arm_jam_at(mm, before_mm);
+            }
             self.publish(&b);
             if !b.streaming {
                 continue;
@@ -439,6 +481,21 @@ impl SimBoard {
         }
     }
 
+    /// A jam armed at `mm` (the carriage moved from `before_mm` this tick) becomes a jam
+    /// where the carriage is once it reaches or passes `mm`.
+    fn arm_jam_at(&self, mm: f64, before_mm: f64) {
+        let now = self.plant.position_mm();
+        let passed = (before_mm - mm) * (now - mm) < 0.0;
+        if passed || (now - mm).abs() < 0.05 {
+            let mut s = self.handle.lock();
+            // Unless it was changed meanwhile.
+            if s.plant_faults.jam_at_mm == Some(mm) {
+                s.plant_faults.jam_at_mm = None;
+                s.plant_faults.blocked = true;
+            }
+        }
+    }
+
     fn publish(&self, b: &BoardState) {
         let view = BoardView {
             position_mm: self.plant.position_mm(),
@@ -447,6 +504,8 @@ impl SimBoard {
             duty: if b.motor_on { b.duty } else { 0.0 },
             motor_on: b.motor_on,
             watchdog_tripped: b.watchdog_tripped,
+            driver_fault: b.driver_fault,
+            streaming: b.streaming,
             ticks: b.ticks,
             frames_sent: b.frames_sent,
             commands_received: b.commands_received,
@@ -471,6 +530,8 @@ struct BoardState {
     duty: f64,
     motor_on: bool,
     watchdog_tripped: bool,
+    /// The driver stage reports a fault (read from the handle at every tick).
+    driver_fault: bool,
     last_command_tick: u64,
     ack_seq: u16,
     commands_received: u64,
@@ -501,6 +562,7 @@ impl BoardState {
             duty: 0.0,
             motor_on: false,
             watchdog_tripped: false,
+            driver_fault: false,
             last_command_tick: 0,
             ack_seq: 0,
             commands_received: 0,
@@ -559,8 +621,10 @@ impl BoardState {
         self.commands_received += 1;
         match msg {
             HostMessage::Hello => {
-                // Contract: Hello switches the motor off first.
+                // Contract: Hello switches the motor off first and stops streaming until the
+                // next Configure.
                 self.motor_off();
+                self.streaming = false;
                 self.last_reply_us = None;
                 let caps = BoardMessage::Hello(Capabilities {
                     protocol_version: protocol::PROTOCOL_VERSION,
@@ -572,8 +636,13 @@ impl BoardState {
                 protocol::write_frame(&caps, &mut out);
                 Some(out)
             }
-            HostMessage::Configure { tick_hz, watchdog_ms } => {
-                let hz = tick_hz.clamp(1, MAX_TICK_HZ);
+            // Contract: an out-of-range Configure is ignored; the board stays as it was.
+            HostMessage::Configure { tick_hz, watchdog_ms }
+                if tick_hz == 0 || tick_hz > MAX_TICK_HZ || watchdog_ms == 0 =>
+            {
+                None
+            }
+            HostMessage::Configure { tick_hz: hz, watchdog_ms } => {
                 if hz != self.tick_hz {
                     // Board time stays continuous across a rate change.
                     self.ticks = self.ticks * u64::from(hz) / u64::from(self.tick_hz);
@@ -587,6 +656,8 @@ impl BoardState {
                 self.seq = 0;
                 self.ack_seq = 0;
                 self.watchdog_tripped = false;
+                // The watchdog is armed from now.
+                self.last_command_tick = self.ticks;
                 self.streaming = true;
                 None
             }
@@ -594,12 +665,17 @@ impl BoardState {
             HostMessage::Duty { .. } if !self.streaming => None,
             HostMessage::Duty { seq, duty } => {
                 self.count_reply(seq);
-                let full = protocol::DUTY_FULL_SCALE;
-                self.duty = f64::from(duty.clamp(-full, full)) / f64::from(full);
-                self.motor_on = true;
                 self.watchdog_tripped = false;
                 self.last_command_tick = self.ticks;
                 self.ack_seq = seq;
+                if self.driver_fault {
+                    // Contract: a Duty does not switch a faulted driver on.
+                    self.motor_off();
+                    return None;
+                }
+                let full = protocol::DUTY_FULL_SCALE;
+                self.duty = f64::from(duty.clamp(-full, full)) / f64::from(full);
+                self.motor_on = true;
                 None
             }
             HostMessage::Stop { seq } => {
@@ -628,6 +704,9 @@ impl BoardState {
         }
         if self.watchdog_tripped {
             st |= status::WATCHDOG_TRIPPED;
+        }
+        if self.driver_fault {
+            st |= status::DRIVER_FAULT;
         }
         BoardMessage::Telemetry(Telemetry {
             seq,
@@ -783,6 +862,155 @@ mod tests {
         assert_eq!(r.longest_reply_gap_us, 61_000, "{r:?}");
         assert_eq!(r.rushed_ticks, 0, "simulated time never runs late: {r:?}");
         assert_eq!(r.longest_tick_gap_us, 1_000, "{r:?}");
+    }
+
+    fn demo_board(faults: &SimFaults) -> (ScriptedHost, SimBoardHandle) {
+        let cfg = MachineConfig::demo().expect("demo");
+        let crate::config::TransportConfig::Sim(sim) = &cfg.axes[0].transport else {
+            panic!("the demo is simulated")
+        };
+        let (link, board) = spawn_in_process(&sim.plant, faults, 1);
+        (
+            ScriptedHost { link, decoder: FrameDecoder::new(), rx: vec![0; 1024], tx: Vec::new() },
+            board,
+        )
+    }
+
+    impl ScriptedHost {
+        /// Telemetry within `ms` of simulated time, or None.
+        async fn telemetry_within(&mut self, ms: u64) -> Option<Telemetry> {
+            tokio::time::timeout(Duration::from_millis(ms), self.next_telemetry()).await.ok()
+        }
+    }
+
+    /// docs/protocol.md sections 6.1, 6.2 and 9 (rules 1, 2, 3 and 6), read against what the
+    /// board does.
+    #[tokio::test(start_paused = true)]
+    async fn the_board_follows_the_session_and_watchdog_contract() {
+        let (mut host, board) = demo_board(&SimFaults::default());
+        // Rule 1: no telemetry before Configure.
+        assert!(host.telemetry_within(20).await.is_none());
+        // 6.2: an out-of-range Configure is ignored.
+        for bad in [
+            HostMessage::Configure { tick_hz: 0, watchdog_ms: 50 },
+            HostMessage::Configure { tick_hz: MAX_TICK_HZ + 1, watchdog_ms: 50 },
+            HostMessage::Configure { tick_hz: 1000, watchdog_ms: 0 },
+        ] {
+            host.send(bad).await;
+            assert!(host.telemetry_within(20).await.is_none(), "{bad:?} started streaming");
+        }
+        host.send(HostMessage::Configure { tick_hz: 1000, watchdog_ms: 50 }).await;
+        let t = host.next_telemetry().await;
+        assert_eq!((t.seq, t.status), (0, 0));
+        // Rule 2: the watchdog fires while streaming even with the motor off, and (rule 3)
+        // a Stop leaves the bit as it is.
+        let mut tripped = None;
+        for _ in 0..100 {
+            let t = host.next_telemetry().await;
+            if t.status & status::WATCHDOG_TRIPPED != 0 {
+                tripped = Some(t.seq);
+                break;
+            }
+        }
+        let seq = tripped.expect("the watchdog fired with the motor off");
+        assert!((50..=52).contains(&seq), "fired at frame {seq}");
+        host.send(HostMessage::Stop { seq }).await;
+        host.next_telemetry().await;
+        let t = host.next_telemetry().await;
+        assert_ne!(t.status & status::WATCHDOG_TRIPPED, 0, "Stop cleared the bit");
+        // A Duty clears it and drives.
+        host.send(HostMessage::Duty { seq: t.seq, duty: 1000 }).await;
+        host.next_telemetry().await;
+        let t = host.next_telemetry().await;
+        assert_eq!(t.status, status::MOTOR_ON, "{t:?}");
+        assert_eq!(board.view().replies.watchdog_trips, 0, "no running motor was cut");
+        // 6.1 and rule 6: Hello switches the motor off and stops streaming.
+        host.send(HostMessage::Hello).await;
+        let mut hello = false;
+        let quiet = tokio::time::timeout(Duration::from_millis(30), async {
+            loop {
+                let n = host.link.read(&mut host.rx).await.expect("read");
+                host.decoder.extend(&host.rx[..n]);
+                while let Some(m) = host.decoder.next_message::<BoardMessage>() {
+                    match m {
+                        Ok(BoardMessage::Hello(_)) => hello = true,
+                        // Frames already on their way before the Hello are fine.
+                        Ok(BoardMessage::Telemetry(_)) if !hello => {}
+                        other => panic!("after Hello: {other:?}"),
+                    }
+                }
+            }
+        })
+        .await;
+        assert!(quiet.is_err() && hello, "the board answered Hello and fell silent");
+        let v = board.view();
+        assert!(!v.motor_on && !v.streaming, "{v:?}");
+    }
+
+    /// docs/protocol.md section 9, rule 7: while the driver reports a fault the motor is off,
+    /// DRIVER_FAULT is set and a Duty does not switch it on.
+    #[tokio::test(start_paused = true)]
+    async fn a_driver_fault_keeps_the_motor_off_and_says_so() {
+        let (mut host, board) = demo_board(&SimFaults::default());
+        host.send(HostMessage::Configure { tick_hz: 1000, watchdog_ms: 50 }).await;
+        for _ in 0..5 {
+            let t = host.next_telemetry().await;
+            host.send(HostMessage::Duty { seq: t.seq, duty: 2000 }).await;
+        }
+        assert!(board.view().motor_on);
+        board.set_driver_fault(true);
+        for _ in 0..5 {
+            let t = host.next_telemetry().await;
+            host.send(HostMessage::Duty { seq: t.seq, duty: 2000 }).await;
+        }
+        let t = host.next_telemetry().await;
+        assert_eq!(t.status, status::DRIVER_FAULT, "{t:?}");
+        assert!(!board.view().motor_on && board.view().driver_fault);
+        board.set_driver_fault(false);
+        host.send(HostMessage::Duty { seq: t.seq, duty: 2000 }).await;
+        host.next_telemetry().await;
+        assert_eq!(host.next_telemetry().await.status, status::MOTOR_ON);
+    }
+
+    /// A jam armed at a rail position springs when the carriage gets there, not before.
+    #[tokio::test(start_paused = true)]
+    async fn a_jam_armed_at_a_position_springs_there() {
+        let (mut host, board) = demo_board(&SimFaults::default());
+        let start = board.view().position_mm;
+        let at = start + 20.0;
+        board.set_plant_faults(PlantFaults { jam_at_mm: Some(at), ..PlantFaults::default() });
+        host.send(HostMessage::Configure { tick_hz: 1000, watchdog_ms: 50 }).await;
+        for _ in 0..3000 {
+            let t = host.next_telemetry().await;
+            host.send(HostMessage::Duty { seq: t.seq, duty: 5000 }).await;
+            if board.plant_faults().blocked {
+                break;
+            }
+            assert!(board.view().position_mm < at + 0.5, "passed the jam: {:?}", board.view());
+        }
+        let pf = board.plant_faults();
+        assert!(pf.blocked && pf.jam_at_mm.is_none(), "{pf:?}");
+        let p = board.view().position_mm;
+        assert!((p - at).abs() < 0.5, "jammed at {p}, armed at {at}");
+    }
+
+    /// A sagging supply weakens the motor: half the supply, about half the speed at one duty.
+    #[test]
+    fn a_sagging_supply_weakens_the_motor() {
+        let cfg = MachineConfig::demo().expect("demo");
+        let crate::config::TransportConfig::Sim(sim) = &cfg.axes[0].transport else {
+            panic!("the demo is simulated")
+        };
+        let speed = |sag: f64| {
+            let mut p = Plant::new(&sim.plant);
+            p.faults.supply_sag = sag;
+            for _ in 0..300 {
+                p.step(0.6, 0.001);
+            }
+            p.velocity_mm_s()
+        };
+        let (full, half) = (speed(0.0), speed(0.5));
+        assert!(full > 0.0 && half > 0.0 && half < 0.6 * full, "{full} {half}");
     }
 
     #[tokio::test]

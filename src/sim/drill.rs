@@ -14,10 +14,13 @@
 //! | `cut AXIS` | the link is cut both ways (`cut AXIS off` restores it) |
 //! | `blackout AXIS MS` | the link goes dark for MS milliseconds, then comes back |
 //! | `lossy AXIS PROBABILITY` | each telemetry frame is lost with PROBABILITY (0…1) |
+//! | `sag AXIS FRACTION` | the supply sags: FRACTION (0…1) of its voltage is lost |
+//! | `fault AXIS` | the driver stage reports a fault (`fault AXIS off` clears it) |
 //! | `clear AXIS` / `clear all` | every drill fault off |
 //!
-//! Parsing is pure ([`parse`]); [`apply`] acts on a board handle. Drills exist only for
-//! simulated boards: nothing here can reach a real one.
+//! Parsing is pure ([`parse`]); [`apply`] acts on a board handle, which the board reads at
+//! its next tick (a jam at a position is armed there too, so nothing else needs to run).
+//! Drills exist only for simulated boards: nothing here can reach a real one.
 
 use crate::sim::board::{LinkFaults, SimBoardHandle};
 
@@ -40,6 +43,10 @@ pub enum Drill {
     Blackout(u32),
     /// Frame loss probability.
     Lossy(f64),
+    /// Fraction of the supply voltage lost.
+    Sag(f64),
+    /// The driver stage reports a fault (true) or not.
+    DriverFault(bool),
     /// Every drill fault off.
     Clear,
 }
@@ -56,7 +63,7 @@ pub struct Command {
 /// The command list, for `help` and errors.
 pub const HELP: &str = "drills: jam AXIS [off|at MM] · slip AXIS FRACTION · reverse AXIS [off] · \
      glitch AXIS COUNTS · cut AXIS [off] · blackout AXIS MS · lossy AXIS PROBABILITY · \
-     clear AXIS|all";
+     sag AXIS FRACTION · fault AXIS [off] · clear AXIS|all";
 
 /// Parses one line.
 ///
@@ -117,6 +124,8 @@ pub fn parse(line: &str) -> Result<Command, String> {
             Drill::Blackout(ms.round() as u32)
         }
         "lossy" => Drill::Lossy(fraction(number(rest, "a probability 0…1")?)?),
+        "sag" => Drill::Sag(fraction(number(rest, "a fraction 0…1")?)?),
+        "fault" => Drill::DriverFault(on(rest)?),
         "clear" if rest.is_empty() => Drill::Clear,
         _ => return Err(format!("unknown drill {what:?} ({HELP})")),
     };
@@ -124,8 +133,8 @@ pub fn parse(line: &str) -> Result<Command, String> {
     Ok(Command { axis, drill })
 }
 
-/// Applies `drill` to one board; returns what it did, in words. A [`Drill::JamAt`] only arms:
-/// the caller runs [`watch_jam_at`].
+/// Applies `drill` to one board; returns what it did, in words. A [`Drill::JamAt`] arms a jam
+/// that the board springs at the tick its carriage reaches the position.
 pub fn apply(board: &SimBoardHandle, drill: &Drill) -> String {
     let mut pf = board.plant_faults();
     let lf = board.link_faults();
@@ -139,7 +148,11 @@ pub fn apply(board: &SimBoardHandle, drill: &Drill) -> String {
                 "jam freed".into()
             }
         }
-        Drill::JamAt(mm) => format!("will jam at {mm} mm on its rail"),
+        Drill::JamAt(mm) => {
+            pf.jam_at_mm = Some(mm);
+            board.set_plant_faults(pf);
+            format!("will jam at {mm} mm on its rail")
+        }
         Drill::Slip(f) => {
             pf.belt_slip = f;
             board.set_plant_faults(pf);
@@ -175,6 +188,19 @@ pub fn apply(board: &SimBoardHandle, drill: &Drill) -> String {
             board.set_link_faults(LinkFaults { drop_probability: p, ..lf });
             format!("losing {:.0} % of frames", p * 100.0)
         }
+        Drill::Sag(f) => {
+            pf.supply_sag = f;
+            board.set_plant_faults(pf);
+            format!("supply sags {:.0} %", f * 100.0)
+        }
+        Drill::DriverFault(on) => {
+            board.set_driver_fault(on);
+            if on {
+                "driver stage reports a fault".into()
+            } else {
+                "driver fault cleared".into()
+            }
+        }
         Drill::Clear => {
             // The encoder's offset stays: a count that jumped does not jump back.
             let offset = pf.encoder_offset_counts;
@@ -183,23 +209,8 @@ pub fn apply(board: &SimBoardHandle, drill: &Drill) -> String {
                 ..Default::default()
             });
             board.set_link_faults(LinkFaults::default());
+            board.set_driver_fault(false);
             "drill faults off".into()
-        }
-    }
-}
-
-/// Jams the carriage once it reaches `mm` on its rail (checked every millisecond).
-pub async fn watch_jam_at(board: SimBoardHandle, mm: f64) {
-    let start = board.view().position_mm;
-    let mut tick = tokio::time::interval(std::time::Duration::from_millis(1));
-    loop {
-        tick.tick().await;
-        let p = board.view().position_mm;
-        if (p - mm).signum() != (start - mm).signum() || (p - mm).abs() < 0.05 {
-            let mut pf = board.plant_faults();
-            pf.blocked = true;
-            board.set_plant_faults(pf);
-            return;
         }
     }
 }
@@ -217,6 +228,9 @@ mod tests {
         assert_eq!(parse("glitch z -150").expect("glitch").drill, Drill::Glitch(-150));
         assert_eq!(parse("blackout x 70").expect("dark").drill, Drill::Blackout(70));
         assert_eq!(parse("lossy x 0.25").expect("lossy").drill, Drill::Lossy(0.25));
+        assert_eq!(parse("sag x 0.4").expect("sag").drill, Drill::Sag(0.4));
+        assert_eq!(parse("fault x").expect("fault").drill, Drill::DriverFault(true));
+        assert_eq!(parse("fault x off").expect("fault off").drill, Drill::DriverFault(false));
         assert_eq!(parse("clear all").expect("clear"), Command { axis: None, drill: Drill::Clear });
         for bad in [
             "",
@@ -227,6 +241,8 @@ mod tests {
             "blackout x 0",
             "fly x",
             "jam x maybe",
+            "sag x 1.5",
+            "fault x 3",
         ] {
             assert!(parse(bad).is_err(), "{bad:?} accepted");
         }
@@ -248,8 +264,16 @@ mod tests {
         assert!(board.plant_faults().blocked);
         assert!((board.link_faults().drop_probability - 0.5).abs() < 1e-12);
         apply(&board, &Drill::Glitch(40));
+        apply(&board, &Drill::Sag(0.5));
+        apply(&board, &Drill::DriverFault(true));
+        apply(&board, &Drill::JamAt(300.0));
+        assert!(board.driver_fault());
+        assert_eq!(board.plant_faults().jam_at_mm, Some(300.0));
         apply(&board, &Drill::Clear);
         assert!(!board.plant_faults().blocked);
+        assert!(!board.driver_fault());
+        assert_eq!(board.plant_faults().jam_at_mm, None);
+        assert!(board.plant_faults().supply_sag == 0.0);
         assert_eq!(board.plant_faults().encoder_offset_counts, 40);
         assert_eq!(board.link_faults(), LinkFaults::default());
     }

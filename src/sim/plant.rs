@@ -322,6 +322,14 @@ pub struct PlantFaults {
     pub belt_slip: f64,
     /// Added to every reported encoder count (a glitch or a missed index).
     pub encoder_offset_counts: i64,
+    /// A jam armed at this rail position, mm: a simulated board turns it into
+    /// [`blocked`](Self::blocked) at the tick the carriage reaches or passes it (the plant
+    /// itself ignores it).
+    pub jam_at_mm: Option<f64>,
+    /// Fraction 0…1 of the supply voltage lost (a sagging supply, a weak battery, a long thin
+    /// supply cable): the bridge applies `duty × supply_v × (1 − sag)`, so the motor is weaker
+    /// than the duty says. 0 = none.
+    pub supply_sag: f64,
 }
 
 /// Standard gravity, m/s² (ISO 80000-3).
@@ -438,7 +446,8 @@ impl Plant {
         let mut volts = if duty.abs() < self.params.driver_deadband {
             0.0
         } else {
-            duty * self.params.supply_v
+            let sag = if self.faults.supply_sag.is_nan() { 0.0 } else { self.faults.supply_sag };
+            duty * self.params.supply_v * (1.0 - sag.clamp(0.0, 1.0))
         };
         if self.faults.reversed_motor {
             volts = -volts;

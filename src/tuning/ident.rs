@@ -6,7 +6,10 @@
 //! `τ·v̇ = K·(u(t − θ) − u0·σ) − v`,  `ẋ = v`,
 //!
 //! with `K` the velocity gain (unit/s per %), `τ` the time constant (s), `u0` the offset (%)
-//! that sliding friction costs, and `θ` a small input delay (s: link, electrical lag). With
+//! that sliding friction costs, and `θ` a small input delay (s: link, electrical lag). The
+//! offset is fitted for each direction (`u0f` while σ = +1, `u0r` while σ = −1) when the
+//! record moves both ways: a load under gravity adds its weight to the friction one way and
+//! takes it away the other (`u0 = c ± w`), and one offset for both would bias K. With
 //! the armature inductance small this is the DC-motor speed model of the University of
 //! Michigan *Control Tutorials for MATLAB and Simulink*, "DC Motor Speed: System Modeling"
 //! (`τ = R·J/(R·b + Kt·Ke)`), with Coulomb friction as a constant load torque expressed in duty.
@@ -29,8 +32,9 @@
 //! on, with velocity 0 and its own start position; the onset shows the delay θ. Any other
 //! segment starts [`IdentOptions::max_delay_s`] after the duty changed, once the motion runs
 //! the duty's way, with its own start position and velocity. Given (τ, θ), the position is
-//! linear in `K`, `K·u0` and the start values, so these come from linear least squares
-//! (the start values eliminated segment by segment, a 2×2 system left); τ is then found by a
+//! linear in `K`, `K·u0f`, `K·u0r` and the start values, so these come from linear least
+//! squares (the start values eliminated segment by segment, a 3×3 system left, 2×2 when the
+//! record moves one way only, 1×1 with a given offset); τ is then found by a
 //! golden-section search on ln τ and θ by a grid of ¼ sample period refined the same way.
 //! The input is the exact zero-order hold of the duty record delayed by θ: duty row `k` acts
 //! on `[t_k + θ, t_{k+1} + θ)`, as [`Sample::duty`] is "commanded for the next interval".
@@ -105,17 +109,31 @@ pub struct VelocityModel {
     pub gain: f64,
     /// Time constant τ, s.
     pub time_constant_s: f64,
-    /// Offset u0: the duty sliding friction costs, %.
+    /// Offset u0: the duty sliding friction costs, %; forwards only when
+    /// `offset_reverse_pct` is given.
     pub offset_pct: f64,
+    /// The offset in reverse, % (positive), when it was fitted apart from the forward one
+    /// (module docs); `offset_pct` holds for both directions when `None`.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub offset_reverse_pct: Option<f64>,
     /// Input delay θ, s; `None` when no step started from rest (the delay is then not
     /// observable and 0 was used).
     pub delay_s: Option<f64>,
 }
 
 impl VelocityModel {
+    /// The offset for the direction of `duty`'s sign, %.
+    pub fn offset_for(&self, duty: f64) -> f64 {
+        if duty < 0.0 {
+            self.offset_reverse_pct.unwrap_or(self.offset_pct)
+        } else {
+            self.offset_pct
+        }
+    }
+
     /// Steady velocity at a constant duty, unit/s (0 inside the offset).
     pub fn steady_velocity(&self, duty: f64) -> f64 {
-        let net = duty.abs() - self.offset_pct;
+        let net = duty.abs() - self.offset_for(duty);
         if net <= 0.0 {
             0.0
         } else {
@@ -202,8 +220,8 @@ struct Segment {
 struct LinearFit {
     sse: f64,
     gain: f64,
-    /// K·u0.
-    offset_gain: f64,
+    /// K·u0f and K·u0r (equal unless fitted apart).
+    offset_gain: [f64; 2],
     /// Per segment: start position and start velocity.
     starts: Vec<(f64, f64)>,
 }
@@ -265,7 +283,16 @@ pub fn identify(samples: &[DutySample], opts: &IdentOptions) -> Result<Identific
     let longest = segments.iter().map(|s| samples[s.k1].t - samples[s.k0].t).fold(0.0, f64::max);
     let tau_lo = 0.25 * h;
     let tau_hi = (2.0 * longest).max(2.0 * tau_lo);
-    let search = Search { samples, segments: &segments, fixed_offset };
+    // An offset per direction when both directions were driven (module docs).
+    let both_ways = segments.iter().any(|s| s.sign > 0.0) && segments.iter().any(|s| s.sign < 0.0);
+    let globals = if fixed_offset.is_some() {
+        1
+    } else if both_ways {
+        3
+    } else {
+        2
+    };
+    let search = Search { samples, segments: &segments, fixed_offset, globals };
 
     let delay_identified = from_rest > 0 && max_delay > 0.0;
     let (tau, theta, fit) = if delay_identified {
@@ -326,12 +353,19 @@ pub fn identify(samples: &[DutySample], opts: &IdentOptions) -> Result<Identific
             which: "longer than the steps: make each step last at least four time constants",
         });
     }
-    let offset = fixed_offset.unwrap_or(fit.offset_gain / fit.gain);
+    let (offset, reverse) = match fixed_offset {
+        Some(u0) => (u0, None),
+        None if globals == 3 => {
+            (fit.offset_gain[0] / fit.gain, Some(fit.offset_gain[1] / fit.gain))
+        }
+        None => (fit.offset_gain[0] / fit.gain, None),
+    };
     Ok(Identification {
         model: VelocityModel {
             gain: fit.gain,
             time_constant_s: tau,
             offset_pct: offset,
+            offset_reverse_pct: reverse,
             delay_s: delay_identified.then_some(theta),
         },
         r_squared: quality.r_squared,
@@ -493,6 +527,9 @@ struct Search<'a> {
     samples: &'a [DutySample],
     segments: &'a [Segment],
     fixed_offset: Option<f64>,
+    /// Parameters fitted for every segment: 1 (K, the offset given), 2 (K, K·u0) or 3 (K,
+    /// K·u0f, K·u0r).
+    globals: usize,
 }
 
 /// Fit-quality numbers at the optimum.
@@ -547,30 +584,38 @@ impl Search<'_> {
         Ok(self.fit(tau, theta)?.map(|f| (tau, f.sse)))
     }
 
-    /// Linear least squares for K, K·u0 and the segment start values at fixed (τ, θ).
-    /// Index loops kept: they read as the matrix formulas they implement.
-    /// `Ok(None)` when the numbers degenerate (NaN); an error when K and u0 are collinear.
+    /// Linear least squares for K, the offsets (times K) and the segment start values at
+    /// fixed (τ, θ). Index loops kept: they read as the matrix formulas they implement.
+    /// `Ok(None)` when the numbers degenerate (NaN); an error when K and an offset are
+    /// collinear.
     #[allow(clippy::needless_range_loop)]
     fn fit(&self, tau: f64, theta: f64) -> Result<Option<LinearFit>, IdentError> {
         // Accumulate, per segment, the normal-equation blocks with local columns A (start
         // position, and start velocity unless from rest) and global columns B (the responses
         // to the duty and to the friction sign), then eliminate A (Schur complement).
-        let mut m = [[0.0; 2]; 2];
-        let mut r = [0.0; 2];
+        let n = self.globals;
+        let mut m = [[0.0; 3]; 3];
+        let mut r = [0.0; 3];
         let mut blocks = Vec::with_capacity(self.segments.len());
         for seg in self.segments {
             let cols = self.columns(seg, tau, theta);
             let mut blk = Block::default();
             for c in &cols {
                 let a = [1.0, c.phi];
-                let b = self.global(c);
+                let b = self.global(c, seg);
                 for i in 0..2 {
+                    for j in 0..n {
+                        blk.ab[i][j] += a[i] * b[j];
+                    }
                     for j in 0..2 {
                         blk.aa[i][j] += a[i] * a[j];
-                        blk.ab[i][j] += a[i] * b[j];
-                        blk.bb[i][j] += b[i] * b[j];
                     }
                     blk.ay[i] += a[i] * c.y;
+                }
+                for i in 0..n {
+                    for j in 0..n {
+                        blk.bb[i][j] += b[i] * b[j];
+                    }
                     blk.by[i] += b[i] * c.y;
                 }
                 blk.yy += c.y * c.y;
@@ -578,8 +623,8 @@ impl Search<'_> {
             let local = if seg.from_rest { 1 } else { 2 };
             let inv = invert_local(&blk.aa, local);
             // M += BᵀB − (AᵀB)ᵀ (AᵀA)⁻¹ AᵀB ; r += Bᵀy − (AᵀB)ᵀ (AᵀA)⁻¹ Aᵀy
-            for i in 0..2 {
-                for j in 0..2 {
+            for i in 0..n {
+                for j in 0..n {
                     let mut s = blk.bb[i][j];
                     for p in 0..local {
                         for q in 0..local {
@@ -598,31 +643,21 @@ impl Search<'_> {
             }
             blocks.push((blk, inv, local));
         }
-        let g = if self.fixed_offset.is_some() {
-            if !(m[0][0].is_finite() && m[0][0] > 0.0) {
-                return Ok(None);
-            }
-            [r[0] / m[0][0], 0.0]
-        } else {
-            let det = m[0][0] * m[1][1] - m[0][1] * m[1][0];
-            let scale = m[0][0] * m[1][1];
-            if !(scale.is_finite() && scale > 0.0 && det > 1e-9 * scale) {
-                return if det.is_finite() && scale.is_finite() {
-                    Err(IdentError::GainOffsetAmbiguous)
-                } else {
-                    Ok(None)
-                };
-            }
-            [(m[1][1] * r[0] - m[0][1] * r[1]) / det, (m[0][0] * r[1] - m[1][0] * r[0]) / det]
+        let g = match solve_small(&m, &r, n) {
+            Solved::Unique(g) => g,
+            Solved::Collinear if n > 1 => return Err(IdentError::GainOffsetAmbiguous),
+            _ => return Ok(None),
         };
         let mut sse = 0.0;
         let mut starts = Vec::with_capacity(blocks.len());
         for (blk, inv, local) in &blocks {
             // p = (AᵀA)⁻¹ (Aᵀy − AᵀB g)
-            let rhs = [
-                blk.ay[0] - blk.ab[0][0] * g[0] - blk.ab[0][1] * g[1],
-                blk.ay[1] - blk.ab[1][0] * g[0] - blk.ab[1][1] * g[1],
-            ];
+            let mut rhs = blk.ay;
+            for i in 0..2 {
+                for j in 0..n {
+                    rhs[i] -= blk.ab[i][j] * g[j];
+                }
+            }
             let mut p = [0.0; 2];
             for i in 0..*local {
                 for j in 0..*local {
@@ -632,11 +667,18 @@ impl Search<'_> {
             // SSE = yᵀy − 2 θᵀ[Aᵀy; Bᵀy] + θᵀ N θ with θ = (p, g).
             let mut s = blk.yy;
             for i in 0..2 {
-                s -= 2.0 * (p[i] * blk.ay[i] + g[i] * blk.by[i]);
+                s -= 2.0 * p[i] * blk.ay[i];
                 for j in 0..2 {
-                    s += p[i] * blk.aa[i][j] * p[j]
-                        + 2.0 * p[i] * blk.ab[i][j] * g[j]
-                        + g[i] * blk.bb[i][j] * g[j];
+                    s += p[i] * blk.aa[i][j] * p[j];
+                }
+                for j in 0..n {
+                    s += 2.0 * p[i] * blk.ab[i][j] * g[j];
+                }
+            }
+            for i in 0..n {
+                s -= 2.0 * g[i] * blk.by[i];
+                for j in 0..n {
+                    s += g[i] * blk.bb[i][j] * g[j];
                 }
             }
             sse += s.max(0.0);
@@ -645,19 +687,23 @@ impl Search<'_> {
         if !sse.is_finite() {
             return Ok(None);
         }
-        let (gain, offset_gain) = match self.fixed_offset {
-            Some(u0) => (g[0], g[0] * u0),
-            None => (g[0], -g[1]),
+        let (gain, offset_gain) = match (self.fixed_offset, n) {
+            (Some(u0), _) => (g[0], [g[0] * u0; 2]),
+            (None, 3) => (g[0], [-g[1], -g[2]]),
+            (None, _) => (g[0], [-g[1]; 2]),
         };
         Ok(Some(LinearFit { sse, gain, offset_gain, starts }))
     }
 
-    /// Global regressors of one sample: responses to the duty and to the friction sign
-    /// (or their fixed-offset combination).
-    fn global(&self, c: &Columns) -> [f64; 2] {
-        match self.fixed_offset {
-            Some(u0) => [c.xu - u0 * c.xs, 0.0],
-            None => [c.xu, c.xs],
+    /// Global regressors of one sample of `seg`: the response to the duty, then to the
+    /// friction sign (one column per direction when the offsets are fitted apart), or the
+    /// fixed-offset combination.
+    fn global(&self, c: &Columns, seg: &Segment) -> [f64; 3] {
+        match (self.fixed_offset, self.globals) {
+            (Some(u0), _) => [c.xu - u0 * c.xs, 0.0, 0.0],
+            (None, 3) if seg.sign > 0.0 => [c.xu, c.xs, 0.0],
+            (None, 3) => [c.xu, 0.0, c.xs],
+            (None, _) => [c.xu, c.xs, 0.0],
         }
     }
 
@@ -713,7 +759,10 @@ impl Search<'_> {
             let t: Vec<f64> = (seg.k0..=seg.k1).map(|k| self.samples[k].t).collect();
             let model: Vec<f64> = cols
                 .iter()
-                .map(|c| x0 + v0 * c.phi + fit.gain * c.xu - fit.offset_gain * c.xs)
+                .map(|c| {
+                    let og = if seg.sign < 0.0 { fit.offset_gain[1] } else { fit.offset_gain[0] };
+                    x0 + v0 * c.phi + fit.gain * c.xu - og * c.xs
+                })
                 .collect();
             for (c, m) in cols.iter().zip(&model) {
                 sse_x += (c.y - m).powi(2);
@@ -752,11 +801,58 @@ struct Columns {
 #[derive(Debug, Clone, Copy, Default)]
 struct Block {
     aa: [[f64; 2]; 2],
-    ab: [[f64; 2]; 2],
-    bb: [[f64; 2]; 2],
+    ab: [[f64; 3]; 2],
+    bb: [[f64; 3]; 3],
     ay: [f64; 2],
-    by: [f64; 2],
+    by: [f64; 3],
     yy: f64,
+}
+
+/// What [`solve_small`] found.
+enum Solved {
+    Unique([f64; 3]),
+    /// A pivot vanished against its column's scale: two regressors are collinear.
+    Collinear,
+    /// Not finite numbers.
+    Degenerate,
+}
+
+/// Solves the leading `n`×`n` (1…3) part of the symmetric positive semi-definite `m·g = r`
+/// by Gaussian elimination (no pivoting needed for a positive-definite matrix). A pivot below
+/// 1e-9 of its diagonal entry counts as collinear, the test the 2×2 solve used before
+/// (det > 1e-9·m00·m11).
+#[allow(clippy::needless_range_loop)]
+fn solve_small(m: &[[f64; 3]; 3], r: &[f64; 3], n: usize) -> Solved {
+    let (mut a, mut b) = (*m, *r);
+    for k in 0..n {
+        let diag = m[k][k];
+        if !(diag.is_finite() && a[k][k].is_finite()) {
+            return Solved::Degenerate;
+        }
+        if !(diag > 0.0 && a[k][k] > 1e-9 * diag) {
+            return if diag > 0.0 { Solved::Collinear } else { Solved::Degenerate };
+        }
+        for i in k + 1..n {
+            let f = a[i][k] / a[k][k];
+            for j in k..n {
+                a[i][j] -= f * a[k][j];
+            }
+            b[i] -= f * b[k];
+        }
+    }
+    let mut g = [0.0; 3];
+    for k in (0..n).rev() {
+        let mut s = b[k];
+        for j in k + 1..n {
+            s -= a[k][j] * g[j];
+        }
+        g[k] = s / a[k][k];
+    }
+    if g.iter().all(|x| x.is_finite()) {
+        Solved::Unique(g)
+    } else {
+        Solved::Degenerate
+    }
 }
 
 /// Inverse of the leading `n`×`n` (1 or 2) part of a symmetric 2×2 matrix; zeros when singular.
@@ -924,7 +1020,13 @@ mod tests {
 
     #[test]
     fn steady_velocity_respects_the_offset() {
-        let m = VelocityModel { gain: 2.0, time_constant_s: 0.02, offset_pct: 3.0, delay_s: None };
+        let m = VelocityModel {
+            gain: 2.0,
+            time_constant_s: 0.02,
+            offset_pct: 3.0,
+            offset_reverse_pct: None,
+            delay_s: None,
+        };
         assert_eq!(m.steady_velocity(13.0), 20.0);
         assert_eq!(m.steady_velocity(-13.0), -20.0);
         assert_eq!(m.steady_velocity(2.0), 0.0);

@@ -21,10 +21,12 @@
 //!
 //! # Friction
 //! Sliding (Coulomb) friction costs a duty `u0` against the motion: the linear part of the
-//! axis sees `u − u0·sign(v)`. With `u0` known (from identification), the input's first
+//! axis sees `u − u0·sign(v)`. When it differs by direction (`u0f` forwards, `u0r` in reverse:
+//! a load under gravity), `u0f·[v > 0] − u0r·[v < 0]` is the mean `(u0f + u0r)/2` times
+//! `sign(v)` plus a constant, and a constant has no first harmonic: correct for the mean. With `u0` known (from identification), the input's first
 //! harmonic is corrected by `u0` times that of `sign(v)`, the velocity's sign taken from the
-//! turning points of the position (each plateau of equal counts at a top or bottom split in
-//! the middle). Without the correction the measured gain is too low by about `u0/d` and the
+//! turning points of the position (each plateau of equal counts at a top or bottom split where
+//! the drive and the friction put the turn, `turn_fraction` in [`analyze_relay`]). Without the correction the measured gain is too low by about `u0/d` and the
 //! phase too high: on the demo X axis the describing-function "Ku" was 85, 106, 116 and 137
 //! %/mm for d = 10, 20, 30, 40 %.
 //!
@@ -141,6 +143,8 @@ pub struct RelayResult {
     pub describing_function_gain: f64,
     /// Ku and Tu, when the point is within [`ULTIMATE_PHASE_TOLERANCE_DEG`] of −180°.
     pub ultimate: Option<Ultimate>,
+    /// The record's sample period (median step), s: the tick, for an axis.
+    pub sample_period_s: f64,
 }
 
 /// Why a relay record could not be analysed.
@@ -192,9 +196,10 @@ struct Cycle {
     period: f64,
     amplitude: f64,
     center: f64,
-    /// Times of the bottom and the top (plateau middles).
-    t_bottom: f64,
-    t_top: f64,
+    /// First and last sample time of the plateau of equal samples at the bottom and at the
+    /// top.
+    bottom_plateau: (f64, f64),
+    top_plateau: (f64, f64),
 }
 
 /// Analyses a relay experiment: process output `y` and relay output (duty) `u`, sampled at
@@ -278,6 +283,19 @@ pub fn analyze_relay(
         return Err(RelayError::AmplitudeWithinHysteresis { a, eps });
     }
 
+    // Where in a plateau of equal counts the axis turned. The relay has switched before the
+    // turn (at the hysteresis), so near it the drive is a constant −d against the motion: the
+    // carriage comes to rest under d + u0 (duty and friction both against it) and moves off
+    // under d − u0 (friction now against the duty). The speed is near zero there, so the
+    // back-EMF and viscous drag are negligible and both accelerations are constant:
+    // y = peak − a·(t − t_turn)²/2 on each side, so the times from the level of the plateau to
+    // the turn stand as 1/√(d + u0) to 1/√(d − u0), and the turn lies at the fraction
+    // 1/(1 + √((d + u0)/(d − u0))) of the plateau (½ without friction). Our derivation; taking
+    // the middle instead read the phase of demo X 2–4° low at d = 10 %.
+    let turn_fraction =
+        if u0 > 0.0 && d > u0 { 1.0 / (1.0 + ((d + u0) / (d - u0)).sqrt()) } else { 0.5 };
+    let turn = |(first, last): (f64, f64)| first + turn_fraction * (last - first);
+
     // Fourier coefficients over each accepted cycle's whole sample window, averaged as
     // complex numbers (each window is one period to within a sample).
     let (mut y1, mut u1, mut s1) = (Cx::ZERO, Cx::ZERO, Cx::ZERO);
@@ -289,9 +307,9 @@ pub fn analyze_relay(
         y1 = y1 + fourier_linear(t, y, c.k0, c.k1, w);
         u1 = u1 + fourier_hold(t, u, c.k0, c.k1, w);
         // sign(v): +1 from the bottom to the top, −1 elsewhere in the window.
-        let (lo, hi) =
-            if c.t_bottom <= c.t_top { (c.t_bottom, c.t_top) } else { (c.t_top, c.t_bottom) };
-        let rising_inside = c.t_bottom <= c.t_top;
+        let (t_bottom, t_top) = (turn(c.bottom_plateau), turn(c.top_plateau));
+        let (lo, hi) = if t_bottom <= t_top { (t_bottom, t_top) } else { (t_top, t_bottom) };
+        let rising_inside = t_bottom <= t_top;
         let inner = segment(lo, hi, w);
         let outer = segment(ta, lo, w) + segment(hi, tb, w);
         let s = if rising_inside { inner - outer } else { outer - inner };
@@ -323,6 +341,7 @@ pub fn analyze_relay(
         describing_function_phase_deg: -180.0 + (eps / a).asin().to_degrees(),
         describing_function_gain: describing_function_gain(d, a, eps),
         ultimate,
+        sample_period_s: h,
     })
 }
 
@@ -371,8 +390,8 @@ fn find_cycles(t: &[f64], y: &[f64]) -> Result<Vec<Cycle>, RelayError> {
                 period: c1 - c0,
                 amplitude: 0.5 * (top.0 - bottom.0),
                 center: 0.5 * (top.0 + bottom.0),
-                t_bottom: bottom.1,
-                t_top: top.1,
+                bottom_plateau: bottom.1,
+                top_plateau: top.1,
             }
         })
         .collect();
@@ -391,10 +410,11 @@ fn median(mut v: Vec<f64>) -> f64 {
     v[v.len() / 2]
 }
 
-/// Largest and smallest value of `y` on samples `from..to` as (value, time): the value
-/// refined by a parabola through the extreme sample and its neighbours, the time the middle
-/// of the plateau of equal samples at the extreme.
-fn peaks(t: &[f64], y: &[f64], from: usize, to: usize) -> ((f64, f64), (f64, f64)) {
+/// Largest and smallest value of `y` on samples `from..to` as (value, plateau): the value
+/// refined by a parabola through the extreme sample and its neighbours, the plateau the first
+/// and last time of the run of equal samples at the extreme.
+#[allow(clippy::type_complexity)]
+fn peaks(t: &[f64], y: &[f64], from: usize, to: usize) -> ((f64, (f64, f64)), (f64, (f64, f64))) {
     let to = to.min(y.len());
     let (mut imax, mut imin) = (from, from);
     for k in from..to {
@@ -405,14 +425,14 @@ fn peaks(t: &[f64], y: &[f64], from: usize, to: usize) -> ((f64, f64), (f64, f64
             imin = k;
         }
     }
-    let plateau_mid = |k: usize| {
+    let plateau = |k: usize| {
         let mut end = k;
         while end + 1 < to && y[end + 1] == y[k] {
             end += 1;
         }
-        0.5 * (t[k] + t[end])
+        (t[k], t[end])
     };
-    ((parabola_peak(t, y, imax), plateau_mid(imax)), (parabola_peak(t, y, imin), plateau_mid(imin)))
+    ((parabola_peak(t, y, imax), plateau(imax)), (parabola_peak(t, y, imin), plateau(imin)))
 }
 
 /// Vertex value of the parabola through samples k−1, k, k+1 (`y[k]` at the ends or when the

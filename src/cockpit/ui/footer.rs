@@ -47,6 +47,27 @@ fn items(app: &App) -> Vec<(&'static str, &'static str)> {
         }
         Mode::Log => out.extend_from_slice(&[("Esc", "back"), ("↑↓", "scroll"), ("End", "newest")]),
         Mode::Trip => out.extend_from_slice(&[("Esc", "back"), ("l", "log"), ("?", "help")]),
+        Mode::Lists => {
+            use crate::cockpit::lists::Phase;
+            match app.lists.phase {
+                Phase::Running | Phase::Starting => {
+                    out.extend_from_slice(&[("p", "pause"), ("x", "abort")]);
+                }
+                Phase::Pausing => out.extend_from_slice(&[("Enter", "carry on"), ("x", "abort")]),
+                Phase::Paused => out.extend_from_slice(&[("Enter", "resume"), ("x", "abort")]),
+                Phase::Idle | Phase::Finished if app.lists.next_from() > 1 => {
+                    out.push(("Enter", "resume"));
+                }
+                Phase::Idle | Phase::Finished => out.push(("Enter", "start")),
+            }
+            if app.lists.found.as_ref().is_some_and(|f| f.len() > 1) && !app.lists.phase.active() {
+                out.push(("↑↓", "list"));
+            }
+            out.extend_from_slice(&[("Esc", "back"), ("?", "help")]);
+        }
+        Mode::Spots => {
+            out.extend_from_slice(&[("Enter", "go there"), ("↑↓", "spot"), ("Esc", "close")])
+        }
         Mode::Help => out.push(("Esc", "close")),
         Mode::ConfirmQuit => out.extend_from_slice(&[("y", "quit, motors off"), ("n", "stay")]),
         Mode::Entry => out.extend_from_slice(&[("Enter", "apply"), ("Esc", "cancel")]),
@@ -65,7 +86,10 @@ pub fn render(app: &App, area: Rect, buf: &mut Buffer) {
     let mut used: usize = spans.iter().map(Span::width).sum();
     let mut more: Vec<(&str, &str)> = Vec::new();
     if app.stop_latched
-        && matches!(app.mode(), Mode::Overview | Mode::Detail | Mode::Log | Mode::Trip)
+        && matches!(
+            app.mode(),
+            Mode::Overview | Mode::Detail | Mode::Log | Mode::Trip | Mode::Lists
+        )
     {
         more.push(("R", "release"));
     }

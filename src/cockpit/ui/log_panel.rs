@@ -118,7 +118,7 @@ fn render_entries(app: &App, inner: Rect, back: usize, buf: &mut Buffer) {
 }
 
 /// Splits `text` into rows of at most `width` characters, at spaces where it can.
-fn wrap(text: &str, width: usize) -> Vec<String> {
+pub(crate) fn wrap(text: &str, width: usize) -> Vec<String> {
     let width = width.max(1);
     let mut rows = vec![String::new()];
     for word in text.split(' ') {

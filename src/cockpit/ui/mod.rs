@@ -2,19 +2,22 @@
 //!
 //! - [`header`] and [`footer`]: the top and bottom lines, on every screen; [`status`]: the
 //!   line above the footer (selected axis, jog step and speed, unsaved gains, its trip).
-//! - [`overview`], [`detail`], [`log_panel`], [`trip`]: the screens.
+//! - [`overview`], [`detail`], [`log_panel`], [`trip`], [`lists`]: the screens.
 //! - [`axis_panel`]: one axis's lines, shared by overview and detail.
-//! - [`overlay`]: help, quit question, prompts.
+//! - [`overlay`]: help, quit question, prompts; [`spots`]: the spot picker.
 //! - [`row`]: fitting labelled values into the width available.
 
 pub mod axis_panel;
 pub mod detail;
+pub mod drill;
 pub mod footer;
 pub mod header;
+pub mod lists;
 pub mod log_panel;
 pub mod overlay;
 pub mod overview;
 pub mod row;
+pub mod spots;
 pub mod status;
 pub mod trip;
 
@@ -55,6 +58,7 @@ pub fn render(app: &App, area: Rect, buf: &mut Buffer) {
         Screen::Detail => detail::render(app, body, buf),
         Screen::Log => log_panel::render_screen(app, body, buf),
         Screen::Trip => trip::render(app, body, buf),
+        Screen::Lists => lists::render(app, body, buf),
     }
     footer::render(app, foot, buf);
     overlay::render(app, body, buf);

@@ -10,7 +10,7 @@ use crate::cockpit::app::{App, Overlay, Prompt, Purpose};
 use crate::cockpit::keys::{Group, BINDINGS};
 
 /// A centred rectangle of at most `w`×`h` inside `area`.
-fn centred(area: Rect, w: u16, h: u16) -> Rect {
+pub(crate) fn centred(area: Rect, w: u16, h: u16) -> Rect {
     let w = w.min(area.width);
     let h = h.min(area.height);
     Rect {
@@ -21,7 +21,8 @@ fn centred(area: Rect, w: u16, h: u16) -> Rect {
     }
 }
 
-fn boxed(app: &App, area: Rect, buf: &mut Buffer, title: &str, lines: &[Line<'_>]) {
+/// A bordered, titled box of `lines` over `area` (cleared first).
+pub(crate) fn boxed(app: &App, area: Rect, buf: &mut Buffer, title: &str, lines: &[Line<'_>]) {
     Clear.render(area, buf);
     let block = Block::new()
         .borders(Borders::ALL)
@@ -45,6 +46,7 @@ pub fn render(app: &App, area: Rect, buf: &mut Buffer) {
         Overlay::Help => help(app, area, buf),
         Overlay::ConfirmQuit => confirm(app, area, buf),
         Overlay::Prompt(p) => prompt(app, p, area, buf),
+        Overlay::Spots(i) => crate::cockpit::ui::spots::render(app, *i, area, buf),
     }
 }
 
@@ -112,17 +114,19 @@ fn help(app: &App, area: Rect, buf: &mut Buffer) {
     let inner = block.inner(r);
     block.render(r, buf);
     let cw = if two { inner.width / 2 } else { inner.width };
+    // The cautions stay on screen when the keys do not all fit (80×24): they give way last.
+    let notes_y = (inner.y + rows).min(inner.bottom().saturating_sub(notes.len() as u16));
     for (c, lines) in cols.iter().enumerate() {
         for (k, l) in lines.iter().enumerate() {
             let y = inner.y + k as u16;
-            if y >= inner.bottom() {
+            if y >= notes_y {
                 break;
             }
             buf.set_line(inner.x + 1 + c as u16 * cw, y, l, cw.saturating_sub(1));
         }
     }
     for (k, l) in notes.iter().enumerate() {
-        let y = inner.y + rows + k as u16;
+        let y = notes_y + k as u16;
         if y < inner.bottom() {
             buf.set_line(inner.x + 1, y, l, inner.width.saturating_sub(2));
         }
@@ -157,6 +161,9 @@ fn confirm(app: &App, area: Rect, buf: &mut Buffer) {
 fn prompt(app: &App, p: &Prompt, area: Rect, buf: &mut Buffer) {
     let t = app.theme;
     let (title, help) = match p.purpose {
+        Purpose::Drill { axis } => {
+            return crate::cockpit::ui::drill::render(app, p, axis, area, buf)
+        }
         Purpose::GoTo { axis } => {
             let a = &app.config.axes[axis];
             (
