@@ -656,12 +656,24 @@ async fn run_one(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
             let csv = base.with_extension("csv");
             let svg = base.with_extension("svg");
             std::fs::create_dir_all(&dir).map_err(|e| format!("{}: {e}", dir.display()))?;
-            report::write_step_csv(&csv, &rows, &u)
+            let meta = report::StepRecordMeta {
+                axis: &a.name,
+                unit: &u,
+                counts_per_unit: a.scale.counts_per_unit,
+                what: "tune step",
+                controller: &a.controller,
+                summary: Some(&summary),
+            };
+            report::write_step_record(&csv, &rows, &meta)
                 .map_err(|e| format!("{}: {e}", csv.display()))?;
             report::write_step_svg(&svg, &rows, &format!("{} step", a.name), &u)
                 .map_err(|e| e.to_string())?;
-            let text =
-                format!("{}\nsaved {} and {}", summary.to_text(&u), csv.display(), svg.display());
+            let text = format!(
+                "{}\nsaved {} (its metadata beside it, .json) and {}",
+                summary.to_text(&u, crate::cockpit::format::decimals_for(a.scale.counts_per_unit)),
+                csv.display(),
+                svg.display()
+            );
             (
                 true,
                 text,

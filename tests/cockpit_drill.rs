@@ -158,3 +158,25 @@ async fn a_jam_armed_from_the_menu_trips_the_axis_and_the_trip_screen_names_it()
     assert!(text.contains("most likely: mechanical jam"), "{text}");
     machine.shutdown().await;
 }
+
+#[tokio::test(start_paused = true)]
+async fn only_in_process_boards_take_drills_from_the_machine() {
+    use servotty::cockpit::port::MachinePort;
+    use servotty::engine::PortOverride;
+    // X on a serial device (which need not exist: nothing here waits for its link).
+    let cfg = MachineConfig::demo().expect("demo");
+    let port = PortOverride { axis: "x".into(), device: "/dev/servotty-no-such-device".into() };
+    let machine = Machine::start(&cfg, &[port]).expect("starts");
+    let h = machine.handle();
+    assert!(!h.drillable(0));
+    assert!(h.drillable(1) && h.drillable(2));
+    assert_eq!(
+        h.drill(0, &Pick::Board(Drill::Jam(true))),
+        Err("drills exist only for simulated axes".to_owned())
+    );
+    assert_eq!(h.drill(1, &Pick::Board(Drill::Sag(0.5))), Ok("supply sags 50 %".to_owned()));
+    let sag = machine.sim("y").expect("simulated").plant_faults().supply_sag;
+    assert!((sag - 0.5).abs() < 1e-12);
+    assert!(h.drill(7, &Pick::Board(Drill::Clear)).is_err());
+    machine.shutdown().await;
+}

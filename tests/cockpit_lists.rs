@@ -73,6 +73,7 @@ fn list_screen_says_where_a_trip_stopped_it_and_where_it_resumes() {
         step: 2,
         reason: "x: following error: following error 5.1 mm exceeded its band 4.8 mm".to_owned(),
         resume_from: 3,
+        resume_pass: 1,
     });
     check("list_stopped", &app, &[(80, 24), (60, 18)]);
     let text = s::screen(&app, 80, 24);
@@ -138,7 +139,7 @@ impl MachinePort for Recorded {
     fn run_list(
         &self,
         list: MoveList,
-        from: usize,
+        from: servotty::move_list::Start,
         control: watch::Receiver<ListControl>,
         progress: mpsc::UnboundedSender<Progress>,
     ) -> impl Future<Output = Result<ListOutcome, String>> + Send + 'static {
@@ -395,4 +396,60 @@ async fn the_spot_picker_moves_the_axes_on_one_line_arriving_within_one_tick() {
         "{log:#?}"
     );
     m.shutdown().await;
+}
+
+#[tokio::test(start_paused = true)]
+async fn space_during_a_list_stops_every_axis_and_ends_the_list() {
+    let (m, h, cfg) = homed_demo().await;
+    let port = recorded(&h, |_| {});
+    let mut app = App::new(cfg, ConfigSource::BuiltInDemo, Theme::default());
+    let (tx, rx) = mpsc::channel(16);
+    let x = h.axis("x").expect("x").clone();
+    let script = async {
+        open_and_start(&tx, &port).await;
+        until("step 2 under way", 60, || {
+            port.events().contains(&(2, "start")) && x.snapshot().state == AxisState::Moving
+        })
+        .await;
+        tx.send(ch(' ')).await.expect("key");
+        until("the list's end", 30, || !port.ends().is_empty()).await;
+        until("every motor off", 30, || h.axes().iter().all(|a| !a.snapshot().state.motor_on()))
+            .await;
+        quit(&tx).await;
+    };
+    drive(&port, &mut app, rx, script).await;
+    let ends = port.ends();
+    let out = ends[0].as_ref().expect("started");
+    let stopped = out.stopped.as_ref().expect("ended early");
+    assert_eq!(stopped.step, 2, "{stopped:#?}");
+    assert!(app.stop_latched, "stop-all stays latched until R");
+    assert_eq!(app.lists.phase, Phase::Idle);
+    assert!(x.snapshot().position < 199.0, "x did not carry on to tray 1");
+    m.shutdown().await;
+}
+
+#[test]
+fn the_list_screen_shows_the_limit_check_before_anything_moves() {
+    let app = with_demo_list(s::normal());
+    let text = s::screen(&app, 80, 24);
+    assert!(text.contains("inside the soft limits"), "{text}");
+    // A list whose second pass leaves the limits says so on the screen, and Enter refuses it.
+    let mut app = s::normal();
+    let list =
+        MoveList::from_toml_str("times = 9\n[[step]]\nby = { y = 100.0 }\n", "t.toml", &app.config)
+            .expect("form is fine");
+    app.lists.set_found(vec![catalog::Found {
+        name: "up.toml".into(),
+        path: None,
+        list: Ok(list),
+    }]);
+    app.screen = Screen::Lists;
+    let text = s::screen(&app, 80, 24);
+    assert!(text.contains("will not start") && text.contains("outside the soft limits"), "{text}");
+    assert!(app.apply(s::at(200), Action::ListGo).is_empty(), "nothing is started");
+    assert!(
+        app.lists.refused.as_deref().is_some_and(|r| r.contains("pass")),
+        "{:?}",
+        app.lists.refused
+    );
 }

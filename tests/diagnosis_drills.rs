@@ -53,6 +53,9 @@ fn drills_typed_on_standard_input_are_answered() {
     ask("jam x", "drill: x: jammed where it is");
     ask("blackout y 70", "drill: y: link dark for 70 ms");
     ask("slip z 0.3", "drill: z: belt slips 30 %");
+    ask("jam x at 300", "drill: x: will jam at 300 mm on its rail");
+    ask("sag y 0.5", "drill: y: supply sags 50 %");
+    ask("fault z", "drill: z: driver stage reports a fault");
     let refused = ask("fly x", "drill refused");
     assert!(refused.contains("jam AXIS"), "{refused}");
     ask("jam q", "no simulated axis \"q\"");

@@ -198,7 +198,8 @@ async fn the_guided_pass_runs_every_step_and_writes_a_report() {
         .collect();
     names.sort();
     let exts: Vec<&str> = names.iter().filter_map(|n| n.rsplit('.').next()).collect();
-    assert_eq!(exts, ["csv", "svg", "txt"], "{names:?}");
+    // The step record (CSV and its JSON sidecar), the plot and the pass summary.
+    assert_eq!(exts, ["csv", "json", "svg", "txt"], "{names:?}");
     let x = h.axis("x").expect("x");
     assert_eq!(x.snapshot().state, AxisState::Steady);
     m.shutdown().await;

@@ -15,7 +15,7 @@ use servotty::config::MachineConfig;
 use servotty::engine::line_move::{move_line, plan_line};
 use servotty::engine::{AxisCommand, AxisState, Machine, MachineHandle};
 use servotty::move_list::runner::{run_list, ListControl};
-use servotty::move_list::{check, ListError, MoveList};
+use servotty::move_list::{check, ListError, MoveList, Start};
 use servotty::sim::plant::PlantFaults;
 use tokio::sync::watch;
 
@@ -241,6 +241,45 @@ async fn a_trip_mid_list_stops_everything_and_resumes_only_after_clearing() {
     let out = run_list(&h, &l, 3, rx, |_| {}).await.expect("resumes");
     assert!(out.ok, "{out:#?}");
     assert_eq!(out.steps.iter().map(|s| s.step).collect::<Vec<_>>(), vec![3]);
+    m.shutdown().await;
+}
+
+#[test]
+fn a_resume_in_a_later_pass_runs_only_what_is_left() {
+    let l =
+        list("times = 3\n[[step]]\nto = \"@tray1\"\n[[step]]\nto = \"@tray2\"\n").expect("list");
+    let plan = check(&l, &demo(), &zeros(), Start { pass: 2, step: 2 }).expect("inside");
+    let at: Vec<(u32, usize)> = plan.iter().map(|p| (p.pass, p.step)).collect();
+    assert_eq!(at, vec![(2, 2), (3, 1), (3, 2)]);
+    assert!(check(&l, &demo(), &zeros(), Start { pass: 4, step: 1 }).is_err(), "3 passes only");
+}
+
+#[tokio::test(start_paused = true)]
+async fn a_trip_at_the_last_step_of_a_pass_resumes_with_the_next_pass() {
+    let cfg = demo();
+    let l =
+        list("times = 2\n[[step]]\nto = \"@tray1\"\n[[step]]\nto = \"@tray3\"\n").expect("list");
+    let (m, h) = started(&cfg).await;
+    let sim = m.sim("x").expect("sim");
+    let (_tx, rx) = watch::channel(ListControl::Run);
+    let jam = sim.clone();
+    let out = run_list(&h, &l, 1, rx.clone(), move |p| {
+        if (p.pass, p.step, p.phase) == (1, 2, "start") {
+            jam.set_plant_faults(PlantFaults { blocked: true, ..PlantFaults::default() });
+        }
+    })
+    .await
+    .expect("starts");
+    let stopped = out.stopped.expect("stopped");
+    assert_eq!((stopped.pass, stopped.step), (1, 2));
+    let from = stopped.resume(l.steps.len()).expect("something is left");
+    assert_eq!(from, Start { pass: 2, step: 1 });
+    sim.set_plant_faults(PlantFaults::default());
+    h.axis("x").expect("x").send(AxisCommand::ClearTrip).await.expect("cleared");
+    let out = run_list(&h, &l, from, rx, |_| {}).await.expect("resumes");
+    assert!(out.ok, "{out:#?}");
+    let ran: Vec<(u32, usize)> = out.steps.iter().map(|s| (s.pass, s.step)).collect();
+    assert_eq!(ran, vec![(2, 1), (2, 2)], "only the second pass is left");
     m.shutdown().await;
 }
 

@@ -20,7 +20,9 @@ use std::path::{Path, PathBuf};
 
 use clap::{Args, Subcommand};
 
+use super::json_round::{self, json_line, Rounding};
 use super::{emit, Failure, EXIT_OK};
+use crate::format::decimals_for;
 use crate::tuning::report::{parse_step_csv, summarize_step};
 
 /// `servotty analyze`.
@@ -191,7 +193,7 @@ fn relay(a: &RelayArgs) -> Result<String, String> {
         .map_err(|e| format!("{name}: {e}"))?;
     if a.json {
         let v = serde_json::json!({ "relay": r, "suggestion": s });
-        return Ok(format!("{v}\n"));
+        return Ok(json_line(v, &Rounding::single("", a.resolution.map(|q| 1.0 / q))));
     }
     let mut out = format!("{name}\n{}\n", crate::commission::relay_text(&r, &s, ""));
     out.push_str(&format!("proposed [axis.controller] lines:\n{}", s.patch.to_toml_lines()));
@@ -218,7 +220,7 @@ fn identify(a: &IdentifyArgs) -> Result<String, String> {
     let s = suggest::simc(&id.model, &base, &so).map_err(|e| format!("{name}: {e}"))?;
     if a.json {
         let v = serde_json::json!({ "identification": id, "suggestion": s });
-        return Ok(format!("{v}\n"));
+        return Ok(json_line(v, &Rounding::single("", Some(1.0 / id.resolution))));
     }
     let mut out = format!("{name}\n{}\n", crate::commission::identify_text(&id, &s, ""));
     out.push_str(&format!("proposed [axis.controller] lines:\n{}", s.patch.to_toml_lines()));
@@ -243,7 +245,8 @@ fn trip(a: &TripArgs) -> Result<String, String> {
     let d = crate::diagnosis::diagnose(&rec);
     let mut out = if a.json {
         let v = serde_json::to_value(&d).map_err(|e| e.to_string())?;
-        format!("{v}\n")
+        let counts = cap.facts.get(&rec.axis).map(|f| f.counts_per_unit).filter(|c| *c > 0.0);
+        json_line(v, &Rounding::single(&rec.axis, counts))
     } else {
         format!("{name}\n{}", d.to_text())
     };
@@ -267,11 +270,33 @@ fn step(a: &StepArgs) -> Result<String, String> {
     let text = step_columns(&text, a.axis.as_deref()).map_err(|e| format!("{name}: {e}"))?;
     let rows = parse_step_csv(&text).map_err(|e| format!("{name}:{}: {}", e.line, e.message))?;
     let summary = summarize_step(&rows, a.band / 100.0).map_err(|e| format!("{name}: {e}"))?;
+    let (unit, counts) = recorded_scale(&a.file, a.axis.as_deref());
+    let axis = a.axis.as_deref().unwrap_or("");
     Ok(if a.json {
-        format!("{}\n", summary.to_json())
+        json_line(summary.to_json(), &Rounding::single(axis, counts))
     } else {
-        format!("{name}\n{}", summary.to_text(""))
+        let d = counts.map_or(json_round::UNKNOWN_RESOLUTION_DECIMALS, decimals_for);
+        format!("{name}\n{}", summary.to_text(&unit, d))
     })
+}
+
+/// The unit and counts per unit of the record's axis, from the file's sidecar when it has
+/// one (a step record's, or a capture's for the `--axis` picked): unknown otherwise.
+fn recorded_scale(file: &Path, axis: Option<&str>) -> (String, Option<f64>) {
+    let Some(meta) = crate::tuning::report::read_sidecar(file) else {
+        return (String::new(), None);
+    };
+    let of = |v: &serde_json::Value| {
+        let unit = v["unit"].as_str().unwrap_or_default().to_owned();
+        (unit, v["counts_per_unit"].as_f64().filter(|c| c.is_finite() && *c > 0.0))
+    };
+    if meta.get("counts_per_unit").is_some() {
+        return of(&meta);
+    }
+    meta["axes"]
+        .as_array()
+        .and_then(|axes| axes.iter().find(|x| axis.is_some_and(|a| x["axis"] == a)))
+        .map_or((String::new(), None), of)
 }
 
 /// The file's table as the step reader wants it: `t,target,position[,duty]` of one axis.

@@ -2,8 +2,9 @@
 
 use serde::Serialize;
 
+use crate::cli::json_round::{emit_json, Rounding};
 use crate::cli::progress::{self, Progress};
-use crate::cli::{emit, emit_json, Failure, HomeArgs, EXIT_FAILED, EXIT_OK};
+use crate::cli::{emit, Failure, HomeArgs, EXIT_FAILED, EXIT_OK};
 use crate::engine::{AxisCommand, MachineHandle};
 use crate::format::{decimals_for, num};
 
@@ -82,7 +83,7 @@ pub fn run(args: &HomeArgs) -> Result<u8, Failure> {
         let out = home_all(&h).await;
         progress.finish();
         if json {
-            emit_json(&out)?;
+            emit_json(&out, &Rounding::of(h.config()))?;
         } else {
             let mut text = String::new();
             for a in &out.axes {

@@ -7,8 +7,9 @@ use std::time::Duration;
 
 use serde::Serialize;
 
+use crate::cli::json_round::{emit_json, Rounding};
 use crate::cli::progress::{self, Progress};
-use crate::cli::{emit, emit_json, Failure, LinktestArgs, EXIT_OK};
+use crate::cli::{emit, Failure, LinktestArgs, EXIT_OK};
 use crate::engine::link_meter::Turnaround;
 use crate::engine::{AxisCommand, MachineHandle, Reply};
 
@@ -115,7 +116,7 @@ pub fn run(args: &LinktestArgs) -> Result<u8, Failure> {
         p.finish();
         let out = out.map_err(Failure::Machine)?;
         if json {
-            emit_json(&out)?;
+            emit_json(&out, &Rounding::of(h.config()))?;
         } else {
             emit(&table(&out))?;
         }

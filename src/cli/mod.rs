@@ -16,6 +16,7 @@ pub mod analyze;
 pub mod ask;
 pub mod check;
 pub mod home_cmd;
+pub mod json_round;
 pub mod linktest;
 pub mod manual;
 pub mod move_cmd;
@@ -200,7 +201,9 @@ pub struct LinktestArgs {
     #[command(flatten)]
     pub machine: MachineArgs,
     /// How long to measure, s.
-    #[arg(long, default_value_t = 5.0, value_name = "N")]
+    // Negative numbers reach the range check, which says what is allowed, instead of clap's
+    // "unexpected argument '-1'".
+    #[arg(long, default_value_t = 5.0, value_name = "N", allow_negative_numbers = true)]
     pub seconds: f64,
     /// Print one JSON object instead of a table.
     #[arg(long)]

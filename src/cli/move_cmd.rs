@@ -5,8 +5,9 @@ use std::time::Duration;
 
 use serde::Serialize;
 
+use crate::cli::json_round::{emit_json, Rounding};
 use crate::cli::progress::{self, Progress};
-use crate::cli::{emit, emit_json, Failure, MoveArgs, Target, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
+use crate::cli::{emit, Failure, MoveArgs, Target, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
 use crate::config::MachineConfig;
 use crate::engine::line_move::{move_line, LineError};
 use crate::engine::{AxisCommand, AxisState, MachineHandle};
@@ -214,7 +215,7 @@ pub fn run(args: &MoveArgs) -> Result<u8, Failure> {
             MoveError::Offline(..) | MoveError::Line(_) => Failure::Machine(e.to_string()),
         })?;
         if json {
-            emit_json(&out)?;
+            emit_json(&out, &Rounding::of(h.config()))?;
         } else {
             emit(&table(&h, &out))?;
         }

@@ -8,7 +8,8 @@ use clap::Args;
 use serde::Serialize;
 use tokio::sync::watch;
 
-use crate::cli::{emit, emit_json, Failure, MachineArgs, EXIT_FAILED, EXIT_OK};
+use crate::cli::json_round::{emit_json, Rounding};
+use crate::cli::{emit, Failure, MachineArgs, EXIT_FAILED, EXIT_OK};
 use crate::move_list::runner::{self, ListControl, ListOutcome};
 use crate::move_list::{describe, ListError, MoveList, PlannedStep};
 
@@ -26,6 +27,9 @@ pub struct RunArgs {
     /// Start at this step (1-based) of the first pass, e.g. to resume after a trip.
     #[arg(long, value_name = "STEP", default_value_t = 1)]
     pub from: usize,
+    /// With --from: the pass that step belongs to (the passes before it do not run again).
+    #[arg(long, value_name = "PASS", default_value_t = 1)]
+    pub pass: u32,
     /// Home the axes (in the configured order) first (not with --dry-run).
     #[arg(long)]
     pub home: bool,
@@ -57,7 +61,8 @@ fn list_failure(e: &ListError) -> Failure {
 pub fn run(args: &RunArgs) -> Result<u8, Failure> {
     let (cfg, _) = args.machine.load()?;
     let list = MoveList::load(&args.list, &cfg).map_err(|e| list_failure(&e))?;
-    let (json, home, dry, from) = (args.json, args.home, args.dry_run, args.from);
+    let (json, home, dry) = (args.json, args.home, args.dry_run);
+    let from = crate::move_list::Start { pass: args.pass, step: args.from };
     if !dry {
         crate::cli::ask::go_ahead(
             args.yes,
@@ -72,6 +77,7 @@ pub fn run(args: &RunArgs) -> Result<u8, Failure> {
     }
     let list = &list;
     crate::cli::with_machine(&args.machine, |h| async move {
+        let rounding = Rounding::of(h.config());
         let offline = h.wait_linked(std::time::Duration::from_secs(3)).await;
         if let Some(a) = offline.first() {
             return Err(Failure::Machine(format!("{a}: {}", h.offline_reason(a))));
@@ -84,7 +90,7 @@ pub fn run(args: &RunArgs) -> Result<u8, Failure> {
         if dry {
             let plan = runner::plan(&h, list, from).map_err(|e| list_failure(&e))?;
             if json {
-                emit_json(&DryRun { ok: true, dry_run: true, steps: &plan })?;
+                emit_json(&DryRun { ok: true, dry_run: true, steps: &plan }, &rounding)?;
             } else {
                 emit(&plan_table(&plan))?;
             }
@@ -112,9 +118,9 @@ pub fn run(args: &RunArgs) -> Result<u8, Failure> {
             e => list_failure(&e),
         })?;
         if json {
-            emit_json(&out)?;
+            emit_json(&out, &rounding)?;
         } else {
-            emit(&outcome_table(&out))?;
+            emit(&outcome_table(&out, list.steps.len()))?;
         }
         Ok(if out.ok { EXIT_OK } else { EXIT_FAILED })
     })
@@ -129,7 +135,7 @@ fn plan_table(plan: &[PlannedStep]) -> String {
     s
 }
 
-fn outcome_table(out: &ListOutcome) -> String {
+fn outcome_table(out: &ListOutcome, steps: usize) -> String {
     let mut s = String::from("pass step  result  time      what\n");
     for r in &out.steps {
         s.push_str(&format!(
@@ -143,10 +149,22 @@ fn outcome_table(out: &ListOutcome) -> String {
     }
     match &out.stopped {
         None => s.push_str("list finished.\n"),
-        Some(st) => s.push_str(&format!(
-            "list stopped at pass {} step {}: {}\nclear the cause, then resume with --from {}\n",
-            st.pass, st.step, st.reason, st.resume_from
-        )),
+        Some(st) => {
+            s.push_str(&format!(
+                "list stopped at pass {} step {}: {}\n",
+                st.pass, st.step, st.reason
+            ));
+            s.push_str(&match st.resume(steps) {
+                Some(r) if r.pass > 1 => {
+                    format!(
+                        "clear the cause, then resume with --from {} --pass {}\n",
+                        r.step, r.pass
+                    )
+                }
+                Some(r) => format!("clear the cause, then resume with --from {}\n", r.step),
+                None => "it was the last step: nothing is left to resume\n".to_owned(),
+            });
+        }
     }
     s
 }

@@ -124,9 +124,9 @@ pub fn run(args: &SimArgs) -> Result<u8, Failure> {
         )));
     }
     let (cfg, _) = crate::config::MachineConfig::load_or_demo(args.machine.config.as_deref())?;
-    // Unlike the host, the simulated boards pay a PTY read and write per tick each, which on
-    // a small VM costs most of a core for eight boards: spread them over two workers so the
-    // boards keep their tick (the host they test stays on one thread).
+    // The boards pay a PTY read and write per tick each (about 8 % of a core for sixteen on
+    // the 2-core build VM, docs/performance.md): two workers let them keep their tick while
+    // a host or a build takes the other core (the host they test stays on one thread).
     let rt = tokio::runtime::Builder::new_multi_thread()
         .worker_threads(2)
         .enable_all()
@@ -145,8 +145,14 @@ pub fn run(args: &SimArgs) -> Result<u8, Failure> {
                 eprintln!("servotty: axis {} is not simulated; skipped", axis.name);
                 continue;
             };
-            let (board_end, host_end) = tokio_serial::SerialStream::pair()
+            let (board_end, host_end) = mio_serial::SerialStream::pair()
                 .map_err(|e| Failure::Machine(format!("cannot create a pseudo-terminal: {e}")))?;
+            // Our own stream type, not tokio-serial's: the master sees a hang-up until the
+            // host opens the other side, and tokio keeps a hang-up for good; tokio-serial's
+            // stream then read EAGAIN about a hundred times per tick and board (the bulk of
+            // this simulator's CPU). `TtyStream` registers afresh instead (see its docs).
+            let board_end = crate::link::tty::TtyStream::new(board_end)
+                .map_err(|e| Failure::Machine(format!("cannot wait on a pseudo-terminal: {e}")))?;
             let Some(path) = serialport::SerialPort::name(&host_end) else {
                 return Err(Failure::Machine("the pseudo-terminal has no name".to_owned()));
             };

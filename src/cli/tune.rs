@@ -9,8 +9,9 @@ use std::time::Duration;
 
 use clap::{Args, ValueEnum as _};
 
+use crate::cli::json_round::{emit_json, Rounding};
 use crate::cli::progress::{self, Progress};
-use crate::cli::{emit, emit_json, Failure, MachineArgs, EXIT_FAILED, EXIT_OK};
+use crate::cli::{emit, Failure, MachineArgs, EXIT_FAILED, EXIT_OK};
 use crate::commission::{self, StepRequest, TuneStep};
 use crate::config::AxisConfig;
 use crate::engine::events::ChangedBy;
@@ -140,7 +141,7 @@ pub fn run(args: &TuneArgs) -> Result<u8, Failure> {
         p.finish();
         let out = out.map_err(Failure::Machine)?;
         if args.json {
-            emit_json(&out)?;
+            emit_json(&out, &Rounding::of(h.config()).for_axis(&axis_cfg.name))?;
         } else {
             emit(&format!("{}\n", out["text"].as_str().unwrap_or_default()))?;
         }

@@ -222,8 +222,8 @@ pub enum Effect {
     RunList {
         /// The list.
         list: Box<crate::move_list::MoveList>,
-        /// First step.
-        from: usize,
+        /// Where it begins.
+        from: crate::move_list::Start,
     },
     /// Pause, resume or abort the running list.
     ListControl(crate::move_list::runner::ListControl),

@@ -350,6 +350,12 @@ impl App {
         self.axes.iter().filter(|a| a.snap.state.motor_on()).map(|a| &*a.snap.axis).collect()
     }
 
+    /// Every axis's goal as last seen (where a move list's targets are worked out from, as
+    /// the runner does from the engine's own snapshots).
+    pub fn goals(&self) -> std::collections::BTreeMap<String, f64> {
+        self.axes.iter().map(|v| (v.snap.axis.to_string(), v.snap.goal)).collect()
+    }
+
     /// (homed, total).
     pub fn homed(&self) -> (usize, usize) {
         (self.axes.iter().filter(|a| a.snap.homed).count(), self.axes.len())
@@ -751,14 +757,17 @@ impl App {
         // The dry run, as `servotty run` does it: every target of every pass against the soft
         // limits, before anything moves (the runner checks again against the engine's own
         // goals when it starts).
-        let start = self.axes.iter().map(|v| (v.snap.axis.to_string(), v.snap.goal)).collect();
-        if let Err(e) = crate::move_list::check(&list, &self.config, &start, from) {
+        if let Err(e) = crate::move_list::check(&list, &self.config, &self.goals(), from) {
             let why = format!("{name}: {e}");
             self.note(Kind::Refused, format!("list not started: {why}"));
             self.lists.refused = Some(why);
             return vec![];
         }
-        let resume = if from > 1 { format!(" from step {from}") } else { String::new() };
+        let resume = match from {
+            crate::move_list::Start { pass: 1, step: 1 } => String::new(),
+            crate::move_list::Start { pass: 1, step } => format!(" from step {step}"),
+            crate::move_list::Start { pass, step } => format!(" from step {step} of pass {pass}"),
+        };
         self.note(
             Kind::Operator,
             format!(
@@ -840,9 +849,9 @@ impl App {
             "i" => TuneStep::Identify,
             "r" => TuneStep::Relay,
             "s" => TuneStep::Step,
-            // `p` is the letter this had before the words were settled.
-            "a" | "p" => TuneStep::All,
-            _ => return Err("type d, b, i, r, s or a (all of them, guided)".to_owned()),
+            // `a` also reads as "all".
+            "p" | "a" => TuneStep::All,
+            _ => return Err("type d, b, i, r, s or p (full tuning)".to_owned()),
         };
         let a = self.config.axes.get(axis).ok_or("no such axis")?.clone();
         // Never enable an axis behind the operator's back: `e` first.
@@ -1085,8 +1094,8 @@ impl App {
                                 Kind::Refused,
                                 format!(
                                     "list stopped at step {} (pass {}): {}; every axis stopped. \
-                                     Clear the cause, then Enter resumes from step {}",
-                                    s.step, s.pass, s.reason, s.resume_from
+                                     Clear the cause, then Enter resumes from step {} (pass {})",
+                                    s.step, s.pass, s.reason, s.resume_from, s.resume_pass
                                 ),
                             );
                         }

@@ -6,7 +6,7 @@
 
 use crate::move_list::catalog::Found;
 use crate::move_list::runner::{ListOutcome, Progress, Stopped};
-use crate::move_list::MoveList;
+use crate::move_list::{MoveList, Start};
 
 /// Where the chosen list's run stands.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
@@ -117,19 +117,19 @@ impl ListScreen {
         self.marks = vec![Mark::Ahead; n];
     }
 
-    /// The step a start would begin with: the resume step after an early end (when there is
-    /// one left), else 1.
-    pub fn next_from(&self) -> usize {
+    /// Where a start would begin: the resume point after an early end (when there is one
+    /// left), else the first step.
+    pub fn next_from(&self) -> Start {
         let steps = self.marks.len();
         match &self.stopped {
-            Some(s) if s.resume_from <= steps && self.phase != Phase::Finished => s.resume_from,
-            _ => 1,
+            Some(s) if self.phase != Phase::Finished => s.resume(steps).unwrap_or(Start::from(1)),
+            _ => Start::from(1),
         }
     }
 
-    /// A start was asked from step `from`.
-    pub fn starting(&mut self, from: usize) {
-        if from == 1 {
+    /// A start was asked from `from`.
+    pub fn starting(&mut self, from: Start) {
+        if from == Start::from(1) {
             self.reset_marks();
         }
         self.phase = Phase::Starting;

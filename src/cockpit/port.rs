@@ -59,7 +59,7 @@ pub trait MachinePort: Send + Sync + 'static {
     fn run_list(
         &self,
         list: MoveList,
-        from: usize,
+        from: crate::move_list::Start,
         control: watch::Receiver<ListControl>,
         progress: mpsc::UnboundedSender<Progress>,
     ) -> impl Future<Output = Result<ListOutcome, String>> + Send + 'static {
@@ -124,7 +124,7 @@ impl MachinePort for MachineHandle {
     fn run_list(
         &self,
         list: MoveList,
-        from: usize,
+        from: crate::move_list::Start,
         control: watch::Receiver<ListControl>,
         progress: mpsc::UnboundedSender<Progress>,
     ) -> impl Future<Output = Result<ListOutcome, String>> + Send + 'static {

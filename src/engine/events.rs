@@ -21,7 +21,9 @@ pub struct Event {
     pub time: String,
     /// The axis concerned, or none for machine-wide events.
     pub axis: Option<Arc<str>>,
-    /// Board time of the axis, s, when known.
+    /// Board time of the axis, s, when known (written to the microsecond: the board's clock
+    /// counts whole microseconds).
+    #[serde(serialize_with = "to_micros")]
     pub board_t: Option<f64>,
     /// What happened.
     #[serde(flatten)]
@@ -194,6 +196,14 @@ impl Event {
     }
 }
 
+/// Serialises a board time rounded to the microsecond (`15.043`, not `15.042999999997102`).
+fn to_micros<S: serde::Serializer>(t: &Option<f64>, s: S) -> Result<S::Ok, S::Error> {
+    match t {
+        Some(t) => s.serialize_some(&((t * 1e6).round() / 1e6 + 0.0)),
+        None => s.serialize_none(),
+    }
+}
+
 /// Formats a time as `YYYY-MM-DDTHH:MM:SS.mmmZ`.
 ///
 /// Written by hand to avoid a date crate for one format. The civil-from-days conversion is
@@ -232,5 +242,15 @@ mod tests {
         assert_eq!(rfc3339_utc(t), "2000-02-29T00:00:00.000Z");
         let t = UNIX_EPOCH + Duration::from_millis(1_709_251_199_250);
         assert_eq!(rfc3339_utc(t), "2024-02-29T23:59:59.250Z");
+    }
+
+    #[test]
+    fn board_time_is_written_to_the_microsecond() {
+        let e =
+            Event::now(None, Some(15.042_999_999_997_102), EventKind::Notice { text: "n".into() });
+        let v = serde_json::to_value(&e).expect("serialises");
+        assert_eq!(v["board_t"].to_string(), "15.043");
+        let e = Event::now(None, None, EventKind::Notice { text: "n".into() });
+        assert!(serde_json::to_value(&e).expect("serialises")["board_t"].is_null());
     }
 }

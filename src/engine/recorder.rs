@@ -249,14 +249,43 @@ pub async fn capture(
         let csv = capture_csv(&trip, &tripped_axis, &rows, &cfg).map_err(std::io::Error::other)?;
         let mut meta = capture_meta(&tripped_axis, &trip, &rows, &cfg, &written);
         meta["live_controller_axes"] = serde_json::json!(live_gains);
-        let meta = serde_json::to_vec_pretty(&meta).map_err(std::io::Error::other)?;
         std::fs::create_dir_all(&dir)?;
-        // Metadata first: a reader that finds the CSV finds its sidecar too.
-        write_atomically(&dir, &format!("{name}.json"), &meta)?;
-        write_atomically(&dir, &format!("{name}.csv"), &csv)
+        write_with_sidecar(&dir, &name, &csv, &meta)
     })
     .await
     .map_err(std::io::Error::other)?
+}
+
+/// Writes a data file `dir/STEM.csv` and its metadata `dir/STEM.json` (pretty JSON), each
+/// atomically ([`write_atomically`]), the metadata first: a reader that finds the CSV finds
+/// its sidecar too. Trip captures and step records are written by it. Returns the CSV's path.
+///
+/// # Errors
+/// I/O errors (the folder must exist).
+pub fn write_with_sidecar(
+    dir: &Path,
+    stem: &str,
+    csv: &[u8],
+    meta: &serde_json::Value,
+) -> std::io::Result<PathBuf> {
+    let meta = serde_json::to_vec_pretty(meta).map_err(std::io::Error::other)?;
+    write_atomically(dir, &format!("{stem}.json"), &meta)?;
+    write_atomically(dir, &format!("{stem}.csv"), csv)
+}
+
+/// A time in a data file: seconds to the microsecond.
+pub(crate) fn time_field(t: f64) -> String {
+    format!("{:.6}", t + 0.0)
+}
+
+/// A position, velocity or band in a data file: 6 decimals (below any encoder's count).
+pub(crate) fn length_field(v: f64) -> String {
+    format!("{v:.6}")
+}
+
+/// A duty or controller part in a data file, %: 3 decimals.
+pub(crate) fn duty_field(v: f64) -> String {
+    format!("{v:.3}")
 }
 
 /// Writes `bytes` to `dir/name` via a synced temporary file in `dir` and a rename, so a reader
@@ -346,7 +375,7 @@ pub fn capture_header(axes: &[(&str, &str)]) -> Vec<String> {
 }
 
 /// A unit as it can stand in a column name (`mm`, `deg`; `°` becomes `deg`).
-fn unit_word(unit: &str) -> String {
+pub(crate) fn unit_word(unit: &str) -> String {
     let u = unit.replace('°', "deg");
     let w: String = u.chars().map(|c| if c.is_ascii_alphanumeric() { c } else { '_' }).collect();
     if w.is_empty() {
@@ -382,7 +411,7 @@ pub fn capture_csv(
     let n = base.len();
     let empty = vec![String::new(); CAPTURE_COLUMNS.len()];
     for (k, now) in base.iter().enumerate() {
-        let mut rec = vec![format!("{:.6}", now.t - trip.at_s)];
+        let mut rec = vec![time_field(now.t - trip.at_s)];
         for (_, samples) in rows {
             // Aligned from the newest sample back.
             let back = n - k;
@@ -399,24 +428,24 @@ pub fn capture_csv(
 
 fn sample_fields(r: &Sample) -> [String; 19] {
     [
-        format!("{:.6}", r.target),
-        format!("{:.6}", r.position),
-        format!("{:.6}", r.following_error),
-        format!("{:.3}", r.duty),
-        format!("{:.6}", r.velocity),
+        length_field(r.target),
+        length_field(r.position),
+        length_field(r.following_error),
+        duty_field(r.duty),
+        length_field(r.velocity),
         r.state.word().to_owned(),
         r.count.to_string(),
         r.board_time_us.to_string(),
         r.missed_frames.to_string(),
         r.status.to_string(),
         r.inputs.to_string(),
-        format!("{:.6}", r.target_velocity),
-        format!("{:.6}", r.target_acceleration),
-        format!("{:.6}", r.band),
-        format!("{:.3}", r.p),
-        format!("{:.3}", r.i),
-        format!("{:.3}", r.d),
-        format!("{:.3}", r.ff),
+        length_field(r.target_velocity),
+        length_field(r.target_acceleration),
+        length_field(r.band),
+        duty_field(r.p),
+        duty_field(r.i),
+        duty_field(r.d),
+        duty_field(r.ff),
         u8::from(r.saturated).to_string(),
     ]
 }

@@ -344,9 +344,25 @@ pub struct PlannedStep {
     pub targets: BTreeMap<String, f64>,
 }
 
+/// Where a run begins: a step of a pass (both 1-based). A bare step number means that step of
+/// the first pass.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+pub struct Start {
+    /// Pass.
+    pub pass: u32,
+    /// Step.
+    pub step: usize,
+}
+
+impl From<usize> for Start {
+    fn from(step: usize) -> Self {
+        Self { pass: 1, step }
+    }
+}
+
 /// Works out every target of every pass from `start` (each axis's position now) and checks
-/// each against the soft limits — before anything moves. Starts at step `from` (1-based) of
-/// the first pass, for resuming.
+/// each against the soft limits — before anything moves. Begins at `from` (a step, or a step
+/// of a later pass), for resuming: the passes before it do not run again.
 ///
 /// # Errors
 /// [`ListError::Step`] naming the first step (and pass) whose target is outside the limits,
@@ -355,18 +371,25 @@ pub fn check(
     list: &MoveList,
     cfg: &MachineConfig,
     start: &BTreeMap<String, f64>,
-    from: usize,
+    from: impl Into<Start>,
 ) -> Result<Vec<PlannedStep>, ListError> {
+    let Start { pass: first_pass, step: from } = from.into();
     if from == 0 || from > list.steps.len() {
         return Err(ListError::List(format!(
             "--from {from}: the list has steps 1 … {}",
             list.steps.len()
         )));
     }
+    if first_pass == 0 || first_pass > list.times {
+        return Err(ListError::List(format!(
+            "--pass {first_pass}: the list runs passes 1 … {}",
+            list.times
+        )));
+    }
     let mut at = start.clone();
     let mut out = Vec::new();
-    for pass in 1..=list.times {
-        let first = if pass == 1 { from } else { 1 };
+    for pass in first_pass..=list.times {
+        let first = if pass == first_pass { from } else { 1 };
         for (i, step) in list.steps.iter().enumerate().skip(first - 1) {
             let n = i + 1;
             let err = |message: String| ListError::Step {

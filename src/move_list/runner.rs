@@ -15,7 +15,7 @@ use std::time::Duration;
 use serde::Serialize;
 use tokio::sync::watch;
 
-use super::{check, describe, Action, ListError, MoveList, PlannedStep};
+use super::{check, describe, Action, ListError, MoveList, PlannedStep, Start};
 use crate::engine::line_move::{move_line, stop_then_off};
 use crate::engine::{AxisCommand, AxisHandle, AxisState, MachineHandle};
 
@@ -72,8 +72,19 @@ pub struct Stopped {
     pub step: usize,
     /// Why.
     pub reason: String,
-    /// The step to resume from after clearing the cause (`servotty run --from`).
+    /// The step to resume from after clearing the cause (`servotty run --from`); past the
+    /// last step when nothing is left.
     pub resume_from: usize,
+    /// The pass that step belongs to (`servotty run --pass`).
+    pub resume_pass: u32,
+}
+
+impl Stopped {
+    /// Where a resumed run begins, or `None` when the list stopped at its very last step.
+    pub fn resume(&self, steps: usize) -> Option<Start> {
+        (self.resume_from <= steps)
+            .then_some(Start { pass: self.resume_pass, step: self.resume_from })
+    }
 }
 
 /// The whole result.
@@ -87,14 +98,15 @@ pub struct ListOutcome {
     pub stopped: Option<Stopped>,
 }
 
-/// Checks `list` against the machine's present positions, from step `from` (1-based).
+/// Checks `list` against the machine's present positions, from `from` (a step, 1-based, or a
+/// step of a later pass).
 ///
 /// # Errors
 /// [`ListError`] for a target outside the limits or a relative move of an unknown position.
 pub fn plan(
     m: &MachineHandle,
     list: &MoveList,
-    from: usize,
+    from: impl Into<Start>,
 ) -> Result<Vec<PlannedStep>, ListError> {
     let start: BTreeMap<String, f64> =
         m.axes().iter().map(|a| (a.name().to_owned(), a.snapshot().goal)).collect();
@@ -115,7 +127,8 @@ fn axes_used(plan: &[PlannedStep]) -> (BTreeSet<String>, BTreeSet<String>) {
     (moved, all)
 }
 
-/// Runs `list` from step `from` (1-based). `on` sees every progress event.
+/// Runs `list` from `from` (a step, 1-based, or a step of a later pass). `on` sees every
+/// progress event.
 ///
 /// # Errors
 /// [`ListError`] when the list cannot start (nothing has moved then); failures after the
@@ -123,7 +136,7 @@ fn axes_used(plan: &[PlannedStep]) -> (BTreeSet<String>, BTreeSet<String>) {
 pub async fn run_list(
     m: &MachineHandle,
     list: &MoveList,
-    from: usize,
+    from: impl Into<Start>,
     mut control: watch::Receiver<ListControl>,
     mut on: impl FnMut(&Progress),
 ) -> Result<ListOutcome, ListError> {
@@ -173,7 +186,11 @@ pub async fn run_list(
         if *control.borrow() == ListControl::Abort {
             stop_then_off(&every).await;
             // This step never started: resuming begins with it.
-            let stopped = Stopped { resume_from: p.step, ..stopped(p, "aborted by the operator") };
+            let stopped = Stopped {
+                resume_from: p.step,
+                resume_pass: p.pass,
+                ..stopped(list, p, "aborted by the operator")
+            };
             return Ok(ListOutcome { ok: false, steps: reports, stopped: Some(stopped) });
         }
         on(&event("start"));
@@ -209,7 +226,7 @@ pub async fn run_list(
                 return Ok(ListOutcome {
                     ok: false,
                     steps: reports,
-                    stopped: Some(stopped(p, &why)),
+                    stopped: Some(stopped(list, p, &why)),
                 });
             }
         }
@@ -217,11 +234,18 @@ pub async fn run_list(
     Ok(ListOutcome { ok: true, steps: reports, stopped: None })
 }
 
-fn stopped(p: &PlannedStep, why: &str) -> Stopped {
+fn stopped(list: &MoveList, p: &PlannedStep, why: &str) -> Stopped {
     // The failed step may have moved part way; resuming repeats nothing before it and
     // starts with the next one (its targets are absolute or re-checked from where the axes
-    // stand then).
-    Stopped { pass: p.pass, step: p.step, reason: why.to_owned(), resume_from: p.step + 1 }
+    // stand then) — the first step of the next pass after a pass's last step.
+    let (resume_pass, resume_from) = if p.step < list.steps.len() {
+        (p.pass, p.step + 1)
+    } else if p.pass < list.times {
+        (p.pass + 1, 1)
+    } else {
+        (p.pass, p.step + 1)
+    };
+    Stopped { pass: p.pass, step: p.step, reason: why.to_owned(), resume_from, resume_pass }
 }
 
 async fn run_step(m: &MachineHandle, p: &PlannedStep, axes: &[&AxisHandle]) -> Result<(), String> {

@@ -29,6 +29,12 @@
 //! # Files
 //! Every file is written atomically: into a temporary file in the destination folder, synced,
 //! then renamed over the destination, so a crash or a full disk never leaves half a file.
+//! A step record is laid out as a trip capture is (and written by the same code,
+//! [`crate::engine::recorder::write_with_sidecar`]): a CSV with one header row naming the
+//! units (`t_s,target_mm,position_mm,duty_pct`), numbers only, one row per frame, mode 0644,
+//! and beside it a JSON sidecar of the same name with what a reader needs to interpret it
+//! (axis, unit, counts per unit, the gains in force, the metrics; [`StepRecordMeta`]), so
+//! `pandas.read_csv` or a spreadsheet opens the CSV with no options.
 //!
 //! The CSV reader is hand-written: the format is four numeric columns with a header, and the
 //! error messages must name the line and the column; a CSV crate would add a dependency for
@@ -340,9 +346,14 @@ impl StepSummary {
         })
     }
 
-    /// A small table for the terminal; `unit` names the position unit (may be empty).
-    pub fn to_text(&self, unit: &str) -> String {
+    /// A small table for the terminal; `unit` names the position unit (may be empty) and
+    /// `decimals` the places one encoder count needs
+    /// ([`crate::cockpit::format::decimals_for`]).
+    pub fn to_text(&self, unit: &str, decimals: usize) -> String {
+        use crate::cockpit::format::num;
         let m = &self.metrics;
+        let d = decimals;
+        let pos = |v: f64| num(v, d, 0);
         let u = if unit.is_empty() { String::new() } else { format!(" {unit}") };
         let step = self.step.to - self.step.from;
         let secs = |v: Option<f64>, why: &str| v.map_or(why.to_owned(), |s| format!("{s:.4} s"));
@@ -353,16 +364,20 @@ impl StepSummary {
         row(
             "step",
             format!(
-                "{step:+}{u} at {:.4} s ({} → {}{u})",
-                self.step.t, self.step.from, self.step.to
+                "{}{}{u} at {:.4} s ({} → {}{u})",
+                if step < 0.0 { "-" } else { "+" },
+                pos(step.abs()),
+                self.step.t,
+                pos(self.step.from),
+                pos(self.step.to)
             ),
         );
         row(
             "settling band",
             format!(
-                "±{} % of the step (±{:.4}{u})",
+                "±{} % of the step (±{}{u})",
                 100.0 * self.band_frac,
-                self.band_frac * step.abs()
+                num(self.band_frac * step.abs(), d + 1, 0)
             ),
         );
         row("rise time 10–90 %", secs(m.rise_s, "never reached 90 %"));
@@ -373,11 +388,11 @@ impl StepSummary {
         row(
             "steady-state error",
             match m.settling_s {
-                Some(_) => format!("{:.4}{u}", m.steady_state_error),
+                Some(_) => format!("{}{u}", pos(m.steady_state_error)),
                 None => "none reported: the response did not settle".to_owned(),
             },
         );
-        row("peak following error", format!("{:.4}{u}", self.peak_following_error));
+        row("peak following error", format!("{}{u}", pos(self.peak_following_error)));
         if let Some(d) = self.peak_duty {
             row("peak duty", format!("{d:.1} %"));
         }
@@ -385,8 +400,8 @@ impl StepSummary {
             row(
                 "note",
                 format!(
-                    "noise σ {:.4}{u}: metrics on a {SMOOTHING_SAMPLES}-sample centred moving average",
-                    self.noise
+                    "noise σ {}{u}: metrics on a {SMOOTHING_SAMPLES}-sample centred moving average",
+                    num(self.noise, d + 1, 0)
                 ),
             );
         }
@@ -410,13 +425,55 @@ pub(crate) fn without_unit(name: &str) -> String {
     name.to_owned()
 }
 
-/// Writes `rows` as CSV with one header row naming the units, `t_s,target_U,position_U,
-/// duty_pct` for the axis unit `unit` (an empty duty field when not recorded), atomically.
+/// What the sidecar of a step record says (module docs, "Files").
+#[derive(Debug, Clone, Copy)]
+pub struct StepRecordMeta<'a> {
+    /// Axis name.
+    pub axis: &'a str,
+    /// The axis unit, as in the configuration.
+    pub unit: &'a str,
+    /// Encoder counts per unit (the record's resolution).
+    pub counts_per_unit: f64,
+    /// What recorded it, e.g. `tune step`.
+    pub what: &'a str,
+    /// The controller in force while it was recorded.
+    pub controller: &'a crate::config::ControllerConfig,
+    /// The metrics, when the record was summarised.
+    pub summary: Option<&'a StepSummary>,
+}
+
+impl StepRecordMeta<'_> {
+    /// The sidecar's JSON object; `written_utc` is the time of writing (RFC 3339).
+    pub fn to_json(&self, written_utc: &str) -> serde_json::Value {
+        let u = crate::engine::recorder::unit_word(self.unit);
+        serde_json::json!({
+            "kind": "servotty step record",
+            "software": format!("servotty {}", env!("CARGO_PKG_VERSION")),
+            "written_utc": written_utc,
+            "what": self.what,
+            "axis": self.axis,
+            "unit": self.unit,
+            "counts_per_unit": self.counts_per_unit,
+            "columns": {
+                "t_s": "time, s, on the axis's board clock from the start of the record",
+                format!("target_{u}"): format!("commanded position, {}", self.unit),
+                format!("position_{u}"): format!("measured position, {}", self.unit),
+                "duty_pct": "duty, % of full scale (empty when not recorded)",
+            },
+            "controller": serde_json::to_value(self.controller).unwrap_or_default(),
+            "metrics": self.summary.map(StepSummary::to_json),
+        })
+    }
+}
+
+/// The step record as CSV bytes: one header row naming the units, `t_s,target_U,position_U,
+/// duty_pct` for the axis unit `unit` (an empty duty field when not recorded), then one row
+/// per sample, with the trip capture's number format.
 ///
 /// # Errors
-/// The folder is missing or not writable, or the disk is full.
-pub fn write_step_csv(path: &Path, rows: &[StepRow], unit: &str) -> std::io::Result<()> {
-    let u: String = unit.chars().map(|c| if c.is_ascii_alphanumeric() { c } else { '_' }).collect();
+/// The csv writer's (not expected for in-memory output).
+pub fn step_csv(rows: &[StepRow], unit: &str) -> Result<Vec<u8>, csv::Error> {
+    let u = crate::engine::recorder::unit_word(unit);
     let mut w = csv::Writer::from_writer(Vec::with_capacity(32 * rows.len() + 32));
     w.write_record([
         "t_s".to_owned(),
@@ -425,11 +482,48 @@ pub fn write_step_csv(path: &Path, rows: &[StepRow], unit: &str) -> std::io::Res
         "duty_pct".into(),
     ])?;
     for r in rows {
-        let duty = r.duty.map(|d| d.to_string()).unwrap_or_default();
-        w.write_record([r.t.to_string(), r.target.to_string(), r.position.to_string(), duty])?;
+        let duty = r.duty.map(crate::engine::recorder::duty_field).unwrap_or_default();
+        w.write_record([
+            crate::engine::recorder::time_field(r.t),
+            crate::engine::recorder::length_field(r.target),
+            crate::engine::recorder::length_field(r.position),
+            duty,
+        ])?;
     }
-    let bytes = w.into_inner().map_err(|e| e.into_error())?;
+    w.into_inner().map_err(|e| e.into_error().into())
+}
+
+/// Writes `rows` as CSV ([`step_csv`]) to `path`, atomically, without a sidecar.
+///
+/// # Errors
+/// The folder is missing or not writable, or the disk is full.
+pub fn write_step_csv(path: &Path, rows: &[StepRow], unit: &str) -> std::io::Result<()> {
+    let bytes = step_csv(rows, unit).map_err(std::io::Error::other)?;
     write_atomically(path, &bytes)
+}
+
+/// Writes a step record: `path` (CSV, [`step_csv`]) and its JSON sidecar beside it (same
+/// name, `.json`; [`StepRecordMeta`]), both atomically, the sidecar first.
+///
+/// # Errors
+/// The folder is missing or not writable, or the disk is full.
+pub fn write_step_record(
+    path: &Path,
+    rows: &[StepRow],
+    meta: &StepRecordMeta<'_>,
+) -> std::io::Result<()> {
+    let csv = step_csv(rows, meta.unit).map_err(std::io::Error::other)?;
+    let written = crate::engine::events::rfc3339_utc(std::time::SystemTime::now());
+    let (dir, name) = split_path(path)?;
+    let stem = name.strip_suffix(".csv").unwrap_or(&name);
+    crate::engine::recorder::write_with_sidecar(dir, stem, &csv, &meta.to_json(&written))
+        .map(|_| ())
+}
+
+/// The sidecar of a data file, when there is one beside it (`x.csv` → `x.json`).
+pub fn read_sidecar(csv: &Path) -> Option<serde_json::Value> {
+    let text = std::fs::read_to_string(csv.with_extension("json")).ok()?;
+    serde_json::from_str(&text).ok()
 }
 
 /// Renders the record as an SVG: target and position against time, and the duty in a second
@@ -555,6 +649,12 @@ pub(crate) fn padded(values: impl Iterator<Item = f64>, pad: f64) -> std::ops::R
 /// Temporary file in the destination's folder, synced, then renamed over the destination (the
 /// recorder's atomic write, which trip captures use too).
 pub fn write_atomically(path: &Path, bytes: &[u8]) -> std::io::Result<()> {
+    let (dir, name) = split_path(path)?;
+    crate::engine::recorder::write_atomically(dir, &name, bytes).map(|_| ())
+}
+
+/// A file path as its folder (`.` when none) and its name.
+fn split_path(path: &Path) -> std::io::Result<(&Path, String)> {
     let dir = match path.parent() {
         Some(d) if !d.as_os_str().is_empty() => d,
         _ => Path::new("."),
@@ -562,7 +662,7 @@ pub fn write_atomically(path: &Path, bytes: &[u8]) -> std::io::Result<()> {
     let name = path.file_name().ok_or_else(|| {
         std::io::Error::new(std::io::ErrorKind::InvalidInput, "the path names no file")
     })?;
-    crate::engine::recorder::write_atomically(dir, &name.to_string_lossy(), bytes).map(|_| ())
+    Ok((dir, name.to_string_lossy().into_owned()))
 }
 
 #[cfg(test)]
@@ -640,7 +740,12 @@ mod tests {
         let csv = dir.path().join("step.csv");
         write_step_csv(&csv, &rows, "mm").expect("writes");
         let back = parse_step_csv(&std::fs::read_to_string(&csv).expect("reads")).expect("parses");
-        assert_eq!(back, rows);
+        // The capture's number format: 1 µs, 1e-6 units, 0.001 % duty.
+        assert_eq!(back.len(), rows.len());
+        for (b, r) in back.iter().zip(&rows) {
+            assert!((b.t - r.t).abs() <= 5e-7 && (b.position - r.position).abs() <= 5e-7);
+            assert!((b.duty.unwrap_or(0.0) - r.duty.unwrap_or(0.0)).abs() <= 5e-4);
+        }
         let svg = dir.path().join("step.svg");
         write_step_svg(&svg, &rows, "x step", "mm").expect("plots");
         let text = std::fs::read_to_string(&svg).expect("reads");

@@ -480,7 +480,9 @@ pub fn from_relay(
             let q = match (model, at) {
                 (Some(m), Some(q)) => {
                     notes.push(format!(
-                        "design point: the model k·e^(−θs)/(s(τs+1)) through the measured point                          (θ = 1.5 ticks = {} s assumed: k = {} unit/s per %, τ = {} s) at phase                          {DESIGN_PHASE_DEG}°: |G| = {} unit/% at ω = {} rad/s",
+                        "design point: the model k·e^(−θs)/(s(τs+1)) through the measured point \
+                         (θ = 1.5 ticks = {} s assumed: k = {} unit/s per %, τ = {} s) at phase \
+                         {DESIGN_PHASE_DEG}°: |G| = {} unit/% at ω = {} rad/s",
                         round_sig(theta, 3),
                         round_sig(m.gain, 4),
                         round_sig(m.lag_s, 3),
@@ -491,7 +493,8 @@ pub fn from_relay(
                 }
                 _ => {
                     notes.push(format!(
-                        "design point: the measured point itself (no integrating-with-lag model                          fits a phase of {}°)",
+                        "design point: the measured point itself (no integrating-with-lag model \
+                         fits a phase of {}°)",
                         round_sig(p.phase_deg, 4)
                     ));
                     p

@@ -43,7 +43,11 @@ fn items(app: &App) -> Vec<(&'static str, &'static str)> {
                 out.push(("w", "write file"));
             }
             out.extend_from_slice(for_axis);
-            out.extend_from_slice(&[("t", "tune"), ("Tab", "axis"), ("?", "help")]);
+            out.extend_from_slice(&[
+                ("t", "tune (p: full tuning)"),
+                ("Tab", "axis"),
+                ("?", "help"),
+            ]);
         }
         Mode::Log => out.extend_from_slice(&[("Esc", "back"), ("↑↓", "scroll"), ("End", "newest")]),
         Mode::Trip => out.extend_from_slice(&[("Esc", "back"), ("l", "log"), ("?", "help")]),
@@ -55,7 +59,9 @@ fn items(app: &App) -> Vec<(&'static str, &'static str)> {
                 }
                 Phase::Pausing => out.extend_from_slice(&[("Enter", "carry on"), ("x", "abort")]),
                 Phase::Paused => out.extend_from_slice(&[("Enter", "resume"), ("x", "abort")]),
-                Phase::Idle | Phase::Finished if app.lists.next_from() > 1 => {
+                Phase::Idle | Phase::Finished
+                    if app.lists.next_from() != crate::move_list::Start::from(1) =>
+                {
                     out.push(("Enter", "resume"));
                 }
                 Phase::Idle | Phase::Finished => out.push(("Enter", "start")),

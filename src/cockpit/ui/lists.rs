@@ -40,13 +40,14 @@ fn state_lines(app: &App, s: &ListScreen, list: &MoveList) -> Vec<(String, Style
                 out.push((format!("not started: {why}"), t.alarm()));
             }
             match &s.stopped {
-                Some(st) if st.resume_from <= n => {
+                Some(st) if st.resume(n).is_some() => {
                     out.push((
                         format!(
-                            "STOPPED at step {}{}: clear the cause, then Enter resumes from step {}",
+                            "STOPPED at step {}{}: clear the cause, then Enter resumes from step {}{}",
                             st.step,
                             pass(st.pass),
-                            st.resume_from
+                            st.resume_from,
+                            pass(st.resume_pass)
                         ),
                         t.alarm(),
                     ));
@@ -59,13 +60,18 @@ fn state_lines(app: &App, s: &ListScreen, list: &MoveList) -> Vec<(String, Style
                     ));
                     out.push((st.reason.clone(), t.warn()));
                 }
-                None if out.is_empty() => out.push((
-                    format!(
-                        "ready: {n} steps × {} · Enter checks the limits and starts",
-                        list.times
+                // The dry run, drawn: every target of every pass from where the axes are
+                // bound now (the same check Enter makes before anything moves).
+                None if out.is_empty() => out.push(match check_from_here(app, list) {
+                    Ok(()) => (
+                        format!(
+                            "ready: {n} steps × {}, inside the soft limits · Enter starts",
+                            list.times
+                        ),
+                        t.bold(),
                     ),
-                    t.bold(),
-                )),
+                    Err(e) => (format!("will not start: {e}"), t.alarm()),
+                }),
                 None => {}
             }
             out
@@ -73,11 +79,15 @@ fn state_lines(app: &App, s: &ListScreen, list: &MoveList) -> Vec<(String, Style
     }
 }
 
+/// [`crate::move_list::check`] of the whole list from the axes' present goals.
+fn check_from_here(app: &App, list: &MoveList) -> Result<(), crate::move_list::ListError> {
+    crate::move_list::check(list, &app.config, &app.goals(), 1).map(|_| ())
+}
+
 /// The steps as the runner would carry them out from here (targets worked out), or, when a
 /// target is outside the limits, as written.
 fn planned(app: &App, list: &MoveList) -> Vec<PlannedStep> {
-    let start = app.axes.iter().map(|v| (v.snap.axis.to_string(), v.snap.goal)).collect();
-    match crate::move_list::check(&list_one_pass(list), &app.config, &start, 1) {
+    match crate::move_list::check(&list_one_pass(list), &app.config, &app.goals(), 1) {
         Ok(p) => p,
         Err(_) => list
             .steps

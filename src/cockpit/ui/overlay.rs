@@ -199,7 +199,7 @@ fn prompt(app: &App, p: &Prompt, area: Rect, buf: &mut Buffer) {
         ),
         Purpose::Test { axis } => (
             format!("{}: tune (the axis moves)", app.config.axes[axis].name),
-            "d direction · b breakaway · i identify · r relay · s step · a all".to_owned(),
+            "d direction · b breakaway · i identify · r relay · s step · p full tuning".to_owned(),
         ),
     };
     let mut lines = vec![

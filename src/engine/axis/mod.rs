@@ -106,17 +106,48 @@ pub struct AxisWiring {
 /// Writes all of `bytes`, or fails with `TimedOut` when that takes longer than `limit`: a
 /// board that does not take its bytes in time (a wedged USB device, a full PTY nobody reads)
 /// is a lost link, and the axis must not wait on it.
+///
+/// A write the device takes at once (nearly every one: a reply is a few bytes) completes
+/// without a timer; only a write that has to wait arms one. Building the time limit for
+/// every reply read the clock and registered a timer a thousand times a second per axis.
 async fn write_within(
     stream: &mut BoxStream,
     bytes: &[u8],
     limit: Duration,
 ) -> std::io::Result<()> {
-    match tokio::time::timeout(limit, stream.write_all(bytes)).await {
+    let mut write = std::pin::pin!(stream.write_all(bytes));
+    // Progress made by this first attempt stays in `write`, so nothing is written twice.
+    if let Some(r) = write.as_mut().now_or_never() {
+        return r;
+    }
+    match tokio::time::timeout(limit, write).await {
         Ok(r) => r,
         Err(_) => Err(std::io::Error::new(
             std::io::ErrorKind::TimedOut,
             format!("a write to the board did not complete within {} ms", limit.as_millis()),
         )),
+    }
+}
+
+/// What the machine-wide signals ask of an axis during a session.
+enum Signal {
+    /// Shutdown (or the machine went away).
+    Shutdown,
+    /// Stop-all changed.
+    StopAll,
+}
+
+/// Waits for shutdown or a stop-all change, on clones of the task's receivers (a clone starts
+/// from what the original has seen), so that the session can keep one such future pinned
+/// across frames instead of registering and removing two waiters on every frame.
+async fn next_signal(
+    mut shutdown: watch::Receiver<bool>,
+    mut stop_all: watch::Receiver<StopAll>,
+) -> Signal {
+    tokio::select! {
+        biased;
+        _ = shutdown.changed() => Signal::Shutdown,
+        r = stop_all.changed() => if r.is_err() { Signal::Shutdown } else { Signal::StopAll },
     }
 }
 
@@ -314,20 +345,23 @@ impl AxisTask {
         let link_timeout = Duration::from_secs_f64(self.core.config().limits.link_timeout_s);
         let mut rx = vec![0u8; 4096];
         let mut next_relink = Instant::now();
+        // The futures that outlive a frame: the machine's signals, and one timer for the link
+        // timeout. The timer is re-armed lazily: every frame moves the true deadline later,
+        // but the timer is only moved when it fires (early, mostly: then it is set to the
+        // deadline as it stands) or when the deadline moved earlier than it. That replaces a
+        // timer built and torn down per frame by one re-arm per link timeout.
+        let signals = next_signal(self.wiring.shutdown.clone(), self.wiring.stop_all.clone());
+        let timer = tokio::time::sleep_until(self.link_deadline(link_timeout, next_relink));
+        tokio::pin!(signals, timer);
         loop {
-            let deadline = if self.core.is_linked() {
-                self.last_frame_at.map_or_else(Instant::now, |t| t + link_timeout)
-            } else {
-                next_relink
-            };
+            let deadline = self.link_deadline(link_timeout, next_relink);
+            if deadline < timer.deadline() {
+                timer.as_mut().reset(deadline);
+            }
             tokio::select! {
                 biased;
-                _ = self.wiring.shutdown.changed() => {
-                    self.motor_off_now(&mut stream).await;
-                    return SessionEnd::Shutdown;
-                }
-                r = self.wiring.stop_all.changed() => {
-                    if r.is_err() {
+                signal = &mut signals => {
+                    if let Signal::Shutdown = signal {
                         self.motor_off_now(&mut stream).await;
                         return SessionEnd::Shutdown;
                     }
@@ -337,6 +371,11 @@ impl AxisTask {
                     if let Err(end) = written {
                         return end;
                     }
+                    // The originals have now seen this change; fresh clones start from it.
+                    signals.set(next_signal(
+                        self.wiring.shutdown.clone(),
+                        self.wiring.stop_all.clone(),
+                    ));
                 }
                 req = self.wiring.commands.recv() => {
                     let Some(req) = req else {
@@ -353,7 +392,12 @@ impl AxisTask {
                         return end;
                     }
                 }
-                () = tokio::time::sleep_until(deadline) => {
+                () = &mut timer => {
+                    if deadline > Instant::now() {
+                        // Frames came meanwhile: not due yet.
+                        timer.as_mut().reset(deadline);
+                        continue;
+                    }
                     // A starved process wakes with the timer and the data both due: let the
                     // other tasks (an in-process board) run and look for bytes once more
                     // before calling the link lost.
@@ -365,6 +409,7 @@ impl AxisTask {
                                 if let Err(end) = self.on_bytes(&mut stream, &rx[..n]).await {
                                     return end;
                                 }
+                                timer.as_mut().reset(self.link_deadline(link_timeout, next_relink));
                                 continue;
                             }
                             Err(e) => return vanished(e.to_string()),
@@ -380,6 +425,7 @@ impl AxisTask {
                     }
                     // The board may have reset: ask it to start streaming again.
                     next_relink = Instant::now() + RELINK_PERIOD;
+                    timer.as_mut().reset(next_relink);
                     if let Err(e) = self.send_configure(&mut stream).await {
                         return write_failed(&e);
                     }
@@ -395,6 +441,16 @@ impl AxisTask {
                     }
                 }
             }
+        }
+    }
+
+    /// When the link counts as lost (linked: one link timeout after the last frame), or when
+    /// to ask the board to start again (not linked).
+    fn link_deadline(&self, link_timeout: Duration, next_relink: Instant) -> Instant {
+        if self.core.is_linked() {
+            self.last_frame_at.map_or_else(Instant::now, |t| t + link_timeout)
+        } else {
+            next_relink
         }
     }
 
