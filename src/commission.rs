@@ -190,6 +190,49 @@ pub fn relay_hysteresis(duty: f64, friction: f64, resolution: f64) -> f64 {
     (n - 0.5) * resolution
 }
 
+/// Identification pulses start towards the side with more room: a homed axis nearer its
+/// `soft_max` than its `soft_min` gets the pulses with their signs swapped (a homed lift
+/// stands just below its top stop, and the first pulses would run into it). Unhomed, the
+/// position says nothing about the ends and the plan is kept.
+fn toward_room(
+    spec: ExperimentSpec,
+    snap: &crate::engine::AxisSnapshot,
+    a: &AxisConfig,
+) -> ExperimentSpec {
+    let l = &a.limits;
+    match spec {
+        ExperimentSpec::DutySteps { steps, settle_s }
+            if snap.homed && l.soft_max - snap.position < snap.position - l.soft_min =>
+        {
+            let steps = steps.into_iter().map(|(d, s)| (-d, s)).collect();
+            ExperimentSpec::DutySteps { steps, settle_s }
+        }
+        other => other,
+    }
+}
+
+/// Time the position must stay on one count to count as at rest before a test, s.
+const REST_S: f64 = 0.1;
+
+/// Longest wait for rest before a test starts anyway, s.
+const REST_WAIT_S: f64 = 3.0;
+
+/// Waits until the axis's position has not changed for [`REST_S`] (at most [`REST_WAIT_S`]):
+/// an open-loop test must start from rest. After homing, the demo lift creeps the last counts
+/// to its target for about a second under its hold, and a breakaway ramp started then reads
+/// that creep as motion.
+async fn at_rest(axis: &AxisHandle) {
+    let step = Duration::from_millis(10);
+    let (mut last, mut still, mut waited) = (axis.snapshot().position, 0.0, 0.0);
+    while still < REST_S && waited < REST_WAIT_S {
+        tokio::time::sleep(step).await;
+        waited += step.as_secs_f64();
+        let now = axis.snapshot().position;
+        still = if now == last { still + step.as_secs_f64() } else { 0.0 };
+        last = now;
+    }
+}
+
 /// The breakaway of one recorded ramp ([`ident::breakaway`], the one implementation), or why
 /// there is none.
 fn breakaway_of(r: &ExperimentResult, resolution: f64) -> Result<ident::Breakaway, String> {
@@ -466,6 +509,8 @@ async fn full_tuning(
 async fn run_one(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Result<Outcome, String> {
     let (spec, bounds) = plan(args, a);
     let axis = h.axis(&a.name).ok_or("no such axis")?;
+    let spec =
+        if args.step == TuneStep::Identify { toward_room(spec, &axis.snapshot(), a) } else { spec };
     // A trial never enables an axis behind the operator's back: the front end enables it
     // when the operator asked for that (the CLI says so in the plan it confirms).
     let state = axis.snapshot().state;
@@ -474,6 +519,7 @@ async fn run_one(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
     }
     // Let the hold settle so the trial starts from rest.
     tokio::time::sleep(Duration::from_millis(200)).await;
+    at_rest(axis).await;
     let u = a.scale.unit.clone();
     let resolution = 1.0 / a.scale.counts_per_unit;
     // Identification starts with the breakaway ramps: the suggestion's minimum duty must come
@@ -582,8 +628,11 @@ async fn run_one(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
                 ident::identify(&samples, &opts).map_err(|e| format!("identification: {e}"))?;
             let mut so = suggest::SimcOptions::new(1.0 / f64::from(a.board.tick_hz));
             so.resolution = Some(resolution);
-            let (bf, br) = ramps.as_ref().map_or((None, None), |(f, r)| {
-                (breakaway_of(f, resolution).ok(), breakaway_of(r, resolution).ok())
+            let found = ramps
+                .as_ref()
+                .map(|(f, r)| (breakaway_of(f, resolution), breakaway_of(r, resolution)));
+            let (bf, br) = found.as_ref().map_or((None, None), |(f, r)| {
+                (f.as_ref().ok().copied(), r.as_ref().ok().copied())
             });
             // Never below the measured breakaway of that direction (nor its sliding offset, in
             // case a ramp read low); without a breakaway, never below the configured minimum
@@ -599,10 +648,22 @@ async fn run_one(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
             let s = suggest::simc(&id.model, &a.controller, &so).map_err(|e| e.to_string())?;
             let mut text = format!("{}: {}", a.name, identify_text(&id, &s, &u));
             let raw = bf.zip(br).map(|(f, r)| (f.duty_pct, r.duty_pct));
-            if let Some((f, r)) = raw {
-                text.push_str(&format!(
+            match (raw, &found) {
+                (Some((f, r)), _) => text.push_str(&format!(
                     "\nbreaks away at {f:+.2} % forwards and {r:+.2} % in reverse (ramps)"
-                ));
+                )),
+                (None, Some((f, r))) => {
+                    let say = |b: &Result<ident::Breakaway, String>| {
+                        b.as_ref().map_or_else(|e| e.clone(), |b| format!("{:+.2} %", b.duty_pct))
+                    };
+                    text.push_str(&format!(
+                        "\nbreakaway ramps: forwards {}, reverse {}; the minimum duty stays as \
+                         configured",
+                        say(f),
+                        say(r)
+                    ));
+                }
+                (None, None) => {}
             }
             patch_text = s.patch.to_toml_lines();
             let mut extra = serde_json::to_value(&id).unwrap_or_default();

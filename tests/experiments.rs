@@ -204,3 +204,39 @@ async fn the_guided_pass_runs_every_step_and_writes_a_report() {
     assert_eq!(x.snapshot().state, AxisState::Steady);
     m.shutdown().await;
 }
+
+// `tune identify` on the demo lift Z, homed: it stands just below its top stop, so the pulses
+// start downwards (towards the room) and the fit stays clean. The lift carries a load under
+// gravity: the sliding offset comes out per direction, each within 0.1 pp of the plant's
+// (Coulomb friction plus or minus the weight m·g, g = 9.80665 m/s² (ISO 80000-3), reflected
+// through the screw as in src/sim/plant.rs), and the breakaway per direction within 0.1 pp of
+// `breakaway_duties`.
+#[tokio::test(start_paused = true)]
+async fn identify_on_the_homed_lift_fits_each_direction() {
+    let cfg = MachineConfig::demo().expect("demo");
+    let m = Machine::start(&cfg, &[]).expect("starts");
+    let h = m.handle();
+    h.home(Some(&["z".to_owned()])).await.expect("homes");
+    let a = cfg.axis("z").expect("z").clone();
+    let servotty::config::TransportConfig::Sim(sim) = &a.transport else { panic!("sim") };
+    let p = &sim.plant;
+    let r = p.mm_per_output_rev / 1000.0 / std::f64::consts::TAU / p.gear_ratio;
+    let to_duty = |f: f64| 100.0 * f * r * p.resistance_ohm / (p.torque_constant * p.supply_v);
+    let w = p.gravity_load_kg * servotty::sim::plant::STANDARD_GRAVITY;
+    let (up, down) = (to_duty(p.coulomb_friction_n + w), to_duty(p.coulomb_friction_n - w));
+    let (b_up, b_down) = servotty::sim::plant::breakaway_duties(p);
+    let req = servotty::commission::StepRequest::new(servotty::commission::TuneStep::Identify);
+    let out = servotty::commission::run(&h, &a, &req).await.expect("runs");
+    println!("{}", out.text);
+    assert!(out.ok, "{}", out.text);
+    let model = &out.result["model"];
+    assert!(out.result["r_squared"].as_f64().expect("R²") > 0.999, "{}", out.result);
+    let fwd = model["offset_pct"].as_f64().expect("offset");
+    let rev = model["offset_reverse_pct"].as_f64().expect("per direction");
+    assert!((fwd - up).abs() < 0.1 && (rev - down).abs() < 0.1, "{fwd} {rev} vs {up} {down}");
+    let bf = out.result["breakaway_forward_pct"].as_f64().expect("breakaway").abs();
+    let br = out.result["breakaway_reverse_pct"].as_f64().expect("breakaway").abs();
+    assert!((0.0..=0.1).contains(&(bf - 100.0 * b_up)), "{bf} vs {b_up}");
+    assert!((0.0..=0.1).contains(&(br - 100.0 * b_down)), "{br} vs {b_down}");
+    m.shutdown().await;
+}

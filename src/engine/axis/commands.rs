@@ -5,13 +5,16 @@ use std::time::Duration;
 use tokio::time::Instant;
 
 use super::core::AxisCore;
-use super::{ActiveProfile, AxisCommand, CommandError, JogKeys, Purpose, Reply};
+use super::motion::{
+    AfterStop, Driven, HomingDrive, JogRun, JogTap, Motion, MoveRun, Ramp, Run, StopRun,
+};
+use super::{AxisCommand, CommandError, Reply};
 use crate::control::{Limits, Profile};
 use crate::engine::events::EventKind;
 use crate::engine::experiment::{ExperimentBounds, ExperimentRun, ExperimentSpec};
 use crate::engine::homing::HomingRun;
 use crate::engine::refusal::{Asked, Refusal};
-use crate::engine::snapshot::{AxisState, TripCause};
+use crate::engine::snapshot::TripCause;
 
 /// Continuous jog without homing has no soft limit to run to; it aims this far away and
 /// relies on the operator's key (and the deadman) to stop it.
@@ -40,29 +43,26 @@ impl AxisCore {
     fn dispatch(&mut self, cmd: AxisCommand, now: Instant) -> (Result<Reply, CommandError>, bool) {
         let latched = self.stop.latched;
         match cmd {
-            AxisCommand::Enable => match self.state {
-                AxisState::Disabled if latched => {
-                    (Err(self.refuse(Refusal::StopAllLatched)), false)
-                }
-                AxisState::Disabled => {
-                    self.profile = None;
+            AxisCommand::Enable => match self.motion {
+                Motion::Disabled if latched => (Err(self.refuse(Refusal::StopAllLatched)), false),
+                Motion::Disabled => {
                     self.hold_here();
-                    self.state = AxisState::Steady;
+                    self.motion = Motion::Driven(Driven { drive: None, run: Run::Steady });
                     self.outside_limits = true;
                     (Ok(Reply::Done), false)
                 }
-                s if s.motor_on() => (Ok(Reply::Done), false),
-                s => (Err(self.refuse(Refusal::NotNow { asked: Asked::Enable, state: s })), false),
+                Motion::Driven(_) => (Ok(Reply::Done), false),
+                _ => {
+                    let state = self.state();
+                    (Err(self.refuse(Refusal::NotNow { asked: Asked::Enable, state })), false)
+                }
             },
             AxisCommand::Disable => {
-                let was_on = self.state.motor_on();
+                let was_on = self.motion.driven();
                 self.end_experiment(Some("disabled by the operator".to_owned()));
                 if was_on {
-                    self.state = AxisState::Disabled;
-                    self.profile = None;
-                    self.homing = None;
-                    self.duty_limit = None;
-                    self.jog = None;
+                    self.motion = Motion::Disabled;
+                    self.tap = None;
                 }
                 (Ok(Reply::Done), was_on)
             }
@@ -71,17 +71,18 @@ impl AxisCore {
             }
             AxisCommand::MoveWithin { goal, limits } => (self.start_move(goal, limits), false),
             AxisCommand::Stop => {
-                if self.state == AxisState::Trialing {
-                    self.end_experiment(Some("stopped by the operator".to_owned()));
+                // A trial stops like a move: from the speed it has now.
+                let tested = self.end_experiment(Some("stopped by the operator".to_owned()));
+                if tested {
                     self.setpoint.velocity = self.velocity;
-                    self.state = AxisState::Moving;
                 }
-                if matches!(self.state, AxisState::Moving | AxisState::Jogging | AxisState::Homing)
-                {
-                    self.homing = None;
-                    self.duty_limit = None;
-                    self.jog = None;
-                    self.begin_stop(Purpose::StopThenHold);
+                let moving = matches!(
+                    self.motion.run(),
+                    Some(Run::Moving(_) | Run::Jogging(_) | Run::Homing(_))
+                );
+                if tested || moving {
+                    self.tap = None;
+                    self.begin_stop(AfterStop::Hold);
                 }
                 (Ok(Reply::Done), false)
             }
@@ -92,9 +93,8 @@ impl AxisCore {
                 (self.jog_pulse(direction, speed, now), false)
             }
             AxisCommand::JogRelease => {
-                if self.state == AxisState::Jogging {
-                    self.jog = None;
-                    self.begin_stop(Purpose::StopThenHold);
+                if matches!(self.motion.run(), Some(Run::Jogging(_))) {
+                    self.begin_stop(AfterStop::Hold);
                 }
                 (Ok(Reply::Done), false)
             }
@@ -135,32 +135,29 @@ impl AxisCore {
             reason: None,
         });
         if !s.latched {
-            if self.state == AxisState::Stopped {
+            if matches!(self.motion, Motion::Stopped) {
                 // Releasing never restarts motion.
-                self.state = if self.link_up { AxisState::Disabled } else { AxisState::Offline };
+                self.motion = if self.link_up { Motion::Disabled } else { Motion::Offline };
             }
             return false;
         }
-        self.homing = None;
-        self.duty_limit = None;
-        self.jog = None;
-        if self.state == AxisState::Trialing {
-            self.end_experiment(Some("stop-all".to_owned()));
+        self.tap = None;
+        if self.end_experiment(Some("stop-all".to_owned())) {
             self.setpoint.velocity = self.velocity;
         }
-        match self.state {
-            AxisState::Offline | AxisState::Tripped | AxisState::Stopped => false,
-            AxisState::Disabled => {
-                self.state = AxisState::Stopped;
+        match self.motion {
+            Motion::Offline | Motion::Tripped(_) | Motion::Stopped => false,
+            Motion::Disabled => {
+                self.motion = Motion::Stopped;
                 false
             }
-            _ if s.category == 0 => {
-                self.state = AxisState::Stopped;
-                self.profile = None;
+            Motion::Driven(_) if s.category == 0 => {
+                self.motion = Motion::Stopped;
                 true
             }
-            _ => {
-                self.begin_stop(Purpose::StopThenOff);
+            // Homing, a jog or a move is dropped for the ramp.
+            Motion::Driven(_) => {
+                self.begin_stop(AfterStop::Off);
                 false
             }
         }
@@ -171,19 +168,28 @@ impl AxisCore {
     /// The ramp starts from the measured position (not the lagging setpoint) at the setpoint's
     /// velocity: a stop must cover the least ground, and the small step in the P term is the
     /// price of that.
-    pub(super) fn begin_stop(&mut self, purpose: Purpose) {
+    /// Only a driven axis stops this way; on any other it does nothing.
+    pub(super) fn begin_stop(&mut self, then: AfterStop) {
         let from = crate::control::Setpoint { position: self.position, ..self.setpoint };
         let profile = Profile::stop(from, Limits::of(&self.cfg.motion));
-        self.profile = Some(ActiveProfile { profile, t0: self.t, purpose });
+        let ramp = Ramp { profile, t0: self.t };
+        self.set_run(Run::Stopping(StopRun::Ramp { ramp, then }));
         self.goal = profile.goal();
-        self.state = AxisState::Stopping;
         self.moves.leave();
     }
 
+    /// A driven axis's motion becomes `run` (its drive goes on). An axis that is not
+    /// driven is left alone: only enable turns a motor on.
+    fn set_run(&mut self, run: Run) {
+        if let Some(r) = self.motion.run_mut() {
+            *r = run;
+        }
+    }
+
     fn require_motion_ready(&self, asked: Asked) -> Result<(), CommandError> {
-        match self.state {
-            AxisState::Steady | AxisState::Moving => Ok(()),
-            s => Err(self.refuse(Refusal::NotNow { asked, state: s })),
+        match self.motion.run() {
+            Some(Run::Steady | Run::Moving(_)) => Ok(()),
+            _ => Err(self.refuse(Refusal::NotNow { asked, state: self.state() })),
         }
     }
 
@@ -205,11 +211,12 @@ impl AxisCore {
     /// A profiled move whose completion waits for the in-position dwell.
     fn plan_move(&mut self, goal: f64, lim: Limits) {
         let profile = Profile::plan(self.setpoint, goal, lim);
-        self.profile = Some(ActiveProfile { profile, t0: self.t, purpose: Purpose::Move });
-        self.move_planned_end = self.t + profile.duration();
+        self.set_run(Run::Moving(MoveRun {
+            ramp: Some(Ramp { profile, t0: self.t }),
+            planned_end: self.t + profile.duration(),
+            settle_since: None,
+        }));
         self.goal = goal;
-        self.state = AxisState::Moving;
-        self.settle_since = None;
         self.moves.start(self.t);
     }
 
@@ -280,82 +287,83 @@ impl AxisCore {
         let window = Duration::from_secs_f64(self.cfg.jog.repeat_window_s);
         let deadman = Duration::from_secs_f64(self.cfg.jog.deadman_s);
         let dir = f64::from(direction.signum());
-        match self.jog {
-            // A repeat of the same key: start or keep up continuous motion.
-            Some(j)
-                if j.direction == direction
-                    && (j.deadman.is_some() || now.duration_since(j.first_at) <= window) =>
-            {
-                if j.deadman.is_none() || self.state != AxisState::Jogging {
-                    self.require_jog_ready()?;
-                    let reach = self.jog_reach(dir);
-                    if (reach - self.position) * dir <= 0.0 {
-                        self.jog = None;
-                        return Err(self.refuse(Refusal::AtSoftLimit));
-                    }
-                    let lim = Limits::of(&self.cfg.motion).slower(self.jog_speed(speed));
-                    let profile = Profile::plan(self.setpoint, reach, lim);
-                    self.profile =
-                        Some(ActiveProfile { profile, t0: self.t, purpose: Purpose::Jog });
-                    self.goal = reach;
-                    self.state = AxisState::Jogging;
-                    self.moves.leave();
-                }
-                self.jog =
-                    Some(JogKeys { direction, first_at: j.first_at, deadman: Some(now + deadman) });
-                Ok(Reply::Done)
+        // A repeat of the held key: keep continuous motion up...
+        if let Some(Run::Jogging(j)) = self.motion.run_mut() {
+            if j.direction == direction {
+                j.deadman = now + deadman;
+                return Ok(Reply::Done);
             }
-            // A first press (or a new direction): a short step, so a tap moves a little and a
-            // held key does not run on through the terminal's auto-repeat delay.
-            _ => {
-                self.require_jog_ready()?;
-                if self.state == AxisState::Jogging {
-                    self.begin_stop(Purpose::StopThenHold);
-                    self.jog = None;
-                    return Ok(Reply::Done);
-                }
-                let step = self.cfg.jog.first_step * dir;
-                let reach = self.jog_reach(dir);
-                let capped = self.step_goal(step);
-                let goal = if dir > 0.0 { capped.min(reach) } else { capped.max(reach) };
-                self.jog = Some(JogKeys { direction, first_at: now, deadman: None });
-                if (goal - self.goal) * dir > f64::EPSILON {
-                    self.plan_move(
-                        goal,
-                        Limits::of(&self.cfg.motion).slower(self.jog_speed(speed)),
-                    );
-                }
-                Ok(Reply::Done)
+        } else if self
+            .tap
+            .is_some_and(|t| t.direction == direction && now.duration_since(t.first_at) <= window)
+        {
+            // ...or start it: the first press's key came again within the window.
+            self.require_jog_ready()?;
+            let reach = self.jog_reach(dir);
+            if (reach - self.position) * dir <= 0.0 {
+                self.tap = None;
+                return Err(self.refuse(Refusal::AtSoftLimit));
             }
+            let lim = Limits::of(&self.cfg.motion).slower(self.jog_speed(speed));
+            let profile = Profile::plan(self.setpoint, reach, lim);
+            let ramp = Ramp { profile, t0: self.t };
+            self.set_run(Run::Jogging(JogRun { ramp, direction, deadman: now + deadman }));
+            self.tap = None;
+            self.goal = reach;
+            self.moves.leave();
+            return Ok(Reply::Done);
         }
+        // A first press (or a new direction): a short step, so a tap moves a little and a
+        // held key does not run on through the terminal's auto-repeat delay.
+        self.require_jog_ready()?;
+        if matches!(self.motion.run(), Some(Run::Jogging(_))) {
+            self.begin_stop(AfterStop::Hold);
+            return Ok(Reply::Done);
+        }
+        let step = self.cfg.jog.first_step * dir;
+        let reach = self.jog_reach(dir);
+        let capped = self.step_goal(step);
+        let goal = if dir > 0.0 { capped.min(reach) } else { capped.max(reach) };
+        self.tap = Some(JogTap { direction, first_at: now });
+        if (goal - self.goal) * dir > f64::EPSILON {
+            self.plan_move(goal, Limits::of(&self.cfg.motion).slower(self.jog_speed(speed)));
+        }
+        Ok(Reply::Done)
     }
 
+    /// A jog may start while steady, moving, jogging or in an operator's stop (a tap during
+    /// the deceleration), never during a stop that ends with power off: that is stop-all's,
+    /// and a jog would turn it back into motion with stop-all still latched.
     fn require_jog_ready(&self) -> Result<(), CommandError> {
-        match self.state {
-            AxisState::Steady | AxisState::Moving | AxisState::Jogging | AxisState::Stopping => {
-                Ok(())
+        match self.motion.run() {
+            Some(Run::Steady | Run::Moving(_) | Run::Jogging(_)) => Ok(()),
+            Some(Run::Stopping(StopRun::Ramp { then: AfterStop::Hold, .. })) => Ok(()),
+            Some(Run::Stopping(_)) if self.stop.latched => {
+                Err(self.refuse(Refusal::StopAllLatched))
             }
-            s => Err(self.refuse(Refusal::NotNow { asked: Asked::Jog, state: s })),
+            _ => Err(self.refuse(Refusal::NotNow { asked: Asked::Jog, state: self.state() })),
         }
     }
 
     fn start_homing(&mut self) -> Result<Reply, CommandError> {
-        match self.state {
-            AxisState::Steady => {}
-            AxisState::Homing => return Ok(Reply::Done),
-            s => return Err(self.refuse(Refusal::NotNow { asked: Asked::Home, state: s })),
+        match self.motion.run() {
+            Some(Run::Steady) => {}
+            Some(Run::Homing(_)) => return Ok(Reply::Done),
+            _ => {
+                let state = self.state();
+                return Err(self.refuse(Refusal::NotNow { asked: Asked::Home, state }));
+            }
         }
         let min_speed =
             (200.0 / self.cfg.scale.counts_per_unit).max(0.02 * self.cfg.motion.max_velocity);
-        self.homing = Some(HomingRun::new(
+        let run = HomingRun::new(
             &self.cfg.homing,
             &self.cfg.scale.unit,
             min_speed.min(0.5 * self.cfg.homing.touch_speed),
             self.cfg.limits.following_error,
-        ));
+        );
+        self.set_run(Run::Homing(Box::new(HomingDrive { run, ramp: None, duty_limit: None })));
         self.homed = false;
-        self.profile = None;
-        self.state = AxisState::Homing;
         self.moves.start(self.t);
         Ok(Reply::Done)
     }
@@ -365,8 +373,8 @@ impl AxisCore {
         spec: ExperimentSpec,
         bounds: ExperimentBounds,
     ) -> Result<Reply, CommandError> {
-        if self.state != AxisState::Steady {
-            return Err(self.refuse(Refusal::NotNow { asked: Asked::Trial, state: self.state }));
+        if !matches!(self.motion.run(), Some(Run::Steady)) {
+            return Err(self.refuse(Refusal::NotNow { asked: Asked::Trial, state: self.state() }));
         }
         let positive = |v: f64| v.is_finite() && v > 0.0;
         if !positive(bounds.travel) || !positive(bounds.seconds) {
@@ -375,32 +383,29 @@ impl AxisCore {
             );
         }
         self.experiment_result = None;
-        self.experiment =
-            Some(ExperimentRun::new(spec, bounds, self.position, self.count, &self.cfg.scale.unit));
-        self.profile = None;
-        self.state = AxisState::Trialing;
+        let run = ExperimentRun::new(spec, bounds, self.position, self.count, &self.cfg.scale.unit);
+        self.set_run(Run::Trialing(Box::new(run)));
         self.moves.leave();
         Ok(Reply::Done)
     }
 
     fn clear_trip(&mut self) -> Result<Reply, CommandError> {
-        let Some(trip) = &self.trip else { return Ok(Reply::Done) };
+        let Some(trip) = self.motion.trip() else { return Ok(Reply::Done) };
         if trip.cause == TripCause::LinkLoss && !self.link_up {
             return Err(self.refuse(Refusal::LinkStillDown));
         }
-        self.trip = None;
-        self.profile = None;
         self.goal = self.position;
         self.setpoint.position = self.position;
         self.setpoint.velocity = 0.0;
         self.setpoint.acceleration = 0.0;
         self.supervisor.reset();
-        self.state = if !self.link_up {
-            AxisState::Offline
+        // The trip record goes with the state.
+        self.motion = if !self.link_up {
+            Motion::Offline
         } else if self.stop.latched {
-            AxisState::Stopped
+            Motion::Stopped
         } else {
-            AxisState::Disabled
+            Motion::Disabled
         };
         Ok(Reply::Done)
     }

@@ -14,16 +14,15 @@ use std::sync::Arc;
 use tokio::time::Instant;
 
 use super::handle::{AxisCommand, CommandError, Reply, StopAll};
+use super::motion::{Drive, JogTap, Motion};
 use super::move_stats::MoveStats;
-use super::{ActiveProfile, JogKeys};
 use crate::config::AxisConfig;
 use crate::control::{Controller, Setpoint};
 use crate::engine::events::EventKind;
-use crate::engine::experiment::{ExperimentResult, ExperimentRun};
+use crate::engine::experiment::ExperimentResult;
 use crate::engine::history::History;
-use crate::engine::homing::HomingRun;
 use crate::engine::link_quality::LinkQuality;
-use crate::engine::snapshot::{AxisSnapshot, AxisState, Trip, TripCause};
+use crate::engine::snapshot::{AxisSnapshot, AxisState, TripCause};
 use crate::engine::supervisor::Supervisor;
 use crate::protocol::{self, HostMessage, Telemetry};
 
@@ -41,46 +40,16 @@ impl Output {
     const NOTHING: Self = Self { send: None, ticks: 0 };
 }
 
-/// A stretch of duty answers, from the first Duty after Stop answers.
-#[derive(Debug, Clone, Copy)]
-pub(super) struct Drive {
-    /// Seq echoed by the first duty answer.
-    pub(super) since_seq: u16,
-    /// The board showed its motor on with an `ack_seq` of this drive: from then on a motor
-    /// it reports off is a trip.
-    pub(super) confirmed: bool,
-    /// Board ticks since the drive began.
-    pub(super) ticks: u32,
-}
-
-impl Drive {
-    /// Feeds one frame; true once the board's status counts: confirmed (motor on with an
-    /// ack of this drive), or never confirmed within `grace_ticks` (a board that ignores its
-    /// duty is as wrong as one that drops it). An ack alone is not proof: after Configure
-    /// the board's ack_seq starts at 0, which a drive beginning at seq 0 would match.
-    pub(super) fn frame(
-        &mut self,
-        ack_seq: u16,
-        motor_on: bool,
-        ticks: u32,
-        grace_ticks: u32,
-    ) -> bool {
-        self.ticks = self.ticks.saturating_add(ticks);
-        let acked = ack_seq.wrapping_sub(self.since_seq) < u16::MAX / 2;
-        self.confirmed |= acked && motor_on;
-        self.confirmed || self.ticks > grace_ticks
-    }
-}
-
 /// One axis's state and decisions.
 pub struct AxisCore {
     pub(super) cfg: AxisConfig,
     pub(super) name: Arc<str>,
     pub(super) controller: Controller,
     pub(super) supervisor: Supervisor,
-    pub(super) state: AxisState,
-    pub(super) trip: Option<Trip>,
-    pub(super) profile: Option<ActiveProfile>,
+    /// The motion state with the data only that state has (motion.rs).
+    pub(super) motion: Motion,
+    /// A first jog press waiting for its repeat (never kept while jogging).
+    pub(super) tap: Option<JogTap>,
     pub(super) setpoint: Setpoint,
     pub(super) goal: f64,
     /// Host-side unwrapped count.
@@ -91,11 +60,7 @@ pub struct AxisCore {
     /// Set when the motor comes on (or homing ends); cleared once the position is inside the
     /// soft limits. While set, the soft-limit rule is off so the axis can be brought back in.
     pub(super) outside_limits: bool,
-    pub(super) homing: Option<HomingRun>,
-    /// Extra |duty| limit while homing pushes into an end stop, %.
-    pub(super) duty_limit: Option<f64>,
-    pub(super) jog: Option<JogKeys>,
-    pub(super) experiment: Option<ExperimentRun>,
+    /// The last finished test's result, until it is taken.
     pub(super) experiment_result: Option<Box<ExperimentResult>>,
     pub(super) position: f64,
     pub(super) velocity: f64,
@@ -109,14 +74,7 @@ pub struct AxisCore {
     pub(super) stop: StopAll,
     /// Duty commanded for the interval now running, %.
     pub(super) duty: f64,
-    /// In-position dwell (moves) or standstill wait (category 1 stop) started at, board s.
-    pub(super) settle_since: Option<f64>,
     pub(super) moves: MoveStats,
-    /// Board time the running move's profile ends, s (for the not-in-position rule).
-    pub(super) move_planned_end: f64,
-    /// The present drive (None while the answers are Stop): whether the board has confirmed
-    /// it, which is when its status bits start to count.
-    pub(super) drive: Option<Drive>,
     /// Bad and missed frames over the last second, for link-quality events.
     quality: LinkQuality,
     pub(super) history: History,
@@ -141,19 +99,14 @@ impl AxisCore {
             cfg,
             controller,
             supervisor,
-            state: AxisState::Offline,
-            trip: None,
-            profile: None,
+            motion: Motion::Offline,
+            tap: None,
             setpoint: Setpoint::default(),
             goal: 0.0,
             count: 0,
             offset: 0.0,
             homed: false,
             outside_limits: true,
-            homing: None,
-            duty_limit: None,
-            jog: None,
-            experiment: None,
             experiment_result: None,
             position: 0.0,
             velocity: 0.0,
@@ -163,10 +116,7 @@ impl AxisCore {
             link_up: false,
             stop,
             duty: 0.0,
-            settle_since: None,
             moves: MoveStats::default(),
-            move_planned_end: 0.0,
-            drive: None,
             quality: LinkQuality::new(tick_hz),
             history,
             events: Vec::new(),
@@ -185,7 +135,7 @@ impl AxisCore {
 
     /// The motion state.
     pub fn state(&self) -> AxisState {
-        self.state
+        self.motion.state()
     }
 
     /// Board time, s.
@@ -201,11 +151,9 @@ impl AxisCore {
             self.event(e);
         }
         let send = self.answer();
-        match send {
-            HostMessage::Duty { seq, .. } => {
-                self.drive.get_or_insert(Drive { since_seq: seq, confirmed: false, ticks: 0 });
-            }
-            _ => self.drive = None,
+        // A Duty answer goes out only while driven; a Stop ends any drive with the motion.
+        if let (HostMessage::Duty { seq, .. }, Some(slot)) = (send, self.motion.drive_slot()) {
+            slot.get_or_insert(Drive { since_seq: seq, confirmed: false, ticks: 0 });
         }
         Output { send: Some(send), ticks }
     }
@@ -238,8 +186,8 @@ impl AxisCore {
         self.last = None;
         self.quality = LinkQuality::new(self.cfg.board.tick_hz);
         self.event(EventKind::Link { up: true, detail });
-        if self.state == AxisState::Offline {
-            self.state = if self.stop.latched { AxisState::Stopped } else { AxisState::Disabled };
+        if matches!(self.motion, Motion::Offline) {
+            self.motion = if self.stop.latched { Motion::Stopped } else { Motion::Disabled };
         }
     }
 
@@ -270,8 +218,8 @@ impl AxisCore {
         self.link_up = false;
         self.last = None;
         self.event(EventKind::Link { up: false, detail: why.to_owned() });
-        if self.trip.is_none() && self.state != AxisState::Offline {
-            let was_on = self.state.motor_on();
+        if !matches!(self.motion, Motion::Tripped(_) | Motion::Offline) {
+            let was_on = self.motion.driven();
             self.latch_trip(
                 TripCause::LinkLoss,
                 format!(
@@ -285,7 +233,9 @@ impl AxisCore {
     /// Stop, at once: the duty is zero from now on (disable, stop-all category 0, shutdown).
     pub fn motor_off(&mut self) -> Output {
         self.duty = 0.0;
-        self.drive = None;
+        if let Some(slot) = self.motion.drive_slot() {
+            *slot = None;
+        }
         Output { send: Some(HostMessage::Stop { seq: self.echo_seq() }), ticks: 0 }
     }
 
@@ -294,7 +244,7 @@ impl AxisCore {
     /// ticks (docs/protocol.md).
     pub fn answer(&self) -> HostMessage {
         let seq = self.echo_seq();
-        if self.state.motor_on() {
+        if self.motion.driven() {
             let sign = if self.cfg.scale.invert_motor { -1.0 } else { 1.0 };
             let full = f64::from(protocol::DUTY_FULL_SCALE);
             let wire = (sign * self.duty / 100.0 * full).round().clamp(-full, full) as i16;
@@ -321,7 +271,7 @@ impl AxisCore {
 
     /// Writes the core's part of the snapshot (everything but the link's figures).
     pub fn fill_snapshot(&self, s: &mut AxisSnapshot) {
-        s.state = self.state;
+        s.state = self.motion.state();
         s.homed = self.homed;
         s.position = self.position;
         s.target = self.setpoint.position;
@@ -330,8 +280,9 @@ impl AxisCore {
         s.following_error = self.setpoint.position - self.position;
         s.following_error_band = self.supervisor.following_error_band(self.setpoint.velocity);
         s.duty = self.duty;
-        if s.trip != self.trip {
-            s.trip.clone_from(&self.trip);
+        let trip = self.motion.trip();
+        if s.trip.as_ref() != trip {
+            s.trip = trip.cloned();
         }
         s.board_time_s = self.t;
         s.stop_latched = self.stop.latched;
@@ -349,20 +300,25 @@ mod tests {
     //! demo gantry's X axis (configs/demo-greenhouse.toml, invented numbers) is the subject.
     use std::time::Duration;
 
+    use super::super::motion::{AfterStop, Run, StopRun};
     use super::*;
     use crate::config::MachineConfig;
     use crate::engine::experiment::{ExperimentBounds, ExperimentSpec};
+    use crate::engine::refusal::Refusal;
 
     /// A board standing still at `count`, streaming at the configured tick.
     struct Frames {
         seq: u16,
         time_us: u32,
         tick_us: u32,
+        /// Status bits the next frames carry.
+        status: u8,
     }
 
     impl Frames {
         fn new(core: &AxisCore) -> Self {
-            Self { seq: 0, time_us: 0, tick_us: 1_000_000 / u32::from(core.cfg.board.tick_hz) }
+            let tick_us = 1_000_000 / u32::from(core.cfg.board.tick_hz);
+            Self { seq: 0, time_us: 0, tick_us, status: 0 }
         }
 
         fn next(&mut self, count: i32) -> Telemetry {
@@ -371,11 +327,22 @@ mod tests {
                 board_time_us: self.time_us,
                 count,
                 inputs: 0,
-                status: 0,
+                status: self.status,
                 ack_seq: 0,
             };
             self.seq = self.seq.wrapping_add(1);
             self.time_us = self.time_us.wrapping_add(self.tick_us);
+            tm
+        }
+
+        /// The next frame of a board that applies what the host answered (motor on with an
+        /// ack of the previous answer while the core drives).
+        fn applied(&mut self, core: &AxisCore, count: i32) -> Telemetry {
+            let mut tm = self.next(count);
+            if core.motion.driven() {
+                tm.status |= crate::protocol::status::MOTOR_ON;
+                tm.ack_seq = tm.seq.wrapping_sub(1);
+            }
             tm
         }
     }
@@ -521,17 +488,206 @@ mod tests {
         assert_ne!(core.state(), AxisState::Trialing, "the steps and settle time have passed");
     }
 
-    // The board's fresh ack_seq after Configure is 0, the same number a drive that begins
-    // with frame 0 echoes: only the motor-on bit with that ack proves the duty arrived.
+    // ---- Transitions carry their own data (motion.rs): what a state leaves behind. ----
+
+    /// Holding, and homed by declaration (a test shortcut: moves need a homed axis).
+    fn homed_x(stop_category: u8) -> (AxisCore, Frames, Instant) {
+        let (mut core, f, now) = holding_x(stop_category);
+        core.homed = true;
+        (core, f, now)
+    }
+
+    /// The raw count of a board whose axis follows the host's setpoint exactly (a perfect
+    /// drive, one tick late), up to an end stop at raw count `stop` on the positive side.
+    fn following(core: &AxisCore, stop: i32) -> i32 {
+        let raw = (core.setpoint.position - core.offset) * core.cfg.scale.counts_per_unit;
+        (raw.round() as i32).min(stop)
+    }
+
     #[test]
-    fn a_drive_counts_once_the_board_shows_it_applied_or_after_the_grace() {
-        let mut d = Drive { since_seq: 0, confirmed: false, ticks: 0 };
-        assert!(!d.frame(0, false, 1, 100), "ack 0 before any duty arrived");
-        assert!(d.frame(0, true, 1, 100), "motor on with the drive's ack");
-        assert!(d.frame(5, false, 1, 100), "confirmed: a motor off now counts");
-        let mut d = Drive { since_seq: 7, confirmed: false, ticks: 0 };
-        assert!(!d.frame(6, true, 1, 100), "an older duty's ack is not this drive's");
-        assert!(!d.frame(6, false, 99, 100));
-        assert!(d.frame(6, false, 1, 100), "never applied within the grace");
+    fn a_stop_during_a_move_keeps_nothing_of_the_move() {
+        let (mut core, mut f, now) = homed_x(1);
+        let l = &core.cfg.limits;
+        let goal = (l.soft_min + 0.25 * (l.soft_max - l.soft_min)).max(l.soft_min + 1.0);
+        core.command(AxisCommand::MoveTo(goal), now).0.expect("moves");
+        let Some(Run::Moving(m)) = core.motion.run() else { panic!("{:?}", core.motion) };
+        assert!(m.ramp.is_some() && m.planned_end > core.t && m.settle_since.is_none());
+        for _ in 0..5 {
+            let tm = f.applied(&core, following(&core, i32::MAX));
+            core.on_frame(&tm, now);
+        }
+        core.command(AxisCommand::Stop, now).0.expect("stops");
+        // The stop holds its own ramp and what follows it; the move's goal, planned end and
+        // dwell timer are gone with the move.
+        let Some(Run::Stopping(StopRun::Ramp { ramp, then })) = core.motion.run() else {
+            panic!("{:?}", core.motion)
+        };
+        assert_eq!(*then, AfterStop::Hold);
+        assert_eq!(core.goal, ramp.profile.goal());
+        assert!((core.goal - goal).abs() > 1.0, "the stop aims near here, not at the goal");
+        for _ in 0..2000 {
+            if core.state() == AxisState::Steady {
+                break;
+            }
+            let tm = f.applied(&core, following(&core, i32::MAX));
+            core.on_frame(&tm, now);
+        }
+        assert_eq!(core.state(), AxisState::Steady);
+        assert_eq!(core.moves.moves_done, 0, "the stopped move never arrived");
+        assert!(!core.moves.in_position);
+    }
+
+    #[test]
+    fn clearing_a_trip_leaves_no_trip_data() {
+        let (mut core, mut f, now) = holding_x(1);
+        core.on_frame(&f.next(0), now);
+        core.on_frame(&f.next(core.cfg.limits.encoder_jump_counts as i32 * 10), now);
+        let cause = core.motion.trip().map(|t| t.cause);
+        assert_eq!(cause, Some(TripCause::EncoderJump));
+        let mut snap = AxisSnapshot::offline("x", "mm");
+        core.fill_snapshot(&mut snap);
+        assert!(snap.trip.is_some());
+        assert_eq!(core.command(AxisCommand::ClearTrip, now).0, Ok(Reply::Done));
+        assert!(matches!(core.motion, Motion::Disabled), "{:?}", core.motion);
+        assert!(core.motion.trip().is_none());
+        core.fill_snapshot(&mut snap);
+        assert_eq!((snap.state, snap.trip), (AxisState::Disabled, None));
+        // Enabled again, it holds where it is with no drive left over from before the trip.
+        core.command(AxisCommand::Enable, now).0.expect("enables");
+        assert!(core.motion.drive().is_none());
+    }
+
+    /// The demo's lift (z) homes by pushing into its top stop (configs/demo-greenhouse.toml).
+    fn holding_z() -> (AxisCore, Frames, Instant) {
+        let cfg = MachineConfig::demo().expect("demo").axes[2].clone();
+        assert_eq!(cfg.homing.method, crate::config::HomingMethod::HardStop);
+        let mut core = AxisCore::new(cfg, 1.0, StopAll { latched: false, category: 1 });
+        core.link_up("test link".to_owned());
+        let mut f = Frames::new(&core);
+        let now = Instant::now();
+        core.on_frame(&f.next(0), now);
+        core.command(AxisCommand::Enable, now).0.expect("enables");
+        (core, f, now)
+    }
+
+    #[test]
+    fn a_homing_duty_limit_lives_and_ends_with_homing() {
+        let (mut core, mut f, now) = holding_z();
+        // The end stop 3 mm above the start.
+        let stop = (3.0 * core.cfg.scale.counts_per_unit) as i32;
+        let hard_stop_duty = core.cfg.homing.hard_stop_duty;
+        core.command(AxisCommand::Home, now).0.expect("homes");
+        let mut limited = false;
+        for _ in 0..5000 {
+            if core.state() != AxisState::Homing {
+                break;
+            }
+            let tm = f.applied(&core, following(&core, stop));
+            core.on_frame(&tm, now);
+            if let Some(lim) = core.motion.duty_limit() {
+                limited = true;
+                assert_eq!(lim, hard_stop_duty);
+                assert!(core.duty.abs() <= lim + 1e-9, "duty {} over the limit", core.duty);
+            }
+        }
+        assert!(limited, "the push ran under the homing duty limit");
+        assert_eq!(core.state(), AxisState::Steady, "{:?}", core.motion.trip());
+        assert!(core.homed);
+        assert!(core.motion.homing().is_none() && core.motion.duty_limit().is_none());
+    }
+
+    #[test]
+    fn stopping_homing_drops_its_run_and_duty_limit() {
+        let (mut core, mut f, now) = holding_z();
+        core.command(AxisCommand::Home, now).0.expect("homes");
+        core.on_frame(&f.next(0), now);
+        assert_eq!(core.motion.duty_limit(), Some(core.cfg.homing.hard_stop_duty));
+        core.command(AxisCommand::Stop, now).0.expect("stops");
+        assert_eq!(core.state(), AxisState::Stopping);
+        assert!(core.motion.homing().is_none() && core.motion.duty_limit().is_none());
+        assert!(!core.homed, "a stopped homing run homes nothing");
+    }
+
+    #[test]
+    fn a_held_jog_key_lives_in_the_jog_and_a_tap_expires_on_its_own() {
+        let (mut core, mut f, t0) = holding_x(1);
+        let pulse = AxisCommand::JogPulse { direction: 1, speed: 5.0 };
+        core.command(pulse.clone(), t0).0.expect("first press");
+        assert!(core.tap.is_some(), "a first press waits for its repeat");
+        assert_eq!(core.state(), AxisState::Moving, "a tap is a short step");
+        let repeat = t0 + Duration::from_secs_f64(core.cfg.jog.repeat_window_s / 2.0);
+        core.command(pulse, repeat).0.expect("repeat");
+        let Some(Run::Jogging(j)) = core.motion.run() else { panic!("{:?}", core.motion) };
+        assert_eq!(j.direction, 1);
+        assert!(j.deadman > repeat);
+        assert!(core.tap.is_none(), "while jogging the key lives in the jog");
+        core.command(AxisCommand::JogRelease, repeat).0.expect("release");
+        assert_eq!(core.state(), AxisState::Stopping);
+        assert!(core.tap.is_none());
+        // A tap in the other direction while the release ramp runs, then no repeat: once its
+        // window has passed the key memory is gone.
+        let tap = AxisCommand::JogPulse { direction: -1, speed: 5.0 };
+        core.command(tap, repeat).0.expect("a tap during an operator's stop");
+        assert!(core.tap.is_some());
+        let late = repeat + Duration::from_secs_f64(core.cfg.jog.repeat_window_s * 2.0);
+        core.on_frame(&f.next(0), late);
+        assert!(core.tap.is_none());
+    }
+
+    #[test]
+    fn a_jog_press_cannot_turn_a_stop_all_ramp_back_into_motion() {
+        let (mut core, mut f, now) = homed_x(1);
+        core.stop_all(StopAll { latched: true, category: 1 });
+        let Some(Run::Stopping(StopRun::Ramp { then, .. })) = core.motion.run() else {
+            panic!("{:?}", core.motion)
+        };
+        assert_eq!(*then, AfterStop::Off);
+        let press = AxisCommand::JogPulse { direction: 1, speed: 5.0 };
+        let (answer, _) = core.command(press, now);
+        assert!(
+            matches!(answer, Err(CommandError::Refused { reason: Refusal::StopAllLatched, .. })),
+            "{answer:?}"
+        );
+        assert_eq!(core.state(), AxisState::Stopping);
+        for _ in 0..300 {
+            core.on_frame(&f.next(0), now);
+        }
+        assert_eq!(core.state(), AxisState::Stopped);
+    }
+
+    #[test]
+    fn stop_all_released_during_its_ramp_ends_disabled_not_stuck_stopped() {
+        let (mut core, mut f, now) = holding_x(1);
+        core.stop_all(StopAll { latched: true, category: 1 });
+        assert_eq!(core.state(), AxisState::Stopping);
+        core.stop_all(StopAll { latched: false, category: 1 });
+        assert_eq!(core.state(), AxisState::Stopping, "the stop runs to its end");
+        for _ in 0..300 {
+            core.on_frame(&f.next(0), now);
+        }
+        assert_eq!(core.state(), AxisState::Disabled);
+        assert!(matches!(core.answer(), HostMessage::Stop { .. }));
+        assert_eq!(core.command(AxisCommand::Enable, now).0, Ok(Reply::Done));
+    }
+
+    #[test]
+    fn a_trip_during_a_test_files_the_test_and_keeps_only_the_trip() {
+        let (mut core, mut f, now) = holding_x(1);
+        let spec = ExperimentSpec::DutySteps { steps: vec![(10.0, 1.0)], settle_s: 0.5 };
+        let bounds = ExperimentBounds { travel: 1.0, seconds: 2.0 };
+        core.command(AxisCommand::Experiment { spec, bounds }, now).0.expect("starts");
+        for _ in 0..3 {
+            core.on_frame(&f.next(0), now);
+        }
+        assert!(matches!(core.motion.run(), Some(Run::Trialing(_))));
+        f.status = crate::protocol::status::DRIVER_FAULT;
+        core.on_frame(&f.next(0), now);
+        assert_eq!(core.motion.trip().map(|t| t.cause), Some(TripCause::BoardFault));
+        let Ok(Reply::Experiment(Some(result))) = core.command(AxisCommand::TakeExperiment, now).0
+        else {
+            panic!("the cut-short test is filed")
+        };
+        assert!(result.aborted.as_deref().is_some_and(|w| w.starts_with("trip")), "{result:?}");
+        assert!(!result.samples.is_empty());
     }
 }

@@ -4,7 +4,7 @@
 use tokio::time::Instant;
 
 use super::core::AxisCore;
-use super::{ActiveProfile, Purpose};
+use super::motion::{AfterStop, Motion, Ramp, Run, StopRun};
 use crate::control::{Limits, Profile, Setpoint};
 use crate::engine::events::EventKind;
 use crate::engine::experiment::Drive;
@@ -58,11 +58,11 @@ impl AxisCore {
         let mut saturated = false;
         if let Some(duty) = open_loop {
             self.duty = duty;
-        } else if self.state.motor_on() {
+        } else if self.motion.driven() {
             let mut u = self.controller.update(&self.setpoint, self.position, dt);
             terms = self.controller.terms();
             saturated = terms.unsaturated != terms.saturated;
-            if let Some(lim) = self.duty_limit {
+            if let Some(lim) = self.motion.duty_limit() {
                 saturated |= u.abs() > lim;
                 u = u.clamp(-lim, lim);
             }
@@ -73,13 +73,13 @@ impl AxisCore {
             self.goal = self.position;
         }
         let fe = self.setpoint.position - self.position;
-        if matches!(self.state, AxisState::Moving | AxisState::Homing) {
+        if matches!(self.motion.run(), Some(Run::Moving(_) | Run::Homing(_))) {
             self.moves.observe(fe);
         }
         // Pushing into an end stop is the point of hard-stop homing, and open-loop tests
         // drive duty with no target: the following-error, stall and runaway rules would
         // fire on purpose, so only the encoder rule stays on (their own bounds apply).
-        let pushing = self.homing.as_ref().is_some_and(|h| h.pushing()) || open_loop.is_some();
+        let pushing = self.motion.homing().is_some_and(|h| h.run.pushing()) || open_loop.is_some();
         // An axis that starts outside its soft limits (home set beyond one, or enabled where
         // it was pushed by hand) must be allowed back in: the limit rule waits until the
         // position is inside once; moves and jogs can only head inwards meanwhile.
@@ -87,14 +87,19 @@ impl AxisCore {
             let l = &self.cfg.limits;
             self.outside_limits = !(l.soft_min..=l.soft_max).contains(&self.position);
         }
-        let trialing = self.state == AxisState::Trialing;
-        let host_drives = self.state.motor_on() && self.drive.is_some();
+        let state = self.motion.state();
+        let trialing = state == AxisState::Trialing;
+        let motor_on = self.motion.driven();
+        let host_drives = self.motion.drive().is_some();
         // The board's status counts once it has shown this drive applied (wrapping seq
         // arithmetic for the ack, docs/protocol.md), or after a grace of a link timeout.
         let grace = (self.cfg.limits.link_timeout_s * f64::from(self.cfg.board.tick_hz)) as u32;
         let board_on = tm.status & status::MOTOR_ON != 0;
-        let drive_acked =
-            self.drive.as_mut().is_some_and(|d| d.frame(tm.ack_seq, board_on, ticks, grace));
+        let drive_acked = self
+            .motion
+            .drive_slot()
+            .and_then(Option::as_mut)
+            .is_some_and(|d| d.frame(tm.ack_seq, board_on, ticks, grace));
         let c = &self.cfg.controller;
         let obs = Observation {
             t: self.t,
@@ -106,10 +111,10 @@ impl AxisCore {
             count: self.count,
             count_delta: delta,
             ticks,
-            motor_on: self.state.motor_on() && !pushing,
+            motor_on: motor_on && !pushing,
             limits_active: self.homed
                 && !self.outside_limits
-                && !matches!(self.state, AxisState::Homing | AxisState::Trialing),
+                && !matches!(state, AxisState::Homing | AxisState::Trialing),
             following_active: !trialing,
             host_drives,
             drive_acked,
@@ -117,11 +122,13 @@ impl AxisCore {
             board_watchdog: tm.status & status::WATCHDOG_TRIPPED != 0,
             breakaway: if applied >= 0.0 { c.min_duty_forward } else { c.min_duty_reverse },
             position_band: self.cfg.motion.in_position_band,
-            move_planned_end: (self.state == AxisState::Moving && !self.moves.in_position)
-                .then_some(self.move_planned_end),
+            move_planned_end: match self.motion.run() {
+                Some(Run::Moving(m)) if !self.moves.in_position => Some(m.planned_end),
+                _ => None,
+            },
             watchdog_ms: self.cfg.board.watchdog_ms,
         };
-        if self.state.motor_on() && tm.status & status::DRIVER_FAULT != 0 {
+        if motor_on && tm.status & status::DRIVER_FAULT != 0 {
             // Its own cause, ahead of the motor-off rule the fault also sets off.
             self.latch_trip(TripCause::BoardFault, "the board reports a driver fault".to_owned());
         } else if let Some(f) = self.supervisor.observe(&obs) {
@@ -136,7 +143,7 @@ impl AxisCore {
             following_error: self.setpoint.position - self.position,
             duty: self.duty,
             velocity: self.velocity,
-            state: self.state,
+            state: self.motion.state(),
             count: self.count,
             board_time_us: tm.board_time_us,
             missed_frames: ticks.saturating_sub(1),
@@ -152,7 +159,7 @@ impl AxisCore {
             saturated,
         };
         self.history.push(sample);
-        if let Some(run) = self.experiment.as_mut() {
+        if let Some(Run::Trialing(run)) = self.motion.run_mut() {
             run.record(sample);
         }
         ticks
@@ -160,10 +167,7 @@ impl AxisCore {
 
     /// Feeds a running experiment. Returns the open-loop duty to apply, if it gives one.
     fn step_experiment(&mut self) -> Option<f64> {
-        if self.state != AxisState::Trialing {
-            return None;
-        }
-        let run = self.experiment.as_mut()?;
+        let Some(Run::Trialing(run)) = self.motion.run_mut() else { return None };
         match run.drive(self.t, self.position, self.count) {
             Drive::Duty(d) => {
                 let lim = self.cfg.controller.max_duty;
@@ -179,11 +183,10 @@ impl AxisCore {
             }
             Drive::Done | Drive::Abort => {
                 let closed = run.spec_closed_loop();
+                // Files the result; the axis is steady from here: a closed-loop step's end
+                // holds where the step put the target.
                 self.end_experiment(None);
-                if closed {
-                    // The step's end: hold where the step put the target.
-                    self.state = AxisState::Steady;
-                } else {
+                if !closed {
                     // Open loop may end at speed: brake to rest under control.
                     self.setpoint = Setpoint {
                         position: self.position,
@@ -191,104 +194,158 @@ impl AxisCore {
                         acceleration: 0.0,
                     };
                     self.controller.reset(self.position);
-                    self.begin_stop(super::Purpose::StopThenHold);
+                    self.begin_stop(AfterStop::Hold);
                 }
                 None
             }
         }
     }
 
-    /// Files the running experiment's result (with `why` if it was cut short from outside).
-    pub(super) fn end_experiment(&mut self, why: Option<String>) {
-        if let Some(run) = self.experiment.take() {
-            let result = run.finish(why);
-            let text = match &result.aborted {
-                Some(r) => format!("trial ended early: {r}"),
-                None => "trial finished".to_owned(),
-            };
-            self.experiment_result = Some(Box::new(result));
-            self.event(EventKind::Notice { text });
+    /// Ends a running experiment, if one runs, and files its result (with `why` if it was cut
+    /// short from outside). The axis is steady until the caller moves it on. Returns whether
+    /// one was running.
+    pub(super) fn end_experiment(&mut self, why: Option<String>) -> bool {
+        let Some(run) = self.motion.run_mut() else { return false };
+        if !matches!(run, Run::Trialing(_)) {
+            return false;
         }
+        let Run::Trialing(test) = std::mem::replace(run, Run::Steady) else { return false };
+        let result = test.finish(why);
+        let text = match &result.aborted {
+            Some(r) => format!("trial ended early: {r}"),
+            None => "trial finished".to_owned(),
+        };
+        self.experiment_result = Some(Box::new(result));
+        self.event(EventKind::Notice { text });
+        true
     }
 
     /// Ends continuous jog when the operator's key repeats stop arriving.
     fn check_jog_deadman(&mut self, now: Instant) {
-        let Some(j) = self.jog else { return };
-        if self.state != AxisState::Jogging {
-            // A first-press step finishing, or anything else, ends the key session once the
-            // repeat window has passed.
-            if j.deadman.is_none()
-                && now.saturating_duration_since(j.first_at).as_secs_f64()
-                    > self.cfg.jog.repeat_window_s
+        // A first press's session (its step finishing, or anything else) ends once the
+        // repeat window has passed.
+        if let Some(tap) = self.tap {
+            if now.saturating_duration_since(tap.first_at).as_secs_f64()
+                > self.cfg.jog.repeat_window_s
             {
-                self.jog = None;
+                self.tap = None;
             }
-            return;
         }
-        if j.deadman.is_some_and(|d| now >= d) {
-            self.jog = None;
-            self.begin_stop(Purpose::StopThenHold);
+        if let Some(Run::Jogging(j)) = self.motion.run() {
+            if now >= j.deadman {
+                self.begin_stop(AfterStop::Hold);
+            }
         }
     }
 
-    /// Advances the setpoint along the active profile and runs the move's state changes.
+    /// Advances the setpoint along the running profile and runs the motion's own state
+    /// changes (a move's in-position dwell, the end of a jog or a stop).
     fn step_motion(&mut self) {
-        if !self.state.motor_on() {
-            return;
+        /// What the run turns into this frame.
+        enum Next {
+            Stay,
+            /// Steady at the goal; the key session, if any, is over.
+            Hold,
+            /// Steady: the move arrived.
+            Arrived,
+            /// Motor off: stop-all category 1 achieved its stop.
+            Off,
         }
-        if let Some(p) = self.profile {
-            let tp = self.t - p.t0;
-            self.setpoint = p.profile.sample(tp);
-            if tp >= p.profile.duration() {
-                self.profile = None;
-                match p.purpose {
-                    Purpose::Move => self.settle_since = None,
-                    Purpose::Jog | Purpose::StopThenHold => {
-                        self.goal = p.profile.goal();
-                        self.state = AxisState::Steady;
-                        self.jog = None;
+        let t = self.t;
+        let hold = Setpoint { position: self.goal, velocity: 0.0, acceleration: 0.0 };
+        let Motion::Driven(driven) = &mut self.motion else { return };
+        let mut next = Next::Stay;
+        match &mut driven.run {
+            Run::Steady | Run::Trialing(_) => self.setpoint = hold,
+            Run::Moving(m) => {
+                if let Some(ramp) = m.ramp {
+                    let (sp, ended) = ramp.at(t);
+                    self.setpoint = sp;
+                    if ended {
+                        m.ramp = None;
+                        m.settle_since = None;
                     }
-                    Purpose::Homing => {}
-                    // IEC 60204-1 category 1 removes power once the stop is achieved:
-                    // hold the end of the ramp until the axis stands still.
-                    Purpose::StopThenOff => {
-                        self.goal = p.profile.goal();
-                        self.settle_since = Some(self.t);
+                } else {
+                    self.setpoint = hold;
+                }
+                if m.ramp.is_none() {
+                    let band = self.cfg.motion.in_position_band;
+                    let inside = (self.goal - self.position).abs() <= band;
+                    match (inside, m.settle_since) {
+                        (false, _) => m.settle_since = None,
+                        (true, None) => m.settle_since = Some(t),
+                        (true, Some(since)) => {
+                            if t - since >= self.cfg.motion.in_position_dwell_s {
+                                next = Next::Arrived;
+                            }
+                        }
                     }
                 }
             }
-        } else if self.state == AxisState::Stopping {
-            self.setpoint = Setpoint { position: self.goal, velocity: 0.0, acceleration: 0.0 };
-            let since = *self.settle_since.get_or_insert(self.t);
-            let still = self.velocity.abs() < STANDSTILL_FRACTION * self.cfg.motion.max_velocity;
-            if still || self.t - since >= STANDSTILL_WAIT_S {
-                self.state = AxisState::Stopped;
+            Run::Jogging(j) => {
+                let (sp, ended) = j.ramp.at(t);
+                self.setpoint = sp;
+                if ended {
+                    self.goal = j.ramp.profile.goal();
+                    next = Next::Hold;
+                }
+            }
+            Run::Homing(h) => match h.ramp {
+                Some(ramp) => {
+                    let (sp, ended) = ramp.at(t);
+                    self.setpoint = sp;
+                    if ended {
+                        // The homing run sees it ended (`profile_done`) and orders the next.
+                        h.ramp = None;
+                    }
+                }
+                None => self.setpoint = hold,
+            },
+            Run::Stopping(stop) => match *stop {
+                StopRun::Ramp { ramp, then } => {
+                    let (sp, ended) = ramp.at(t);
+                    self.setpoint = sp;
+                    if ended {
+                        self.goal = ramp.profile.goal();
+                        match then {
+                            AfterStop::Hold => next = Next::Hold,
+                            // Hold the end of the ramp until the axis stands still.
+                            AfterStop::Off => *stop = StopRun::Standstill { since: t },
+                        }
+                    }
+                }
+                StopRun::Standstill { since } => {
+                    self.setpoint = hold;
+                    let still =
+                        self.velocity.abs() < STANDSTILL_FRACTION * self.cfg.motion.max_velocity;
+                    if still || t - since >= STANDSTILL_WAIT_S {
+                        next = Next::Off;
+                    }
+                }
+            },
+        }
+        match next {
+            Next::Stay => {}
+            Next::Hold => {
+                driven.run = Run::Steady;
+                self.tap = None;
+            }
+            Next::Arrived => {
+                driven.run = Run::Steady;
+                self.moves.arrived(t);
+            }
+            Next::Off => {
+                // Stopped while stop-all holds; released during the stop, the axis ends
+                // disabled, as releasing would have made it (stopped would have no way out).
+                self.motion = if self.stop.latched { Motion::Stopped } else { Motion::Disabled };
                 self.supervisor.reset();
-            }
-        } else {
-            self.setpoint = Setpoint { position: self.goal, velocity: 0.0, acceleration: 0.0 };
-        }
-        if self.state == AxisState::Moving && self.profile.is_none() {
-            let inside = (self.goal - self.position).abs() <= self.cfg.motion.in_position_band;
-            match (inside, self.settle_since) {
-                (false, _) => self.settle_since = None,
-                (true, None) => self.settle_since = Some(self.t),
-                (true, Some(since)) => {
-                    if self.t - since >= self.cfg.motion.in_position_dwell_s {
-                        self.state = AxisState::Steady;
-                        self.moves.arrived(self.t);
-                    }
-                }
             }
         }
     }
 
     /// Feeds the homing run and carries out its orders.
     fn step_homing(&mut self) {
-        if self.state != AxisState::Homing {
-            return;
-        }
-        let Some(run) = self.homing.as_mut() else { return };
+        let Some(h) = self.motion.homing_mut() else { return };
         let view = HomingView {
             t: self.t,
             position: self.position,
@@ -297,48 +354,49 @@ impl AxisCore {
             following_error: self.setpoint.position - self.position,
             switch: self.inputs & inputs::HOME != 0,
             index: self.inputs & inputs::INDEX != 0,
-            profile_done: self.profile.is_none(),
+            profile_done: h.ramp.is_none(),
         };
-        let orders = run.step(&view);
+        let orders = h.run.step(&view);
         for order in orders {
+            // Done and Fail are a run's last orders; what it asks after them has no run to
+            // apply to.
+            let Some(h) = self.motion.homing_mut() else { return };
             match order {
                 Order::MoveTo { goal, velocity } => {
                     let lim = Limits::of(&self.cfg.motion).slower(velocity);
                     let profile = Profile::plan(self.setpoint, goal, lim);
-                    self.profile =
-                        Some(ActiveProfile { profile, t0: self.t, purpose: Purpose::Homing });
+                    h.ramp = Some(Ramp { profile, t0: self.t });
                     self.goal = goal;
                 }
                 Order::Stop => {
                     let profile = Profile::stop(self.setpoint, Limits::of(&self.cfg.motion));
-                    self.profile =
-                        Some(ActiveProfile { profile, t0: self.t, purpose: Purpose::Homing });
+                    h.ramp = Some(Ramp { profile, t0: self.t });
                     self.goal = profile.goal();
                 }
                 Order::HoldHere => {
-                    self.profile = None;
+                    h.ramp = None;
                     self.hold_here();
                 }
                 Order::SetHome { count, value } => {
+                    h.ramp = None;
                     let new_offset = value - count as f64 / self.cfg.scale.counts_per_unit;
                     let shift = new_offset - self.offset;
                     self.offset = new_offset;
                     self.position += shift;
                     self.setpoint.position += shift;
                     self.goal += shift;
-                    self.profile = None;
                     // The measurement jumped with the frame of reference; restart the
                     // controller's memory there so the derivative does not see a step.
                     self.controller.reset(self.position);
                 }
-                Order::LimitDuty(lim) => self.duty_limit = lim,
+                Order::LimitDuty(lim) => h.duty_limit = lim,
                 Order::Done => {
-                    self.homing = None;
-                    self.duty_limit = None;
+                    // Leaving homing drops its run, ramp and duty limit with it.
+                    if let Some(run) = self.motion.run_mut() {
+                        *run = Run::Steady;
+                    }
                     self.homed = true;
                     self.outside_limits = true;
-                    self.state = AxisState::Steady;
-                    self.profile = None;
                     self.hold_here_at_goal();
                     let method = format!("{:?}", self.cfg.homing.method).to_lowercase();
                     if self.cfg.homing.method == crate::config::HomingMethod::None {
@@ -351,8 +409,6 @@ impl AxisCore {
                     self.event(EventKind::Homed { position: self.position, method });
                 }
                 Order::Fail(why) => {
-                    self.homing = None;
-                    self.duty_limit = None;
                     self.latch_trip(TripCause::Homing, why);
                     return;
                 }
@@ -375,6 +431,8 @@ impl AxisCore {
         self.setpoint.acceleration = 0.0;
     }
 
+    /// Latches a trip: the motion ends (a running test is filed as ended early) and the axis
+    /// keeps only the trip record until it is cleared.
     pub(super) fn latch_trip(&mut self, cause: TripCause, detail: String) {
         tracing::warn!(axis = %self.cfg.name, %cause, %detail, "trip");
         let trip = Trip {
@@ -388,13 +446,9 @@ impl AxisCore {
             velocity: self.velocity,
             detail,
         };
-        self.trip = Some(trip.clone());
         self.end_experiment(Some(format!("trip: {}", trip.cause)));
-        self.state = AxisState::Tripped;
-        self.profile = None;
-        self.homing = None;
-        self.duty_limit = None;
-        self.jog = None;
+        self.motion = Motion::Tripped(Box::new(trip.clone()));
+        self.tap = None;
         self.duty = 0.0;
         self.supervisor.reset();
         self.event(EventKind::Trip { trip });

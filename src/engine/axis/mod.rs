@@ -10,7 +10,8 @@
 //!
 //! The task is two layers:
 //! - [`core`] (with [`frame`] and [`commands`]): the axis's decisions, synchronous, with the
-//!   host time passed in — no I/O, no clock, testable without a runtime;
+//!   host time passed in — no I/O, no clock, testable without a runtime; its motion state is
+//!   one enum whose variants carry their own data ([`motion`]);
 //! - this file, the link shell: open, handshake, read, decode, write (each write with a time
 //!   limit), relink, and publishing what the core decided;
 //! - [`move_stats`]: per-move statistics; [`handle`]: the command vocabulary and the
@@ -20,6 +21,7 @@ mod commands;
 pub mod core;
 mod frame;
 pub mod handle;
+mod motion;
 pub mod move_stats;
 
 use std::sync::Arc;
@@ -35,7 +37,6 @@ pub use handle::{AxisCommand, AxisHandle, CommandError, Reply, Request, StopAll}
 pub use move_stats::MoveStats;
 
 use crate::config::AxisConfig;
-use crate::control::Profile;
 use crate::engine::events::{Event, EventKind};
 use crate::engine::link_meter::LinkMeter;
 use crate::engine::snapshot::{AxisSnapshot, AxisState};
@@ -54,38 +55,6 @@ const HELLO_TRIES: u32 = 3;
 const FRESH_SEQ_WINDOW: u16 = 5;
 /// While the link is lost, ask the board to start again this often.
 const RELINK_PERIOD: Duration = Duration::from_millis(500);
-
-/// Why a motion profile runs.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-enum Purpose {
-    /// An absolute move or a jog step: completion waits for the in-position dwell.
-    Move,
-    /// Continuous jog (ends by deadman, release or stop).
-    Jog,
-    /// A homing move or stop: the homing run watches for its end.
-    Homing,
-    /// Decelerate, then hold.
-    StopThenHold,
-    /// Decelerate, then motor off (stop-all category 1).
-    StopThenOff,
-}
-
-#[derive(Debug, Clone, Copy)]
-struct ActiveProfile {
-    profile: Profile,
-    t0: f64,
-    purpose: Purpose,
-}
-
-/// Continuous-jog bookkeeping (host time: jog keys are host events).
-#[derive(Debug, Clone, Copy)]
-struct JogKeys {
-    direction: i8,
-    /// When the first press of this key arrived.
-    first_at: Instant,
-    /// Continuous motion runs; stop when no repeat arrives by this time.
-    deadman: Option<Instant>,
-}
 
 /// Channels the task is wired to.
 pub struct AxisWiring {
