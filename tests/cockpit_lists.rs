@@ -273,6 +273,10 @@ async fn the_demo_list_runs_from_the_list_screen_pauses_and_resumes() {
     assert_eq!(out.steps.len(), 15);
     assert_eq!(app.lists.phase, Phase::Finished);
     assert!(app.lists.marks.iter().all(|m| *m == Mark::Done), "{:?}", app.lists.marks);
+    // The screen keeps the plan the run was checked with (the relative steps' targets as
+    // worked out at the start, not from where the axes ended).
+    assert_eq!(app.lists.plan.len(), 15);
+    assert_eq!(app.lists.plan[5].targets.get("z"), Some(&0.0), "step 6: by z 40 → z 0");
     let log: Vec<String> = app.log.entries().iter().map(|e| e.text_with_count()).collect();
     assert!(log.iter().any(|l| l.contains("step 3/15 paused")), "{log:#?}");
     assert!(log.iter().any(|l| l == "list finished"), "{log:#?}");

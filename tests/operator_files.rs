@@ -222,3 +222,43 @@ fn a_step_record_opens_in_any_csv_reader_with_its_metadata_beside_it() {
         Err(_) => eprintln!("python3 is not installed: skipping the Python csv reader check"),
     }
 }
+
+// `analyze trip --json` on a real capture: X's motor leads swapped (homing declared, method
+// none), so the move runs away and trips; the diagnosis's numbers are rounded as the rest.
+#[test]
+fn a_trip_diagnosis_in_json_is_rounded_too() {
+    use servotty::config::{HomingMethod, TransportConfig};
+    let dir = tempfile::tempdir().expect("tempdir");
+    let mut cfg = MachineConfig::demo().expect("demo");
+    for a in &mut cfg.axes {
+        a.board.watchdog_ms = 1000;
+        a.limits.link_timeout_s = 2.0;
+    }
+    cfg.axes[0].homing.method = HomingMethod::None;
+    let TransportConfig::Sim(sim) = &mut cfg.axes[0].transport else {
+        panic!("demo x is simulated")
+    };
+    sim.faults.reversed_motor = true;
+    let captures = dir.path().join("captures");
+    cfg.machine.captures_dir = Some(captures.clone());
+    let cfg_path = dir.path().join("reversed-x.toml");
+    std::fs::write(&cfg_path, toml::to_string(&cfg).expect("serialises")).expect("write");
+    let out = Command::new(env!("CARGO_BIN_EXE_servotty"))
+        .args(["move", "--home", "--to", "x=600", "--yes", "--json", "--config"])
+        .arg(&cfg_path)
+        .env("XDG_STATE_HOME", dir.path())
+        .output()
+        .expect("runs");
+    assert_eq!(out.status.code(), Some(1), "{}", err(&out));
+    check(&out, "tripped move", "", &cfg);
+    let capture = std::fs::read_dir(&captures)
+        .expect("captures written")
+        .filter_map(Result::ok)
+        .map(|e| e.path())
+        .find(|p| p.extension().is_some_and(|x| x == "csv"))
+        .expect("a capture");
+    let out =
+        servotty(&["analyze", "trip", capture.to_str().expect("utf-8"), "--json"], dir.path());
+    assert_eq!(out.status.code(), Some(0), "{}", err(&out));
+    check(&out, "analyze trip", "x", &cfg);
+}

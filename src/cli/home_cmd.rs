@@ -99,8 +99,10 @@ pub fn run(args: &HomeArgs) -> Result<u8, Failure> {
                 }
             }
             emit(&text)?;
+            // After the table, through the one printer (exit 1); with --json the outcome
+            // object already says it.
             if let Some(e) = &out.error {
-                eprintln!("servotty: homing failed: {e}");
+                return Err(Failure::Machine(format!("homing failed: {e}")));
             }
         }
         Ok(if out.ok { EXIT_OK } else { EXIT_FAILED })

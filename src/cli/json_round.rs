@@ -9,7 +9,8 @@
 //! itself, R²) to [`SIGNIFICANT`] significant digits, so a small gain never becomes 0. A key
 //! that says nothing (`p50` inside `turnaround_us`, the items of an array) takes its parent's
 //! kind. The axis is the `axis` field of the nearest enclosing object, else the command's own
-//! axis; its resolution comes from the configuration.
+//! axis; a number keyed by an axis's name (`"targets": {"x": 235.71}`) is a position of that
+//! axis. Each axis's resolution comes from the configuration.
 //!
 //! Integers are left as they are. Written by hand: the rules are the product's own.
 
@@ -148,7 +149,12 @@ impl Rounding {
                 let here = map.get("axis").and_then(Value::as_str).map(str::to_owned);
                 let axis = here.as_deref().or(axis);
                 for (k, child) in map.iter_mut() {
-                    self.walk(child, kind_of(k).unwrap_or(kind), axis);
+                    if child.is_number() && self.decimals.contains_key(k.as_str()) {
+                        // `{"x": 10.0, "z": -40.0}`: a position keyed by its axis.
+                        self.walk(child, Kind::Length, Some(k.as_str()));
+                    } else {
+                        self.walk(child, kind_of(k).unwrap_or(kind), axis);
+                    }
                 }
             }
             Value::Array(items) => {
@@ -228,7 +234,10 @@ mod tests {
             "longest_reply_gap_ms": 1.234_567,
             "kp": 0.000_123_456_789,
             "resolution": 0.041_666_666_666_666_664,
+            "targets": {"x": 235.708_333, "z": -40.000_4},
         }));
+        assert_eq!(v["targets"]["x"], 235.71);
+        assert_eq!(v["targets"]["z"], -40.0);
         assert_eq!(v["axes"][0]["position"], 235.71);
         assert_eq!(v["axes"][0]["max_following_error"].to_string(), "0.0");
         assert_eq!(v["axes"][0]["settle_s"], 0.123_457);

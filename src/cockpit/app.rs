@@ -757,12 +757,15 @@ impl App {
         // The dry run, as `servotty run` does it: every target of every pass against the soft
         // limits, before anything moves (the runner checks again against the engine's own
         // goals when it starts).
-        if let Err(e) = crate::move_list::check(&list, &self.config, &self.goals(), from) {
-            let why = format!("{name}: {e}");
-            self.note(Kind::Refused, format!("list not started: {why}"));
-            self.lists.refused = Some(why);
-            return vec![];
-        }
+        let plan = match crate::move_list::check(&list, &self.config, &self.goals(), from) {
+            Ok(plan) => plan,
+            Err(e) => {
+                let why = format!("{name}: {e}");
+                self.note(Kind::Refused, format!("list not started: {why}"));
+                self.lists.refused = Some(why);
+                return vec![];
+            }
+        };
         let resume = match from {
             crate::move_list::Start { pass: 1, step: 1 } => String::new(),
             crate::move_list::Start { pass: 1, step } => format!(" from step {step}"),
@@ -776,7 +779,7 @@ impl App {
                 list.times
             ),
         );
-        self.lists.starting(from);
+        self.lists.starting(from, plan);
         vec![Effect::RunList { list: Box::new(list), from }]
     }
 

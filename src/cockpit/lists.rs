@@ -6,7 +6,7 @@
 
 use crate::move_list::catalog::Found;
 use crate::move_list::runner::{ListOutcome, Progress, Stopped};
-use crate::move_list::{MoveList, Start};
+use crate::move_list::{MoveList, PlannedStep, Start};
 
 /// Where the chosen list's run stands.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
@@ -65,6 +65,9 @@ pub struct ListScreen {
     pub stopped: Option<Stopped>,
     /// Why the last start was refused (a limit, a trip, stop-all).
     pub refused: Option<String>,
+    /// The checked plan the last run started with (targets worked out then), so the screen
+    /// shows what is being carried out, not a plan worked out from where the axes are now.
+    pub plan: Vec<PlannedStep>,
 }
 
 impl ListScreen {
@@ -94,6 +97,7 @@ impl ListScreen {
             self.refused = None;
             self.at = None;
             self.phase = Phase::Idle;
+            self.plan.clear();
             self.reset_marks();
         }
     }
@@ -109,6 +113,7 @@ impl ListScreen {
         self.stopped = None;
         self.refused = None;
         self.at = None;
+        self.plan.clear();
         self.reset_marks();
     }
 
@@ -127,11 +132,12 @@ impl ListScreen {
         }
     }
 
-    /// A start was asked from `from`.
-    pub fn starting(&mut self, from: Start) {
+    /// A start was asked from `from`, with its checked plan.
+    pub fn starting(&mut self, from: Start, plan: Vec<PlannedStep>) {
         if from == Start::from(1) {
             self.reset_marks();
         }
+        self.plan = plan;
         self.phase = Phase::Starting;
         self.refused = None;
     }

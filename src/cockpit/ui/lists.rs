@@ -84,9 +84,22 @@ fn check_from_here(app: &App, list: &MoveList) -> Result<(), crate::move_list::L
     crate::move_list::check(list, &app.config, &app.goals(), 1).map(|_| ())
 }
 
-/// The steps as the runner would carry them out from here (targets worked out), or, when a
-/// target is outside the limits, as written.
+/// The steps of the pass on screen: as the last run planned them (its targets worked out when
+/// it started), else as a run would carry them out from here, else, when a target is outside
+/// the limits, as written.
 fn planned(app: &App, list: &MoveList) -> Vec<PlannedStep> {
+    let s = &app.lists;
+    let pass = s.at.map(|(p, _)| p).or_else(|| s.plan.first().map(|p| p.pass));
+    let mut steps = from_here(app, list);
+    for st in &mut steps {
+        if let Some(p) = s.plan.iter().find(|p| Some(p.pass) == pass && p.step == st.step) {
+            st.clone_from(p);
+        }
+    }
+    steps
+}
+
+fn from_here(app: &App, list: &MoveList) -> Vec<PlannedStep> {
     match crate::move_list::check(&list_one_pass(list), &app.config, &app.goals(), 1) {
         Ok(p) => p,
         Err(_) => list

@@ -186,15 +186,22 @@ impl AxisCore {
         self.last = None;
         self.quality = LinkQuality::new(self.cfg.board.tick_hz);
         self.event(EventKind::Link { up: true, detail });
-        if matches!(self.motion, Motion::Offline) {
-            self.motion = if self.stop.latched { Motion::Stopped } else { Motion::Disabled };
-        }
+        self.leave_offline();
     }
 
-    /// Telemetry came back on a link that was up but silent.
+    /// Telemetry came back on a link that was up but silent: as after a handshake, an axis
+    /// that was offline (a trip cleared while the link was down) is linked again.
     pub fn telemetry_resumed(&mut self) {
         self.link_up = true;
         self.event(EventKind::Link { up: true, detail: "telemetry resumed".to_owned() });
+        self.leave_offline();
+    }
+
+    /// Offline becomes disabled (or stopped while stop-all is latched); motion never starts.
+    fn leave_offline(&mut self) {
+        if matches!(self.motion, Motion::Offline) {
+            self.motion = if self.stop.latched { Motion::Stopped } else { Motion::Disabled };
+        }
     }
 
     /// A frame the decoder rejected (CRC, framing): counts against the link's quality.
@@ -689,5 +696,24 @@ mod tests {
         };
         assert!(result.aborted.as_deref().is_some_and(|w| w.starts_with("trip")), "{result:?}");
         assert!(!result.samples.is_empty());
+    }
+
+    #[test]
+    fn an_axis_cleared_while_the_link_was_down_links_again_when_telemetry_resumes() {
+        let (mut core, mut f, now) = holding_x(1);
+        core.on_frame(&f.next(0), now);
+        core.on_frame(&f.next(core.cfg.limits.encoder_jump_counts as i32 * 10), now);
+        assert_eq!(core.state(), AxisState::Tripped);
+        // The link drops while tripped (the trip keeps its own cause), and the trip is
+        // cleared meanwhile: with no link the axis is offline.
+        core.link_lost("no valid telemetry for 100 ms");
+        assert_eq!(core.command(AxisCommand::ClearTrip, now).0, Ok(Reply::Done));
+        assert_eq!(core.state(), AxisState::Offline);
+        // Frames come back on the same session (no new handshake).
+        core.telemetry_resumed();
+        core.restart_sequence();
+        let out = core.on_frame(&f.next(0), now);
+        assert_eq!(core.state(), AxisState::Disabled, "linked again, motor still off");
+        assert!(matches!(out.send, Some(HostMessage::Stop { .. })));
     }
 }

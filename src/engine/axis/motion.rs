@@ -12,7 +12,7 @@
 //!
 //! | state | carries | becomes | on |
 //! |---|---|---|---|
-//! | offline | — | disabled, or stopped while stop-all is latched | link up |
+//! | offline | — | disabled, or stopped while stop-all is latched | link up, or telemetry resumes |
 //! | disabled | — | steady | enable (refused while stop-all is latched) |
 //! | | | stopped | stop-all |
 //! | | | tripped | link lost |
