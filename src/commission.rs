@@ -1,8 +1,11 @@
-//! Commissioning steps on a live machine: run one bounded experiment on an axis, analyse the
-//! record, and say what was found and which gains follow. Shared by `servotty tune` and the
-//! cockpit, so both run exactly the same procedure.
+//! Tuning steps on a live machine: run one or more trials on an axis, analyse the record, and
+//! say what was found and which gains follow. Shared by `servotty tune` and the cockpit, so
+//! both run exactly the same steps.
 //!
-//! The experiments run in the axis loop (`engine::experiment`); the analysis is pure
+//! Words (the same in every message, help text and doc): a *trial* is one bounded motion the
+//! axis loop runs and records (`engine::experiment`; state word `trialing`); *tuning* is what
+//! the operator does with them, one step at a time (`tune identify`) or all steps in turn
+//! (`tune all`, "full tuning"). The trials run in the axis loop; the analysis is pure
 //! (`tuning`). This module only sequences them and words the result.
 
 use std::path::PathBuf;
@@ -17,7 +20,7 @@ use crate::engine::{AxisCommand, AxisHandle, AxisState, MachineHandle, Reply};
 use crate::tuning::compare::{self, Comparison};
 use crate::tuning::{ident, relay, report, suggest};
 
-/// Which commissioning step.
+/// Which tuning step.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
 pub enum TuneStep {
     /// A short duty pulse forwards: does the encoder count up?
@@ -30,7 +33,7 @@ pub enum TuneStep {
     Relay,
     /// A closed-loop step: rise, overshoot, settling; CSV and SVG saved.
     Step,
-    /// The guided pass for a freshly wired axis: direction, breakaway, identify (gains),
+    /// Full tuning, guided, for a freshly wired axis: direction, breakaway, identify (gains),
     /// verification step, step report; stops at the first failure.
     All,
 }
@@ -44,9 +47,9 @@ pub struct StepRequest {
     pub travel: Option<f64>,
     /// Duty for direction and relay, %.
     pub duty: Option<f64>,
-    /// Step size for the step test, units.
+    /// Step size for the step trial, units.
     pub size: Option<f64>,
-    /// Folder for the step test's CSV and SVG (the state folder's `steps` when None).
+    /// Folder for the step trial's CSV and SVG (the state folder's `steps` when None).
     pub out_dir: Option<PathBuf>,
     /// Relay: the sliding-friction offset u0 (%) to correct for (from `identify`: the mean of
     /// its two directions); none when None (the result then says so).
@@ -77,7 +80,7 @@ impl StepRequest {
 /// What a step found.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Outcome {
-    /// False when the axis did not do what the step checks (or the test was cut short).
+    /// False when the axis did not do what the step checks (or a trial was cut short).
     pub ok: bool,
     /// Lines for a person.
     pub text: String,
@@ -92,7 +95,7 @@ pub struct Outcome {
     pub verification: Option<Box<Comparison>>,
 }
 
-/// The plan of one step: experiment, bounds, and a sentence for the warning.
+/// The plan of one step: trial, bounds, and a sentence for the warning.
 pub fn plan(args: &StepRequest, a: &AxisConfig) -> (ExperimentSpec, ExperimentBounds) {
     let max = a.controller.max_duty;
     let duty = args.duty.unwrap_or(30.0).clamp(1.0, max);
@@ -260,7 +263,7 @@ pub fn identify_text(id: &ident::Identification, s: &suggest::Suggestion, u: &st
     )
 }
 
-/// What a relay experiment measured, one paragraph (shared with `analyze relay`).
+/// What a relay trial measured, one paragraph (shared with `analyze relay`).
 pub fn relay_text(rr: &relay::RelayResult, s: &suggest::Suggestion, u: &str) -> String {
     let u = if u.is_empty() { "unit" } else { u };
     let p = rr.point;
@@ -368,37 +371,41 @@ async fn run_experiment(
     let limit = Duration::from_secs_f64(bounds.seconds + 5.0);
     let _ = tokio::time::timeout(
         limit,
-        a.wait_until(|s| !matches!(s.state, AxisState::Testing | AxisState::Stopping)),
+        a.wait_until(|s| !matches!(s.state, AxisState::Trialing | AxisState::Stopping)),
     )
     .await;
     match a.send(AxisCommand::TakeExperiment).await.map_err(|e| e.to_string())? {
         Reply::Experiment(Some(r)) => Ok(*r),
-        _ => Err("the test did not finish".to_owned()),
+        _ => Err("the trial did not finish".to_owned()),
     }
 }
 
 /// Runs one step on axis `a` (which must be linked; it is enabled if it is not). The axis is
-/// left steady (or as the test left it); `a` is the axis's live configuration.
+/// left steady (or as the trial left it); `a` is the axis's live configuration.
 ///
 /// # Errors
-/// A sentence: the axis refused, the test did not finish, or the analysis failed.
+/// A sentence: the axis refused, a trial did not finish, or the analysis failed.
 pub async fn run(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Result<Outcome, String> {
     if args.step == TuneStep::All {
-        return pass(h, a, args).await;
+        return full_tuning(h, a, args).await;
     }
     run_one(h, a, args).await
 }
 
-/// The steps of the guided pass before the verification, in order.
+/// The steps of full tuning before the verification, in order.
 pub const PASS: [TuneStep; 4] =
     [TuneStep::Direction, TuneStep::Breakaway, TuneStep::Identify, TuneStep::Step];
 
-/// The guided pass (module docs of [`TuneStep::All`]): each step says what it will do and
-/// what it found; the first failure ends the pass with its reason. The suggestion is verified
+/// Full tuning ([`TuneStep::All`]): each step says what it will do and what it found; the
+/// first failure ends it with its reason. The suggestion is verified
 /// against the current gains; when it is not worse, the step report (CSV, SVG, text summary)
 /// is made with it, and the axis goes back to its current gains (the front end applies or
 /// saves on request).
-async fn pass(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Result<Outcome, String> {
+async fn full_tuning(
+    h: &MachineHandle,
+    a: &AxisConfig,
+    args: &StepRequest,
+) -> Result<Outcome, String> {
     let u = &a.scale.unit;
     let mut text = String::new();
     let mut steps = Vec::new();
@@ -422,7 +429,7 @@ async fn pass(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Result<O
             let worse = out.verification.as_ref().is_some_and(|v| v.is_worse());
             let c = out.suggested.clone().filter(|_| !worse).unwrap_or(a.controller.clone());
             let axis = h.axis(&a.name).ok_or("no such axis")?;
-            axis.send(AxisCommand::SetController(c.clone(), ChangedBy::GuidedPass))
+            axis.send(AxisCommand::SetController(c.clone(), ChangedBy::FullTuning))
                 .await
                 .map_err(|e| e.to_string())?;
             let mut with = a.clone();
@@ -435,7 +442,7 @@ async fn pass(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Result<O
                 b.seconds
             ));
             let r = run_one(h, &with, &req).await;
-            axis.send(AxisCommand::SetController(a.controller.clone(), ChangedBy::GuidedPass))
+            axis.send(AxisCommand::SetController(a.controller.clone(), ChangedBy::FullTuning))
                 .await
                 .map_err(|e| e.to_string())?;
             let r = r?;
@@ -443,10 +450,10 @@ async fn pass(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Result<O
             steps.push(serde_json::json!({ "step": name, "ok": r.ok, "result": r.result }));
             if let Some(csv) = r.result["csv"].as_str() {
                 let summary = std::path::Path::new(csv).with_extension("txt");
-                let body = format!("servotty guided pass, axis {}\n\n{text}", a.name);
+                let body = format!("servotty full tuning, axis {}\n\n{text}", a.name);
                 report::write_atomically(&summary, body.as_bytes())
                     .map_err(|e| format!("{}: {e}", summary.display()))?;
-                text.push_str(&format!("pass summary saved {}\n", summary.display()));
+                text.push_str(&format!("full-tuning summary saved {}\n", summary.display()));
             }
             break;
         }
@@ -471,7 +478,7 @@ async fn pass(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Result<O
         text.push_str(&format!("{}\n", out.text));
         steps.push(serde_json::json!({ "step": name, "ok": out.ok, "result": out.result }));
         if !out.ok {
-            text.push_str(&format!("stopped at {name}: it did not pass\n"));
+            text.push_str(&format!("stopped at {name}: its check failed\n"));
             return Ok(fail(text, steps));
         }
         if step == TuneStep::Breakaway {
@@ -483,7 +490,7 @@ async fn pass(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Result<O
             found = Some(out);
         }
     }
-    let found = found.ok_or("the pass ended before identification")?;
+    let found = found.ok_or("full tuning ended before identification")?;
     let worse = found.verification.as_ref().is_some_and(|v| v.is_worse());
     if worse {
         text.push_str("stopped at the gains: the suggestion is worse than the current gains\n");
@@ -503,13 +510,13 @@ async fn run_one(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
     let axis = h.axis(&a.name).ok_or("no such axis")?;
     let spec =
         if args.step == TuneStep::Identify { toward_room(spec, &axis.snapshot(), a) } else { spec };
-    // A test never enables an axis behind the operator's back: the front end enables it
+    // A trial never enables an axis behind the operator's back: the front end enables it
     // when the operator asked for that (the CLI says so in the plan it confirms).
     let state = axis.snapshot().state;
     if !state.motor_on() {
-        return Err(format!("{} is {state}: enable it first, then start the test", a.name));
+        return Err(format!("{} is {state}: enable it first, then tune", a.name));
     }
-    // Let the hold settle so the test starts from rest.
+    // Let the hold settle so the trial starts from rest.
     tokio::time::sleep(Duration::from_millis(200)).await;
     at_rest(axis).await;
     let u = a.scale.unit.clone();
@@ -533,7 +540,7 @@ async fn run_one(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
     if let Some(why) = &r.aborted {
         return Ok(Outcome {
             ok: false,
-            text: format!("test ended early: {why}"),
+            text: format!("trial ended early: {why}"),
             result: serde_json::json!({ "aborted": why }),
             proposed: String::new(),
             suggested: None,
@@ -544,7 +551,7 @@ async fn run_one(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
     let mut patch_text = String::new();
     let mut suggestion: Option<suggest::Suggestion> = None;
     let (ok, text, extra) = match args.step {
-        TuneStep::All => unreachable!("the pass runs its steps one at a time"),
+        TuneStep::All => unreachable!("full tuning runs its steps one at a time"),
         TuneStep::Direction => {
             let moved = r.samples.last().map_or(0.0, |s| s.position) - r.start_position;
             let counts = (moved / resolution).round();
@@ -628,7 +635,7 @@ async fn run_one(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
             });
             // Never below the measured breakaway of that direction (nor its sliding offset, in
             // case a ramp read low); without a breakaway, never below the configured minimum
-            // duty (which a breakaway test or a person set).
+            // duty (which a breakaway trial or a person set).
             let measured = args.breakaway.or_else(|| {
                 bf.zip(br).map(|(f, r)| (round_up_half(f.duty_pct), round_up_half(r.duty_pct)))
             });
@@ -743,26 +750,9 @@ async fn run_one(h: &MachineHandle, a: &AxisConfig, args: &StepRequest) -> Resul
             text.push_str(&format!("  note: {n}\n"));
         }
     }
-    // The same four significant digits as the proposed lines: what is applied live is what a
-    // person reads and what `w` writes.
-    let suggested = suggestion.as_ref().map(|s| {
-        let mut c = s.patch.apply(&a.controller);
-        for v in [
-            &mut c.kp,
-            &mut c.ki,
-            &mut c.kd,
-            &mut c.derivative_filter_s,
-            &mut c.min_duty_forward,
-            &mut c.min_duty_reverse,
-            &mut c.ff_velocity,
-            &mut c.ff_acceleration,
-            &mut c.ff_static,
-        ] {
-            *v = suggest::round_sig(*v, 4);
-        }
-        c.ff_static_reverse = c.ff_static_reverse.map(|v| suggest::round_sig(v, 4));
-        c
-    });
+    // Rounded as the proposed lines are (the parameter table's rounding): what is applied
+    // live is what a person reads and what `w` writes.
+    let suggested = suggestion.as_ref().map(|s| s.patch.apply_rounded(&a.controller));
     let mut verification = None;
     if let Some(c) = suggested.as_ref().filter(|_| args.verify) {
         let size = args.size.unwrap_or(VERIFY_STEP);

@@ -866,9 +866,6 @@ impl MachineConfig {
                 (&["limits", "stall_timeout_s"], l.stall_timeout_s),
                 (&["limits", "link_timeout_s"], l.link_timeout_s),
                 (&["limits", "runaway_timeout_s"], l.runaway_timeout_s),
-                (&["controller", "derivative_filter_s"], c.derivative_filter_s),
-                (&["controller", "tracking_time_s"], c.tracking_time_s),
-                (&["controller", "max_duty"], c.max_duty),
             ] {
                 if !(v.is_finite() && v > 0.0) {
                     out_push(&mut out, at(key), format!("expected a number > 0, found {v}"));
@@ -877,54 +874,10 @@ impl MachineConfig {
             if let Some(why) = crate::control::profile::check_jerk(m) {
                 out_push(&mut out, at(&["motion", "max_jerk"]), why);
             }
-            if c.mode == ControlMode::OnOff && !(c.tolerance.is_finite() && c.tolerance > 0.0) {
-                out_push(
-                    &mut out,
-                    at(&["controller", "tolerance"]),
-                    format!("expected a number > 0, found {}", c.tolerance),
-                );
-            }
-            for (key, v) in [
-                ("max_duty", c.max_duty),
-                ("on_off_duty", c.on_off_duty),
-                ("min_duty_forward", c.min_duty_forward),
-                ("min_duty_reverse", c.min_duty_reverse),
-                ("integral_limit", c.integral_limit),
-            ] {
-                if !(v.is_finite() && (0.0..=100.0).contains(&v)) {
-                    out_push(
-                        &mut out,
-                        at(&["controller", key]),
-                        format!("expected 0…100 %, found {v}"),
-                    );
-                }
-            }
-            // Negative: the minimum duty pays more than sliding friction that way.
-            for (key, v) in [
-                ("ff_static", c.ff_static),
-                ("ff_static_reverse", c.ff_static_reverse.unwrap_or(0.0)),
-            ] {
-                if !(v.is_finite() && (-100.0..=100.0).contains(&v)) {
-                    out_push(
-                        &mut out,
-                        at(&["controller", key]),
-                        format!("expected −100…100 %, found {v}"),
-                    );
-                }
-            }
-            for (key, v) in [
-                ("kp", c.kp),
-                ("ki", c.ki),
-                ("kd", c.kd),
-                ("ff_velocity", c.ff_velocity),
-                ("ff_acceleration", c.ff_acceleration),
-            ] {
-                if !(v.is_finite() && v >= 0.0) {
-                    out_push(
-                        &mut out,
-                        at(&["controller", key]),
-                        format!("expected a number ≥ 0, found {v}"),
-                    );
+            // Each controller parameter's range is in its row of the table.
+            for p in crate::control::params::ALL {
+                if let Some(why) = p.problem(c) {
+                    out_push(&mut out, at(&["controller", p.key]), why);
                 }
             }
             if c.min_duty_forward >= c.max_duty || c.min_duty_reverse >= c.max_duty {

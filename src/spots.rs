@@ -12,7 +12,7 @@
 //! under a name in the configuration file: the file is edited as a document (`toml_edit`) so
 //! comments and layout stay, the result must load before it replaces the file, and the
 //! replacement is atomic with a `.bak` kept (the configuration writer of
-//! [`crate::cockpit::save`]).
+//! [`crate::config_write`]).
 
 use std::collections::BTreeMap;
 use std::fs;
@@ -22,8 +22,8 @@ use serde::{Deserialize, Serialize};
 use toml_edit::{DocumentMut, InlineTable, Item, Table, Value};
 
 use crate::cli::Target;
-use crate::cockpit::save::{replace_atomically, SaveError};
 use crate::config::{Invalid, MachineConfig};
+use crate::config_write::{replace_atomically, SaveError};
 
 /// One spot: axis name → position in that axis's units.
 pub type Spot = BTreeMap<String, f64>;

@@ -216,7 +216,7 @@ fn saving_the_demo_offers_a_copy_and_then_uses_it() {
     assert_eq!(p.purpose, Purpose::SaveCopy);
     let fx = app.apply(now(), Action::EntrySubmit);
     assert!(matches!(fx.as_slice(), [Effect::WriteCopy { .. }]), "{fx:?}");
-    let report = servotty::cockpit::save::SaveReport {
+    let report = servotty::config_write::SaveReport {
         path: "servotty.toml".into(),
         backup: None,
         changed: vec!["x.controller.kp".into()],

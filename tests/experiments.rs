@@ -32,7 +32,7 @@ async fn run(
     let mut rx = x.watch();
     tokio::time::timeout(
         Duration::from_secs(30),
-        rx.wait_for(|s| s.state != AxisState::Testing && s.state != AxisState::Stopping),
+        rx.wait_for(|s| s.state != AxisState::Trialing && s.state != AxisState::Stopping),
     )
     .await
     .expect("ends")
@@ -163,7 +163,7 @@ async fn tune_breakaway_is_within_a_tenth_of_a_point_of_the_plant() {
     m.shutdown().await;
 }
 
-// The guided pass end to end on the simulated X axis: direction, breakaway, identify with
+// Full tuning end to end on the simulated X axis: direction, breakaway, identify with
 // its verification step, and a step report (CSV, SVG, text summary) in the folder asked for;
 // each step announced with its bounds. The axis ends on its own gains. On the demo the SIMC
 // suggestion (τc from Skogestad's τc = θ, bounded by the encoder count; src/tuning/suggest.rs)

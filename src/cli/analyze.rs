@@ -22,7 +22,7 @@ use clap::{Args, Subcommand};
 
 use super::json_round::{self, json_line, Rounding};
 use super::{emit, Failure, EXIT_OK};
-use crate::cockpit::format::decimals_for;
+use crate::format::decimals_for;
 use crate::tuning::report::{parse_step_csv, summarize_step};
 
 /// `servotty analyze`.
@@ -46,7 +46,7 @@ pub enum AnalyzeWhat {
         after_help = "Example:\n  servotty analyze trip capture-2026-05-04t10-12-03z-x-stall.csv --svg trip.svg"
     )]
     Trip(TripArgs),
-    /// A relay experiment (columns t, position, duty): the oscillation, the frequency-response
+    /// A relay trial (columns t, position, duty): the oscillation, the frequency-response
     /// point it measured and phase-margin PID gains, as `tune relay` reports them.
     #[command(after_help = "Example:\n  servotty analyze relay x-relay.csv --friction 3.5")]
     Relay(RelayArgs),

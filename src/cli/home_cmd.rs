@@ -5,8 +5,8 @@ use serde::Serialize;
 use crate::cli::json_round::{emit_json, Rounding};
 use crate::cli::progress::{self, Progress};
 use crate::cli::{emit, Failure, HomeArgs, EXIT_FAILED, EXIT_OK};
-use crate::cockpit::format::{decimals_for, num};
 use crate::engine::{AxisCommand, MachineHandle};
+use crate::format::{decimals_for, num};
 
 /// One axis's result, as printed in JSON.
 #[derive(Debug, Clone, Serialize, PartialEq)]

@@ -18,8 +18,8 @@ use std::collections::HashMap;
 
 use serde_json::Value;
 
-use crate::cockpit::format::decimals_for;
 use crate::config::MachineConfig;
+use crate::format::decimals_for;
 use crate::process::Failure;
 use crate::tuning::suggest::round_sig;
 

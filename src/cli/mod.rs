@@ -95,14 +95,14 @@ pub enum Command {
     /// Link and home every axis in the configured order.
     #[command(after_help = "Example:\n  servotty -c gantry.toml home")]
     Home(HomeArgs),
-    /// Commissioning steps on one axis: direction, breakaway, identify, relay, step.
+    /// Tune one axis: direction, breakaway, identify, relay, step, or all of them in turn.
     #[command(after_help = "Examples:\n  servotty tune direction x --travel 10\n  \
         servotty -c gantry.toml tune identify z --apply --save")]
     Tune(tune::TuneArgs),
     /// Measure each link: frame rate, host turnaround, bad and missed frames, CPU share.
     #[command(after_help = "Example:\n  servotty -c gantry.toml linktest --seconds 10")]
     Linktest(LinktestArgs),
-    /// Analyse a recorded file (no machine needed), e.g. the metrics of a step test.
+    /// Analyse a recorded file (no machine needed), e.g. the metrics of a step trial.
     #[command(after_help = "Example:\n  servotty analyze step x-step.csv --band 2")]
     Analyze(analyze::AnalyzeArgs),
     /// Print a shell completion script to stdout (bash, zsh, fish, elvish, powershell).

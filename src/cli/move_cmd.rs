@@ -8,10 +8,10 @@ use serde::Serialize;
 use crate::cli::json_round::{emit_json, Rounding};
 use crate::cli::progress::{self, Progress};
 use crate::cli::{emit, Failure, MoveArgs, Target, EXIT_FAILED, EXIT_OK, EXIT_USAGE};
-use crate::cockpit::format::num;
 use crate::config::MachineConfig;
 use crate::engine::line_move::{move_line, LineError};
 use crate::engine::{AxisCommand, AxisState, MachineHandle};
+use crate::format::num;
 
 /// How long the boards have to link.
 const LINK_WAIT: Duration = Duration::from_secs(3);

@@ -1,4 +1,4 @@
-//! Progress on a terminal while a command works (homing, moves, commissioning tests, link
+//! Progress on a terminal while a command works (homing, moves, tuning, link
 //! measurements): one line on stderr, redrawn in place, showing each axis's state word and
 //! position, or the time left. Silent with `--json` or when stdout is not a terminal, so
 //! scripts and pipes see only the result.
@@ -14,8 +14,8 @@ use std::time::Duration;
 
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 
-use crate::cockpit::format::{decimals_for, num};
 use crate::engine::MachineHandle;
+use crate::format::{decimals_for, num};
 
 /// How often the line is refreshed: often enough to follow an axis, rare enough to cost
 /// nothing over SSH.

@@ -1,4 +1,4 @@
-//! `servotty tune STEP AXIS`: the commissioning steps, headless (the procedure itself is in
+//! `servotty tune STEP AXIS`: the tuning steps, headless (the steps themselves are in
 //! `commission`, shared with the cockpit).
 //!
 //! Every step moves the axis: it says how far and how long before it starts and does nothing
@@ -58,7 +58,7 @@ pub struct TuneArgs {
     /// current gains' (it is refused otherwise).
     #[arg(long)]
     pub even_if_worse: bool,
-    /// Folder for the step test's CSV and SVG (default: the state folder's `steps`).
+    /// Folder for the step trial's CSV and SVG (default: the state folder's `steps`).
     #[arg(long, value_name = "DIR")]
     pub out: Option<PathBuf>,
     /// Print one JSON object instead of text.
@@ -190,18 +190,14 @@ async fn tune(
             text.push_str("\napplied to the running axis");
             if args.save {
                 let Some(path) = &file else { return Err("--save needs --config FILE".to_owned()) };
-                let mut whole = h.config().clone();
-                if let Some(ax) = whole.axes.iter_mut().find(|x| x.name == a.name) {
-                    ax.controller = live;
-                }
-                let path = path.clone();
+                let (path, machine, name) = (path.clone(), h.config().clone(), a.name.clone());
                 let step = format!("{:?}", args.step).to_lowercase();
-                let note = crate::cockpit::save::note(&format!(
+                let note = crate::config_write::note(&format!(
                     "tune {step}{}",
                     if worse { " (verified worse, saved anyway)" } else { ", verified" }
                 ));
                 let saved = tokio::task::spawn_blocking(move || {
-                    crate::cockpit::save::save_controllers(&path, &whole, &note)
+                    crate::config_write::save_axis_controller(&path, &machine, &name, &live, &note)
                 })
                 .await
                 .map_err(|e| e.to_string())?

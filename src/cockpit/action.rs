@@ -74,9 +74,9 @@ pub enum Action {
     JogStep(Dir),
     /// Jog the selected axis continuously while the key is held (auto-repeat keeps it going).
     JogHold(Dir),
-    /// Run a commissioning test on the selected axis (asks which).
+    /// Run a tuning step on the selected axis (asks which).
     Test,
-    /// Apply the gains the last test suggested.
+    /// Apply the gains the last tuning step suggested.
     ApplySuggested,
     /// The held jog key was released (only terminals with the keyboard enhancement protocol
     /// report releases; elsewhere the engine's deadman ends the jog).
@@ -178,7 +178,7 @@ pub enum Effect {
         /// Axis → goal, in configuration order.
         goals: Vec<(String, f64)>,
     },
-    /// Run a commissioning test (its result comes back as a notice).
+    /// Run a tuning step (its result comes back as a notice).
     Tune {
         /// Axis index.
         axis: usize,

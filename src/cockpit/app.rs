@@ -12,13 +12,14 @@ use std::time::Duration;
 use crate::cockpit::action::{Action, Effect};
 use crate::cockpit::event_log::{EventLog, Kind};
 use crate::cockpit::format::{decimals_for, num, plain};
-use crate::cockpit::gain_edit::{self, Param};
+use crate::cockpit::gain_edit;
 use crate::cockpit::history::{History, Sample};
 use crate::cockpit::jog::{self, JogSettings};
 use crate::cockpit::keys::Mode;
-use crate::cockpit::save::SaveReport;
 use crate::cockpit::theme::Theme;
 use crate::config::{ConfigSource, ControllerConfig, MachineConfig};
+use crate::config_write::SaveReport;
+use crate::control::params::{self, Param};
 use crate::engine::events::ChangedBy;
 use crate::engine::{AxisCommand, AxisSnapshot, AxisState};
 
@@ -69,7 +70,7 @@ pub enum Purpose {
     },
     /// A file name for a copy of the configuration (the demo has no file).
     SaveCopy,
-    /// Which commissioning test to run on an axis (one letter).
+    /// Which tuning step to run on an axis (one letter).
     Test {
         /// Axis index.
         axis: usize,
@@ -124,7 +125,7 @@ pub enum Notice {
     /// Something the engine reported that snapshots do not show (a trip capture written, a
     /// notice such as a test's end).
     Engine(crate::engine::Event),
-    /// A commissioning test finished (or failed).
+    /// A tuning step finished (or failed).
     Tuned {
         /// Axis index.
         axis: usize,
@@ -252,7 +253,7 @@ pub struct App {
     pub layout: Columns,
     /// Where the log file is (shown in help), or why there is none.
     pub log_file: Result<PathBuf, String>,
-    /// Gains the last commissioning test suggested, for one axis, until applied.
+    /// Gains the last tuning step suggested, for one axis, until applied.
     pub suggested: Option<(usize, ControllerConfig)>,
     /// The suggestion's verification step was worse than the current gains': `a` asks for a
     /// second press before it applies them.
@@ -365,7 +366,7 @@ impl App {
         self.config
             .axes
             .get(self.selected)
-            .map_or_else(Vec::new, |a| gain_edit::params_for(&a.controller))
+            .map_or_else(Vec::new, |a| params::used_by(&a.controller))
     }
 
     fn name(&self, axis: usize) -> &str {
@@ -851,8 +852,9 @@ impl App {
             "i" => TuneStep::Identify,
             "r" => TuneStep::Relay,
             "s" => TuneStep::Step,
-            "p" => TuneStep::All,
-            _ => return Err("type d, b, i, r, s or p (the guided pass)".to_owned()),
+            // `a` also reads as "all".
+            "p" | "a" => TuneStep::All,
+            _ => return Err("type d, b, i, r, s or p (full tuning)".to_owned()),
         };
         let a = self.config.axes.get(axis).ok_or("no such axis")?.clone();
         // Never enable an axis behind the operator's back: `e` first.
@@ -874,7 +876,7 @@ impl App {
             .map(|v| v.get_name().to_owned())
             .unwrap_or_default();
         let words = format!(
-            "test {step_word}: moves up to {} {} for up to {} s{verify} (Space stops)",
+            "tune {step_word}: moves up to {} {} for up to {} s{verify} (Space stops)",
             bounds.travel, a.scale.unit, bounds.seconds
         );
         let name = self.name(axis).to_owned();
@@ -895,10 +897,7 @@ impl App {
             return Vec::new();
         }
         let Some((axis, c)) = self.suggested.take() else {
-            self.note(
-                Kind::Info,
-                "no suggested gains: run an identify (i) or relay (r) test first",
-            );
+            self.note(Kind::Info, "no suggested gains: tune identify (i) or relay (r) first");
             return Vec::new();
         };
         let mut next = self.config.clone();
@@ -1049,7 +1048,7 @@ impl App {
             }
             Notice::Tuned { axis, result: Err(e) } => {
                 let name = self.name(axis).to_owned();
-                self.note(Kind::Refused, format!("{name}: test failed: {e}"));
+                self.note(Kind::Refused, format!("{name}: tuning failed: {e}"));
             }
             Notice::HomeAll { result: Ok(()) } => self.note(Kind::Info, "all axes homed"),
             Notice::HomeAll { result: Err(e) } => {

@@ -328,7 +328,7 @@ pub const BINDINGS: &[Binding] = &[
         Action::Test,
         Modes::DETAIL,
         Group::Detail,
-        "test · apply · write gains",
+        "tune · apply · write gains",
     ),
     bind(&[Char('a')], "", Action::ApplySuggested, Modes::DETAIL, Group::Detail, ""),
     bind(&[Char('w')], "", Action::SaveGains, Modes::AXIS, Group::Detail, ""),

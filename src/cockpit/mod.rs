@@ -8,7 +8,7 @@
 //! - [`history`], [`event_log`]: ring buffers of sampled values; the event log.
 //! - [`jog`]: jog settings and the one place jog/home keys meet the engine.
 //! - [`lists`]: the list screen's state (which list, how its run stands).
-//! - [`gain_edit`], [`save`]: checking a typed gain; saving gains into the file atomically.
+//! - [`gain_edit`]: checking a typed gain (saving it is [`crate::config_write`]).
 //! - [`ui`]: drawing, a pure function of the state.
 //! - [`runner`]: the event loop; [`port`]: the trait the loop needs from a machine.
 //! - [`terminal`], [`logging`]: terminal lifecycle and the log file (the machine runs on
@@ -20,7 +20,8 @@ pub mod action;
 pub mod app;
 pub mod drill;
 pub mod event_log;
-pub mod format;
+/// Number formatting now lives at the crate root, shared with the CLI; kept here by name.
+pub use crate::format;
 pub mod gain_edit;
 pub mod history;
 pub mod jog;
@@ -29,7 +30,6 @@ pub mod lists;
 pub mod logging;
 pub mod port;
 pub mod runner;
-pub mod save;
 pub mod terminal;
 pub mod theme;
 pub mod trip_view;

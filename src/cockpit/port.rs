@@ -34,7 +34,7 @@ pub trait MachinePort: Send + Sync + 'static {
     ) -> impl Future<Output = Result<(), String>> + Send + 'static;
     /// Homes every axis in the configured order; resolves when done or stopped.
     fn home_all(&self) -> impl Future<Output = Result<(), String>> + Send + 'static;
-    /// Runs a commissioning test on an axis and analyses it.
+    /// Runs a tuning step on an axis and analyses it.
     fn tune(
         &self,
         axis: usize,

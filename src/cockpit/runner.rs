@@ -24,7 +24,7 @@ use crate::cockpit::action::Effect;
 use crate::cockpit::app::{App, Notice};
 use crate::cockpit::keys;
 use crate::cockpit::port::MachinePort;
-use crate::cockpit::save;
+use crate::config_write as save;
 use crate::engine::AxisCommand;
 use crate::move_list::runner::ListControl;
 
@@ -201,8 +201,8 @@ fn describe(c: &AxisCommand) -> &'static str {
         AxisCommand::JogRelease => "jog release",
         AxisCommand::History => "history",
         AxisCommand::LiveController => "live gains",
-        AxisCommand::Experiment { .. } => "test",
-        AxisCommand::TakeExperiment => "test result",
+        AxisCommand::Experiment { .. } => "trial",
+        AxisCommand::TakeExperiment => "trial result",
     }
 }
 

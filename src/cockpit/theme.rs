@@ -132,7 +132,7 @@ impl Theme {
             AxisState::Offline => self.dim(),
             AxisState::Disabled => self.text(),
             AxisState::Steady => self.good().add_modifier(Modifier::BOLD),
-            AxisState::Moving | AxisState::Jogging | AxisState::Homing | AxisState::Testing => {
+            AxisState::Moving | AxisState::Jogging | AxisState::Homing | AxisState::Trialing => {
                 self.fg(Color::Cyan).add_modifier(Modifier::BOLD)
             }
         }

@@ -7,6 +7,8 @@
 //! - [`profile`]: trapezoidal velocity profiles ([`Trapezoid`]) for moves, jogs and stops,
 //!   and [`Profile`], the one interface the axis uses for either shape.
 //! - [`jerk_limited`]: jerk-limited (double S) profiles ([`JerkLimited`]).
+//! - [`params`]: the table of controller parameters (key, unit, modes, range, rounding) that
+//!   the gain editor, the configuration writer, the suggestions and the records all use.
 //! - [`step_metrics`]: rise time, overshoot, settling time and steady-state error of a
 //!   recorded step response, for tuning.
 //!
@@ -16,6 +18,7 @@
 
 pub mod controller;
 pub mod jerk_limited;
+pub mod params;
 pub mod profile;
 pub mod step_metrics;
 

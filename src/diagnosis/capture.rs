@@ -521,10 +521,13 @@ impl Columns {
     }
 }
 
-/// The state for its screen word.
+/// The state for its screen word. `testing` is the word older captures used for a trial.
 pub fn state_of(word: &str) -> Option<AxisState> {
     use AxisState::*;
-    [Offline, Disabled, Steady, Moving, Jogging, Homing, Testing, Stopping, Stopped, Tripped]
+    if word == "testing" {
+        return Some(Trialing);
+    }
+    [Offline, Disabled, Steady, Moving, Jogging, Homing, Trialing, Stopping, Stopped, Tripped]
         .into_iter()
         .find(|s| s.word() == word)
 }
@@ -545,6 +548,15 @@ mod tests {
         assert_eq!(find(&names, "t"), Some(0));
         assert_eq!(find(&names, "duty"), Some(4));
         assert_eq!(find(&names, "target_acceleration"), None);
+    }
+
+    #[test]
+    fn every_state_word_reads_back_and_the_old_trial_word_too() {
+        use AxisState::*;
+        for s in [Offline, Disabled, Steady, Moving, Jogging, Homing, Trialing, Stopping] {
+            assert_eq!(state_of(s.word()), Some(s));
+        }
+        assert_eq!(state_of("testing"), Some(Trialing), "captures written before the rename");
     }
 
     #[test]

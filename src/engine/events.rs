@@ -124,17 +124,17 @@ pub enum EventKind {
 pub enum ChangedBy {
     /// A value typed into the cockpit's gain editor.
     CockpitEdit,
-    /// The cockpit's key that applies a commissioning test's suggested gains.
+    /// The cockpit's key that applies a tuning step's suggested gains.
     CockpitSuggestion,
     /// `servotty tune … --apply` (or `--save`) putting verified gains on the running axis.
     TuneApply,
     /// A verification step trying suggested gains on the axis, and putting the current ones
     /// back after.
     Verification,
-    /// The guided pass (`tune all`) running its step report with the gains it settled on,
+    /// Full tuning (`tune all`) running its step report with the gains it settled on,
     /// and putting the current ones back after.
-    GuidedPass,
-    /// Anything else that sends new gains (a test, a program using the library).
+    FullTuning,
+    /// Anything else that sends new gains (a program using the library, a unit test).
     Other,
 }
 
@@ -145,7 +145,7 @@ impl std::fmt::Display for ChangedBy {
             Self::CockpitSuggestion => "cockpit (suggestion applied)",
             Self::TuneApply => "tune --apply",
             Self::Verification => "verification step",
-            Self::GuidedPass => "guided pass",
+            Self::FullTuning => "full tuning",
             Self::Other => "another caller",
         })
     }

@@ -1,12 +1,15 @@
-//! Commissioning experiments run inside the axis loop: bounded open-loop duty pulses and
-//! ramps, relay oscillation, and closed-loop steps, recorded at the full frame rate.
+//! Trials run inside the axis loop: bounded open-loop duty pulses and ramps, relay
+//! oscillation, and closed-loop steps, recorded at the full frame rate.
 //!
-//! Pure logic fed one frame at a time (like homing), so that each experiment's duty law and
+//! "Trial" is the word users read (state `trialing`, "trial ended early"); the types keep
+//! the name `Experiment*`, which means the same thing. Tuning (`commission`) runs trials.
+//!
+//! Pure logic fed one frame at a time (like homing), so that each trial's duty law and
 //! bounds can be tested alone. The analysis of what was recorded lives in `tuning`; this
-//! module only drives the axis and keeps the samples. Every experiment has a travel bound
-//! and a time bound; crossing either ends it early with a reason.
+//! module only drives the axis and keeps the samples. Every trial has a travel bound and a
+//! time bound; crossing either ends it early with a reason.
 //!
-//! Written by hand: the experiments are the product's own commissioning procedure.
+//! Written by hand: the trials are the product's own tuning steps.
 
 use serde::Serialize;
 
@@ -265,7 +268,7 @@ mod tests {
     }
 
     fn sample(t: f64, duty: f64) -> Sample {
-        Sample { t, duty, state: AxisState::Testing, ..Sample::default() }
+        Sample { t, duty, state: AxisState::Trialing, ..Sample::default() }
     }
 
     #[test]

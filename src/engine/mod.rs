@@ -8,7 +8,7 @@
 //! - [`link_meter`]: link health and host turnaround measurements.
 //! - [`link_quality`]: events when the link's recent frames are poor, and when it recovers.
 //! - [`homing`]: homing sequences as a pure state machine.
-//! - [`experiment`]: bounded commissioning experiments (duty pulses, ramps, relay, steps).
+//! - [`experiment`]: trials, the bounded tuning motions (duty pulses, ramps, relay, steps).
 //! - [`history`]: the full-rate history ring kept for trip captures.
 //! - [`events`]: state changes, trips, operator actions, link changes.
 //! - [`recorder`]: writes the event log and trip captures.

@@ -469,11 +469,8 @@ pub fn capture_meta(
                 "axis": a.name,
                 "unit": a.scale.unit,
                 "counts_per_unit": a.scale.counts_per_unit,
-                "controller": {
-                    "mode": format!("{:?}", c.mode).to_lowercase(),
-                    "kp": c.kp, "ki": c.ki, "kd": c.kd,
-                    "ff_velocity": c.ff_velocity, "max_duty": c.max_duty,
-                },
+                // Every parameter of the table, keyed as in the file.
+                "controller": crate::control::params::to_json(c),
                 "max_velocity": a.motion.max_velocity,
                 "max_acceleration": a.motion.max_acceleration,
                 "following_error": l.following_error,

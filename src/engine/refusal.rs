@@ -19,8 +19,8 @@ pub enum Asked {
     Jog,
     /// Homing.
     Home,
-    /// A commissioning test.
-    Test,
+    /// A trial (a bounded tuning motion).
+    Trial,
 }
 
 impl Asked {
@@ -30,7 +30,7 @@ impl Asked {
             Self::Move => "move",
             Self::Jog => "jog",
             Self::Home => "home",
-            Self::Test => "start a test",
+            Self::Trial => "start a trial",
         }
     }
 }
@@ -71,7 +71,7 @@ pub enum Refusal {
     /// Already at the soft limit in the jog's direction.
     #[error("at the soft limit in that direction: jog the other way")]
     AtSoftLimit,
-    /// A value in the command makes no sense (a zero jog step, a test with no bound).
+    /// A value in the command makes no sense (a zero jog step, a trial with no bound).
     #[error("{0}")]
     BadValue(&'static str),
     /// A link-loss trip cannot be cleared while the link is down.
@@ -86,7 +86,7 @@ fn remedy(state: AxisState) -> &'static str {
         AxisState::Disabled => "enable the axis first",
         AxisState::Tripped => "clear the trip first (it latches until cleared)",
         AxisState::Stopped | AxisState::Stopping => "release stop-all first",
-        AxisState::Homing | AxisState::Moving | AxisState::Jogging | AxisState::Testing => {
+        AxisState::Homing | AxisState::Moving | AxisState::Jogging | AxisState::Trialing => {
             "wait until it ends, or stop it"
         }
         AxisState::Steady => "it should be possible now; try again",

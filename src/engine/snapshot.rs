@@ -25,8 +25,9 @@ pub enum AxisState {
     Jogging,
     /// Running a homing sequence.
     Homing,
-    /// Running a commissioning experiment (open-loop duty, relay or step).
-    Testing,
+    /// Running a trial: one bounded tuning motion (open-loop duty, relay or step), recorded
+    /// at the board's tick. Was `testing` before the tuning words were settled.
+    Trialing,
     /// Decelerating to rest after a stop request (category 1).
     Stopping,
     /// Stop-all latched: motor off until the operator releases stop-all.
@@ -45,7 +46,7 @@ impl AxisState {
             Self::Moving => "moving",
             Self::Jogging => "jogging",
             Self::Homing => "homing",
-            Self::Testing => "testing",
+            Self::Trialing => "trialing",
             Self::Stopping => "stopping",
             Self::Stopped => "stopped",
             Self::Tripped => "tripped",
@@ -60,7 +61,7 @@ impl AxisState {
                 | Self::Moving
                 | Self::Jogging
                 | Self::Homing
-                | Self::Testing
+                | Self::Trialing
                 | Self::Stopping
         )
     }

@@ -34,7 +34,7 @@ pub struct Observation {
     pub motor_on: bool,
     /// Whether soft limits apply (the position has a trusted reference).
     pub limits_active: bool,
-    /// Whether the following-error rule applies (off while a step test jumps the target).
+    /// Whether the following-error rule applies (off while a step trial jumps the target).
     pub following_active: bool,
     /// Whether the host is sending duty now (any motor-on state, pushing and open-loop tests
     /// included): the board-status and heating rules apply whenever it is.

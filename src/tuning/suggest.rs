@@ -29,7 +29,7 @@
 //!   motor. The bound is our choice, no source; the reason is printed with the numbers. On
 //!   demo X it gives τc ≈ 3.7 ms (θ ≈ 1.2 ms, τ ≈ 26 ms). The earlier default τc = τ asked
 //!   for a slow loop whose integral winds up during a small step: a 2 mm step overshot by
-//!   19 % and the guided pass stopped at its verification. (With τD cancelling the lag and no
+//!   19 % and full tuning stopped at its verification. (With τD cancelling the lag and no
 //!   delay, this rule's loop overshoots a setpoint step by e^(−2) ≈ 13.5 % whatever τc, our
 //!   derivation, as long as the output does not saturate; a tight loop saturates on all but
 //!   the smallest steps, and the clamping anti-windup then holds the integral: 2 mm overshoots
@@ -77,6 +77,7 @@ use super::rules::{
     DEFAULT_TI_TD_RATIO, DESIGN_PHASE_DEG,
 };
 use crate::config::{ControlMode, ControllerConfig};
+use crate::control::params::{self, Param};
 
 /// Default derivative filter ratio N (`Tf = Td/N`).
 pub const DEFAULT_FILTER_N: f64 = 10.0;
@@ -141,49 +142,60 @@ pub struct ControllerPatch {
 }
 
 impl ControllerPatch {
-    /// `base` with this patch applied, in PID mode.
-    pub fn apply(&self, base: &ControllerConfig) -> ControllerConfig {
-        let mut c = base.clone();
-        c.mode = ControlMode::Pid;
-        c.kp = self.kp;
-        c.ki = self.ki;
-        c.kd = self.kd;
-        c.derivative_filter_s = self.derivative_filter_s;
-        let set = |slot: &mut f64, v: Option<f64>| {
-            if let Some(v) = v {
-                *slot = v;
-            }
-        };
-        set(&mut c.ff_velocity, self.ff_velocity);
-        set(&mut c.ff_acceleration, self.ff_acceleration);
-        set(&mut c.ff_static, self.ff_static);
-        if self.ff_static.is_some() {
-            c.ff_static_reverse = self.ff_static_reverse;
-        }
-        set(&mut c.min_duty_forward, self.min_duty_forward);
-        set(&mut c.min_duty_reverse, self.min_duty_reverse);
-        c
-    }
-
-    /// The patch as `key = value` lines for `[axis.controller]`.
-    pub fn to_toml_lines(&self) -> String {
-        let mut s = String::from("mode = \"pid\"\n");
-        let mut line = |k: &str, v: f64| s.push_str(&format!("{k} = {}\n", round_sig(v, 4)));
-        line("kp", self.kp);
-        line("ki", self.ki);
-        line("kd", self.kd);
-        line("derivative_filter_s", self.derivative_filter_s);
-        for (k, v) in [
-            ("min_duty_forward", self.min_duty_forward),
-            ("min_duty_reverse", self.min_duty_reverse),
+    /// The values this patch sets, each with its row of the parameter table, in the table's
+    /// order. The struct's fields are named after the table's keys; this is the one place
+    /// that pairs them (a key the table does not know is a bug the unit test below finds).
+    pub fn entries(&self) -> Vec<(Param, f64)> {
+        let set = [
+            ("kp", Some(self.kp)),
+            ("ki", Some(self.ki)),
+            ("kd", Some(self.kd)),
+            ("derivative_filter_s", Some(self.derivative_filter_s)),
             ("ff_velocity", self.ff_velocity),
             ("ff_acceleration", self.ff_acceleration),
             ("ff_static", self.ff_static),
             ("ff_static_reverse", self.ff_static_reverse),
-        ] {
-            if let Some(v) = v {
-                line(k, v);
-            }
+            ("min_duty_forward", self.min_duty_forward),
+            ("min_duty_reverse", self.min_duty_reverse),
+        ];
+        params::ALL
+            .iter()
+            .filter_map(|p| {
+                set.iter().find(|(k, _)| *k == p.key).and_then(|(_, v)| v.map(|v| (*p, v)))
+            })
+            .collect()
+    }
+
+    /// `base` with this patch applied, in PID mode, at full precision. A patch that sets
+    /// `ff_static` also decides `ff_static_reverse`: none means "the same both ways".
+    pub fn apply(&self, base: &ControllerConfig) -> ControllerConfig {
+        let mut c = base.clone();
+        c.mode = ControlMode::Pid;
+        if self.ff_static.is_some() {
+            c.ff_static_reverse = None;
+        }
+        for (p, v) in self.entries() {
+            p.set(&mut c, v);
+        }
+        c
+    }
+
+    /// `base` with this patch applied, each value rounded as the parameter table says: what
+    /// [`Self::to_toml_lines`] shows is what goes on the axis and into the file.
+    pub fn apply_rounded(&self, base: &ControllerConfig) -> ControllerConfig {
+        let mut c = self.apply(base);
+        for (p, v) in self.entries() {
+            p.set(&mut c, p.round(v));
+        }
+        c
+    }
+
+    /// The patch as `key = value` lines for `[axis.controller]`, rounded as the parameter
+    /// table says.
+    pub fn to_toml_lines(&self) -> String {
+        let mut s = String::from("mode = \"pid\"\n");
+        for (p, v) in self.entries() {
+            s.push_str(&format!("{} = {}\n", p.key, p.round(v)));
         }
         s
     }
@@ -559,11 +571,7 @@ pub fn from_relay(
 
 /// `x` rounded to `digits` significant digits (for display and config files).
 pub fn round_sig(x: f64, digits: i32) -> f64 {
-    if x == 0.0 || !x.is_finite() {
-        return x;
-    }
-    let scale = 10f64.powi(digits - 1 - x.abs().log10().floor() as i32);
-    (x * scale).round() / scale
+    params::Rounding::Significant(digits).apply(x)
 }
 
 #[cfg(test)]
@@ -582,6 +590,31 @@ mod tests {
     // SIMC for k'e^{−θs}/(s(τ1 s+1)): Kc = 1/(k'(τc+θ)), τI = 4(τc+θ), τD = τ1 in series form
     // (S. Skogestad, J. Process Control 13 (2003) 291–309, Table 1); with no minimum duty the
     // slope is 1, so the parallel gains are Kc(1+τD/τI), Kc/τI, Kc·τD exactly.
+    // Every field of the patch is a row of the parameter table (a misspelt key would drop out
+    // of `entries` and so out of the proposed lines, the applied gains and the saved file).
+    #[test]
+    fn every_patch_field_is_a_parameter_of_the_table() {
+        let p = ControllerPatch {
+            kp: 1.0,
+            ki: 2.0,
+            kd: 3.0,
+            derivative_filter_s: 4.0,
+            ff_velocity: Some(5.0),
+            ff_acceleration: Some(6.0),
+            ff_static: Some(7.0),
+            ff_static_reverse: Some(7.5),
+            min_duty_forward: Some(8.0),
+            min_duty_reverse: Some(9.0),
+        };
+        assert_eq!(p.entries().len(), 10);
+        assert_eq!(p.to_toml_lines().lines().count(), 11, "mode and ten keys");
+        // Setting the forward static feedforward alone clears a reverse one.
+        let base = ControllerConfig { ff_static_reverse: Some(2.0), ..base() };
+        let one_way = ControllerPatch { ff_static_reverse: None, ..p };
+        assert_eq!(one_way.apply(&base).ff_static_reverse, None);
+        assert_eq!(p.apply(&base).ff_static_reverse, Some(7.5));
+    }
+
     #[test]
     fn simc_matches_the_published_rule() {
         let model = VelocityModel {

@@ -14,9 +14,9 @@ use ratatui::widgets::{Axis, Block, Borders, Chart, Dataset, GraphType, Widget};
 
 use crate::cockpit::app::{App, CHART_SECONDS};
 use crate::cockpit::format::{num, plain};
-use crate::cockpit::gain_edit;
 use crate::cockpit::ui::{axis_panel, log_panel};
 use crate::config::ConfigSource;
+use crate::control::params::Param;
 
 /// Width of the parameter column.
 fn params_width(area: Rect) -> u16 {
@@ -252,8 +252,7 @@ fn render_params(app: &App, i: usize, area: Rect, buf: &mut Buffer) {
     block.render(area, buf);
     let wide = inner.width >= 40;
     let mut lines: Vec<Line<'static>> = Vec::new();
-    let changed =
-        |p: gain_edit::Param| app.saved_controller(i).is_some_and(|s| p.get(s) != p.get(c));
+    let changed = |p: Param| app.saved_controller(i).is_some_and(|s| p.get(s) != p.get(c));
     for (k, p) in app.params().into_iter().enumerate() {
         let here = k == app.param_cursor;
         let mark = if changed(p) { "*" } else { " " };

@@ -44,7 +44,7 @@ fn items(app: &App) -> Vec<(&'static str, &'static str)> {
             }
             out.extend_from_slice(for_axis);
             out.extend_from_slice(&[
-                ("t", "test (p: full tuning)"),
+                ("t", "tune (p: full tuning)"),
                 ("Tab", "axis"),
                 ("?", "help"),
             ]);

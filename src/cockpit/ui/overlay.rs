@@ -198,7 +198,7 @@ fn prompt(app: &App, p: &Prompt, area: Rect, buf: &mut Buffer) {
             "the built-in demo has no file; write a copy to:".to_owned(),
         ),
         Purpose::Test { axis } => (
-            format!("{}: commissioning test (the axis moves)", app.config.axes[axis].name),
+            format!("{}: tune (the axis moves)", app.config.axes[axis].name),
             "d direction · b breakaway · i identify · r relay · s step · p full tuning".to_owned(),
         ),
     };

@@ -71,7 +71,7 @@ impl AxisCore {
             }
             AxisCommand::MoveWithin { goal, limits } => (self.start_move(goal, limits), false),
             AxisCommand::Stop => {
-                // A test stops like a move: from the speed it has now.
+                // A trial stops like a move: from the speed it has now.
                 let tested = self.end_experiment(Some("stopped by the operator".to_owned()));
                 if tested {
                     self.setpoint.velocity = self.velocity;
@@ -374,17 +374,17 @@ impl AxisCore {
         bounds: ExperimentBounds,
     ) -> Result<Reply, CommandError> {
         if !matches!(self.motion.run(), Some(Run::Steady)) {
-            return Err(self.refuse(Refusal::NotNow { asked: Asked::Test, state: self.state() }));
+            return Err(self.refuse(Refusal::NotNow { asked: Asked::Trial, state: self.state() }));
         }
         let positive = |v: f64| v.is_finite() && v > 0.0;
         if !positive(bounds.travel) || !positive(bounds.seconds) {
             return Err(
-                self.refuse(Refusal::BadValue("a test needs a travel bound and a time bound > 0"))
+                self.refuse(Refusal::BadValue("a trial needs a travel bound and a time bound > 0"))
             );
         }
         self.experiment_result = None;
         let run = ExperimentRun::new(spec, bounds, self.position, self.count, &self.cfg.scale.unit);
-        self.set_run(Run::Testing(Box::new(run)));
+        self.set_run(Run::Trialing(Box::new(run)));
         self.moves.leave();
         Ok(Reply::Done)
     }

@@ -503,11 +503,11 @@ mod tests {
         assert!(core.command(cmd.clone(), now).0.is_err(), "disabled: refused");
         core.command(AxisCommand::Enable, now).0.expect("enables");
         assert_eq!(core.command(cmd, now).0, Ok(Reply::Done));
-        assert_eq!(core.state(), AxisState::Testing);
+        assert_eq!(core.state(), AxisState::Trialing);
         for _ in 0..40 {
             core.on_frame(&f.next(0), now);
         }
-        assert_ne!(core.state(), AxisState::Testing, "the steps and settle time have passed");
+        assert_ne!(core.state(), AxisState::Trialing, "the steps and settle time have passed");
     }
 
     // ---- Transitions carry their own data (motion.rs): what a state leaves behind. ----
@@ -701,7 +701,7 @@ mod tests {
         for _ in 0..3 {
             core.on_frame(&f.next(0), now);
         }
-        assert!(matches!(core.motion.run(), Some(Run::Testing(_))));
+        assert!(matches!(core.motion.run(), Some(Run::Trialing(_))));
         f.status = crate::protocol::status::DRIVER_FAULT;
         core.on_frame(&f.next(0), now);
         assert_eq!(core.motion.trip().map(|t| t.cause), Some(TripCause::BoardFault));

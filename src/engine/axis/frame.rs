@@ -99,7 +99,7 @@ impl AxisCore {
             self.outside_limits = !(l.soft_min..=l.soft_max).contains(&self.position);
         }
         let state = self.motion.state();
-        let testing = state == AxisState::Testing;
+        let trialing = state == AxisState::Trialing;
         let motor_on = self.motion.driven();
         let host_drives = self.motion.drive().is_some();
         // The board's status counts once it has shown this drive applied (wrapping seq
@@ -125,8 +125,8 @@ impl AxisCore {
             motor_on: motor_on && !pushing,
             limits_active: self.homed
                 && !self.outside_limits
-                && !matches!(state, AxisState::Homing | AxisState::Testing),
-            following_active: !testing,
+                && !matches!(state, AxisState::Homing | AxisState::Trialing),
+            following_active: !trialing,
             host_drives,
             drive_acked,
             board_motor_on: board_on,
@@ -170,7 +170,7 @@ impl AxisCore {
             saturated,
         };
         self.history.push(sample);
-        if let Some(Run::Testing(run)) = self.motion.run_mut() {
+        if let Some(Run::Trialing(run)) = self.motion.run_mut() {
             run.record(sample);
         }
         ticks
@@ -178,7 +178,7 @@ impl AxisCore {
 
     /// Feeds a running experiment. Returns the open-loop duty to apply, if it gives one.
     fn step_experiment(&mut self) -> Option<f64> {
-        let Some(Run::Testing(run)) = self.motion.run_mut() else { return None };
+        let Some(Run::Trialing(run)) = self.motion.run_mut() else { return None };
         match run.drive(self.t, self.position, self.count) {
             Drive::Duty(d) => {
                 let lim = self.cfg.controller.max_duty;
@@ -217,14 +217,14 @@ impl AxisCore {
     /// one was running.
     pub(super) fn end_experiment(&mut self, why: Option<String>) -> bool {
         let Some(run) = self.motion.run_mut() else { return false };
-        if !matches!(run, Run::Testing(_)) {
+        if !matches!(run, Run::Trialing(_)) {
             return false;
         }
-        let Run::Testing(test) = std::mem::replace(run, Run::Steady) else { return false };
+        let Run::Trialing(test) = std::mem::replace(run, Run::Steady) else { return false };
         let result = test.finish(why);
         let text = match &result.aborted {
-            Some(r) => format!("test ended early: {r}"),
-            None => "test finished".to_owned(),
+            Some(r) => format!("trial ended early: {r}"),
+            None => "trial finished".to_owned(),
         };
         self.experiment_result = Some(Box::new(result));
         self.event(EventKind::Notice { text });
@@ -267,7 +267,7 @@ impl AxisCore {
         let Motion::Driven(driven) = &mut self.motion else { return };
         let mut next = Next::Stay;
         match &mut driven.run {
-            Run::Steady | Run::Testing(_) => self.setpoint = hold,
+            Run::Steady | Run::Trialing(_) => self.setpoint = hold,
             Run::Moving(m) => {
                 if let Some(ramp) = m.ramp {
                     let (sp, ended) = ramp.at(t);

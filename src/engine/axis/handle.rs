@@ -65,14 +65,14 @@ pub enum AxisCommand {
     History,
     /// The controller parameters in force now (live edits included), for trip captures.
     LiveController,
-    /// Run a bounded commissioning experiment (the axis must be steady).
+    /// Run a trial: one bounded tuning motion (the axis must be steady).
     Experiment {
         /// What to do.
         spec: ExperimentSpec,
         /// Travel and time bounds.
         bounds: ExperimentBounds,
     },
-    /// The last finished experiment's result (taken: a second call gives None).
+    /// The last finished trial's result (taken: a second call gives None).
     TakeExperiment,
 }
 
@@ -106,8 +106,8 @@ impl AxisCommand {
             Self::LinkReport { .. } => "link report".into(),
             Self::History => "history".into(),
             Self::LiveController => "live controller".into(),
-            Self::Experiment { spec, .. } => format!("test {}", spec_words(spec)),
-            Self::TakeExperiment => "take test result".into(),
+            Self::Experiment { spec, .. } => format!("trial: {}", spec_words(spec)),
+            Self::TakeExperiment => "take trial result".into(),
         }
     }
 }

@@ -19,7 +19,7 @@
 //! | steady | — | moving | move, jog step, first jog press |
 //! | | | jogging | a jog key held (repeat within the window) |
 //! | | | homing | home |
-//! | | | testing | a bounded test |
+//! | | | trialing | a trial (bounded tuning motion) |
 //! | moving | ramp (until it ends), planned end, in-position dwell timer | steady | in position for the dwell time |
 //! | | | moving (a new move) | move, jog step, first jog press |
 //! | | | jogging | a jog key held |
@@ -29,8 +29,8 @@
 //! | homing | homing run, present ramp (if any), duty limit (if any) | steady | the run is done (homed) |
 //! | | | tripped | the run fails |
 //! | | | stopping, then hold | stop |
-//! | testing | the test run | steady | a closed-loop test ends (holds its last target) |
-//! | | | stopping, then hold | an open-loop test ends; stop |
+//! | trialing | the trial | steady | a closed-loop trial ends (holds its last target) |
+//! | | | stopping, then hold | an open-loop trial ends; stop |
 //! | stopping | ramp and what follows it (hold / power off), or the standstill wait | steady | a hold ramp ends |
 //! | | | stopping (standstill wait) | a power-off ramp ends |
 //! | | | stopped | standing still, or the wait (0.25 s) is over |
@@ -41,7 +41,7 @@
 //! From every state but offline, tripped and stopped: stop-all makes it *stopped* (category
 //! 0: power off at once) or *stopping* with a power-off ramp (category 1); disable makes a
 //! driven axis *disabled*; a supervision finding, a board fault or link loss makes it
-//! *tripped*. A test running when it is left this way is filed as ended early.
+//! *tripped*. A trial running when it is left this way is filed as ended early.
 //!
 //! Outside the enum stay the facts that hold in every state: the setpoint and goal, the
 //! position estimate, homed, the move statistics, and the jog key memory ([`JogTap`], a
@@ -94,8 +94,8 @@ pub(super) enum Run {
     Jogging(JogRun),
     /// A homing sequence.
     Homing(Box<HomingDrive>),
-    /// A bounded test (open-loop duty, relay or step).
-    Testing(Box<ExperimentRun>),
+    /// A trial: a bounded tuning motion (open-loop duty, relay or step).
+    Trialing(Box<ExperimentRun>),
     /// Decelerating to rest.
     Stopping(StopRun),
 }
@@ -178,7 +178,7 @@ pub(super) enum StopRun {
 /// What follows a deceleration ramp.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub(super) enum AfterStop {
-    /// Hold where it ended (operator stop, jog release, the end of an open-loop test).
+    /// Hold where it ended (operator stop, jog release, the end of an open-loop trial).
     Hold,
     /// Wait for standstill, then motor off (stop-all category 1).
     Off,
@@ -197,7 +197,7 @@ impl Motion {
                 Run::Moving(_) => AxisState::Moving,
                 Run::Jogging(_) => AxisState::Jogging,
                 Run::Homing(_) => AxisState::Homing,
-                Run::Testing(_) => AxisState::Testing,
+                Run::Trialing(_) => AxisState::Trialing,
                 Run::Stopping(_) => AxisState::Stopping,
             },
         }

@@ -1,4 +1,4 @@
-//! Number formatting for the screen and the event log.
+//! Number formatting for the screen, the event log and the CLI's tables.
 //!
 //! Values are rounded to what the encoder can resolve, so the last digit does not flicker
 //! with noise below one count, and `-0.00` never appears.

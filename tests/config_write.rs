@@ -4,9 +4,15 @@
 
 use std::fs;
 
-use servotty::cockpit::gain_edit::{self, Param};
-use servotty::cockpit::save::{save_controllers, update_text, write_copy, SaveError};
+use servotty::cockpit::gain_edit;
 use servotty::config::{MachineConfig, DEMO_CONFIG};
+use servotty::config_write::{save_controllers, update_text, write_copy, SaveError};
+use servotty::control::params::{self, Param};
+
+/// The table's row for `key`.
+fn p(key: &str) -> Param {
+    params::find(key).expect(key)
+}
 
 fn demo_in(dir: &tempfile::TempDir) -> std::path::PathBuf {
     let p = dir.path().join("gantry.toml");
@@ -30,7 +36,7 @@ fn one_gain_changes_one_line_and_keeps_a_backup() {
     let dir = tempfile::tempdir().expect("tempdir");
     let path = demo_in(&dir);
     let cfg = MachineConfig::load(&path).expect("loads");
-    let live = gain_edit::edit(&cfg, 0, Param::Kp, "9.5").expect("valid");
+    let live = gain_edit::edit(&cfg, 0, p("kp"), "9.5").expect("valid");
     let report = save_controllers(&path, &live, "").expect("saved");
     assert_eq!(report.changed, ["x.controller.kp"]);
     let new = fs::read_to_string(&path).expect("read");
@@ -57,7 +63,7 @@ fn one_gain_changes_one_line_and_keeps_a_backup() {
 fn a_changed_value_gets_the_note_instead_of_its_stale_comment() {
     let text = DEMO_CONFIG.replacen("kp = 40.0", "kp = 40.0    # tuned by hand, keep", 1);
     let cfg = MachineConfig::from_toml_str(&text, "t").expect("valid");
-    let live = gain_edit::edit(&cfg, 2, Param::Kp, "35").expect("valid");
+    let live = gain_edit::edit(&cfg, 2, p("kp"), "35").expect("valid");
     let (out, changed) = update_text(&text, "t", &live, "tune relay, 2026-12-02").expect("updated");
     assert_eq!(changed, ["z.controller.kp"]);
     let diff = changed_lines(&text, &out);
@@ -75,7 +81,7 @@ fn a_key_the_file_left_to_its_default_is_added_to_that_axis() {
     let cfg = MachineConfig::from_toml_str(DEMO_CONFIG, "t").expect("valid");
     assert!(!DEMO_CONFIG.contains("tracking_time_s"));
     let default = cfg.axes[1].controller.tracking_time_s;
-    let live = gain_edit::edit(&cfg, 1, Param::TrackingTime, "0.08").expect("valid");
+    let live = gain_edit::edit(&cfg, 1, p("tracking_time_s"), "0.08").expect("valid");
     let (out, changed) = update_text(DEMO_CONFIG, "t", &live, "").expect("updated");
     assert_eq!(changed, ["y.controller.tracking_time_s"]);
     let back = MachineConfig::from_toml_str(&out, "t").expect("reloads");
@@ -102,12 +108,12 @@ fn a_bad_value_is_refused_and_the_file_is_untouched() {
 #[test]
 fn the_prompt_check_refuses_what_the_loader_would() {
     let cfg = MachineConfig::demo().expect("demo");
-    for (p, text) in
-        [(Param::Kp, "-1"), (Param::MaxDuty, "150"), (Param::MaxDuty, "5"), (Param::Kd, "nan")]
+    for (param, text) in
+        [(p("kp"), "-1"), (p("max_duty"), "150"), (p("max_duty"), "5"), (p("kd"), "nan")]
     {
-        assert!(gain_edit::edit(&cfg, 0, p, text).is_err(), "{} = {text}", p.key());
+        assert!(gain_edit::edit(&cfg, 0, param, text).is_err(), "{} = {text}", param.key());
     }
-    assert!(gain_edit::edit(&cfg, 0, Param::Kd, " 0.2 ").is_ok());
+    assert!(gain_edit::edit(&cfg, 0, p("kd"), " 0.2 ").is_ok());
 }
 
 #[test]
@@ -138,9 +144,83 @@ fn saving_through_a_symlink_keeps_the_link() {
     let real = demo_in(&dir);
     let link = dir.path().join("current.toml");
     std::os::unix::fs::symlink(&real, &link).expect("symlink");
-    let live = gain_edit::edit(&MachineConfig::load(&link).expect("loads"), 0, Param::Ki, "21")
-        .expect("ok");
+    let live =
+        gain_edit::edit(&MachineConfig::load(&link).expect("loads"), 0, p("ki"), "21").expect("ok");
     save_controllers(&link, &live, "").expect("saved");
     assert!(fs::symlink_metadata(&link).expect("meta").file_type().is_symlink());
     assert_eq!(MachineConfig::load(&real).expect("loads").axes[0].controller.ki, 21.0);
+}
+
+// The cockpit (`a` applies a suggestion, `w` writes it) and `servotty tune --save` go through
+// the one writer: for the same gains and the same note they leave the same bytes.
+#[test]
+fn the_cockpit_and_the_cli_write_the_same_bytes_for_the_same_gains() {
+    use servotty::cockpit::action::{Action, Effect};
+    use servotty::cockpit::app::Notice;
+    use servotty::cockpit::{App, Theme};
+    use servotty::commission::Outcome;
+    use servotty::config::ConfigSource;
+    use servotty::config_write::save_axis_controller;
+
+    const NOTE: &str = "tune identify, verified, 2026-12-02";
+    let (dir_a, dir_b) = (tempfile::tempdir().expect("tempdir"), tempfile::tempdir().expect("t"));
+    let (cockpit_file, cli_file) = (demo_in(&dir_a), demo_in(&dir_b));
+    let cfg = MachineConfig::load(&cockpit_file).expect("loads");
+    let mut c = cfg.axes[0].controller.clone();
+    c.kp = 18.88;
+    c.ki = 41.2;
+    c.ff_static = 2.5;
+    c.min_duty_forward = 8.46;
+    c.ff_velocity = 0.7; // its old trailing comment is replaced by the note
+
+    // The cockpit: the suggestion comes back, `a` applies it, `w` asks for the write, and the
+    // runner hands that configuration to the writer.
+    let mut app = App::new(cfg.clone(), ConfigSource::File(cockpit_file.clone()), Theme::default());
+    let now = std::time::Duration::from_secs(1);
+    let outcome = Outcome {
+        ok: true,
+        text: String::new(),
+        result: serde_json::Value::Null,
+        proposed: String::new(),
+        suggested: Some(c.clone()),
+        verification: None,
+    };
+    app.on_notice(now, Notice::Tuned { axis: 0, result: Ok(outcome) });
+    assert_eq!(app.apply(now, Action::ApplySuggested).len(), 1, "the gains go to the axis");
+    let fx = app.apply(now, Action::SaveGains);
+    let [Effect::SaveGains { path, config }] = fx.as_slice() else { panic!("{fx:?}") };
+    let cockpit = save_controllers(path, config, NOTE).expect("cockpit saves");
+
+    // The CLI: what `tune --save` calls.
+    let cli = save_axis_controller(&cli_file, &cfg, "x", &c, NOTE).expect("CLI saves");
+
+    assert_eq!(cockpit.changed, cli.changed);
+    assert_eq!(cli.changed.len(), 5, "{:?}", cli.changed);
+    let (a, b) = (fs::read(&cockpit_file).expect("read"), fs::read(&cli_file).expect("read"));
+    assert_ne!(a, DEMO_CONFIG.as_bytes(), "something was written");
+    assert_eq!(a, b, "the two front ends wrote different files");
+}
+
+// A key the file may leave out (`ff_static_reverse`: "same as ff_static" when absent) is
+// added when a value is given and taken out again when it is dropped; nothing else moves.
+#[test]
+fn a_key_the_file_may_leave_out_is_added_and_taken_out() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let path = demo_in(&dir);
+    let cfg = MachineConfig::load(&path).expect("loads");
+    assert_eq!(cfg.axes[0].controller.ff_static_reverse, None, "the demo's x leaves it out");
+    let live = gain_edit::edit(&cfg, 0, p("ff_static_reverse"), "-1.5").expect("valid");
+    let report = save_controllers(&path, &live, "").expect("saved");
+    assert_eq!(report.changed, ["x.controller.ff_static_reverse"]);
+    let added = fs::read_to_string(&path).expect("read");
+    assert_eq!(added.lines().count(), DEMO_CONFIG.lines().count() + 1);
+    assert_eq!(
+        MachineConfig::load(&path).expect("loads").axes[0].controller,
+        live.axes[0].controller
+    );
+    let mut back = live.clone();
+    back.axes[0].controller.ff_static_reverse = None;
+    let report = save_controllers(&path, &back, "").expect("saved");
+    assert_eq!(report.changed, ["x.controller.ff_static_reverse"]);
+    assert_eq!(fs::read_to_string(&path).expect("read"), DEMO_CONFIG);
 }

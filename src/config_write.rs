@@ -1,4 +1,7 @@
-//! Saving tuned controller parameters into the configuration file without disturbing it.
+//! Writing the configuration file without disturbing it: tuned controller parameters (the
+//! cockpit's `w`, `servotty tune --save`) and the atomic replacement any state file uses
+//! (the spots store). A library module of its own, so that the cockpit and the CLI share it
+//! without either importing the other.
 //!
 //! The file is edited as a document (`toml_edit`), not re-serialised: only the changed
 //! values are replaced, and everything else — comments, blank lines, key order, number
@@ -11,6 +14,9 @@
 //! flushed to disk, the old file is copied to `<name>.bak`, and a rename puts the new one in
 //! place. A crash at any point leaves either the old or the new file, never half of one.
 //!
+//! Which values are carried over is the parameter table's business
+//! ([`crate::control::params::ALL`]): a parameter added there is saved with no change here.
+//!
 //! These functions do blocking file I/O (and fsync, which can take long on an SD card): the
 //! cockpit runs them on tokio's blocking pool, never in the key or render path.
 
@@ -20,8 +26,8 @@ use std::path::{Path, PathBuf};
 
 use toml_edit::{DocumentMut, Item, Value};
 
-use crate::cockpit::gain_edit;
 use crate::config::MachineConfig;
+use crate::control::params;
 
 /// What a save did.
 #[derive(Debug, Clone, PartialEq)]
@@ -90,9 +96,11 @@ pub fn update_text(
             return Err(SaveError::NoAxis { path: source_name.into(), axis: axis.name.clone() });
         };
         let file_ctl = &on_disk.axes[index].controller;
-        for p in gain_edit::ALL {
-            let v = p.get(&axis.controller);
-            if p.get(file_ctl).to_bits() == v.to_bits() {
+        for p in params::ALL.iter().copied() {
+            // As stored, not as in force: a key the file leaves out stays out unless the
+            // live value gives it one, and one the live value drops is taken out.
+            let v = p.stored(&axis.controller);
+            if p.stored(file_ctl).map(f64::to_bits) == v.map(f64::to_bits) {
                 continue;
             }
             let table = doc
@@ -105,7 +113,12 @@ pub fn update_text(
                     path: source_name.into(),
                     axis: axis.name.clone(),
                 })?;
-            set_number(table, p.key(), v, note);
+            match v {
+                Some(v) => set_number(table, p.key(), v, note),
+                None => {
+                    table.remove(p.key());
+                }
+            }
             changed.push(format!("{}.controller.{}", axis.name, p.key()));
         }
     }
@@ -160,6 +173,29 @@ pub fn save_controllers(
     }
     let backup = replace_atomically(&real, &out, true)?;
     Ok(SaveReport { path: path.to_path_buf(), backup, changed })
+}
+
+/// Saves `controller` as axis `axis`'s controller into the file at `path`, every other axis
+/// as `machine` has it (`servotty tune --save`): [`save_controllers`] on the machine with that
+/// one controller replaced.
+///
+/// # Errors
+/// As [`save_controllers`]; [`SaveError::NoAxis`] when `machine` has no such axis.
+pub fn save_axis_controller(
+    path: &Path,
+    machine: &MachineConfig,
+    axis: &str,
+    controller: &crate::config::ControllerConfig,
+    note: &str,
+) -> Result<SaveReport, SaveError> {
+    let mut whole = machine.clone();
+    let a = whole
+        .axes
+        .iter_mut()
+        .find(|a| a.name == axis)
+        .ok_or_else(|| SaveError::NoAxis { path: path.to_path_buf(), axis: axis.to_owned() })?;
+    a.controller = controller.clone();
+    save_controllers(path, &whole, note)
 }
 
 /// Writes a new configuration file at `path` from `base` (the text the machine was loaded
