@@ -62,6 +62,25 @@ fn help_overlay() {
     check("help", &app);
 }
 
+/// Where the keys do not fit, the help scrolls; the cautions stay whole at every position.
+#[test]
+fn help_scrolled_to_its_end() {
+    let mut app = s::normal();
+    app.log_file = Ok("/tmp/servotty-test/cockpit.log".into());
+    app.apply(s::at(200), Action::Help);
+    for _ in 0..5 {
+        app.apply(s::at(200), Action::HelpScroll(10));
+    }
+    check("help_end", &app);
+    for (w, h) in SIZES {
+        let text = s::screen(&app, w, h);
+        let flat = text.replace(['│', '"'], " ");
+        let flat = flat.split_whitespace().collect::<Vec<_>>().join(" ");
+        assert!(flat.contains("wire a hardware emergency stop"), "{w}x{h}: {text}");
+        assert!(flat.contains("not a safety"), "{w}x{h}: {text}");
+    }
+}
+
 #[test]
 fn detail_screen() {
     let mut app = s::normal();

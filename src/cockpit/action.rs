@@ -52,6 +52,8 @@ pub enum Action {
     Help,
     /// Close the help overlay.
     CloseOverlay,
+    /// Scroll the help by this many rows (negative: up), where it does not fit the screen.
+    HelpScroll(i8),
     /// Motor on for the selected axis.
     Enable,
     /// Motor on for every axis that can.

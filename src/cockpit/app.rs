@@ -245,6 +245,8 @@ pub struct App {
     pub param_cursor: usize,
     /// Log screen: entries scrolled back from the newest (0 follows new entries).
     pub log_back: usize,
+    /// First key row shown by the help overlay, when the help does not fit the screen.
+    pub help_top: u16,
     /// Cockpit time of the latest frame.
     pub now: Duration,
     /// Colours and glyphs.
@@ -307,6 +309,7 @@ impl App {
             stop_latched: false,
             param_cursor: 0,
             log_back: 0,
+            help_top: 0,
             now: Duration::ZERO,
             theme,
             log_file: Err("not set up".to_owned()),
@@ -456,7 +459,14 @@ impl App {
                     self.log_back = 0;
                 }
             }
-            Action::Help => self.overlay = Overlay::Help,
+            Action::Help => {
+                self.overlay = Overlay::Help;
+                self.help_top = 0;
+            }
+            // The renderer clamps it to what the screen leaves hidden.
+            Action::HelpScroll(by) => {
+                self.help_top = self.help_top.saturating_add_signed(i16::from(by)).min(200)
+            }
             Action::CloseOverlay | Action::CancelQuit | Action::EntryCancel => {
                 self.overlay = Overlay::None;
             }

@@ -8,6 +8,7 @@ use ratatui::widgets::{Block, Borders, Clear, Widget};
 
 use crate::cockpit::app::{App, Overlay, Prompt, Purpose};
 use crate::cockpit::keys::{Group, BINDINGS};
+use crate::cockpit::ui::log_panel::wrap;
 
 /// A centred rectangle of at most `w`×`h` inside `area`.
 pub(crate) fn centred(area: Rect, w: u16, h: u16) -> Rect {
@@ -92,32 +93,42 @@ fn help(app: &App, area: Rect, buf: &mut Buffer) {
         Ok(p) => format!("log file: {}", p.display()),
         Err(e) => format!("no log file: {e}"),
     };
-    let notes = [
-        Line::from(Span::styled(
-            "Space works in every screen and prompt. It is a software stop,",
-            t.warn(),
-        )),
-        Line::from(Span::styled(
-            "not a safety function: wire a hardware emergency stop.",
-            t.warn(),
-        )),
-        Line::from(Span::styled(log, t.dim())),
-    ];
     let w = if two { col_w * 2 + 4 } else { col_w + 2 };
-    let r = centred(area, w.max(80).min(area.width), rows + notes.len() as u16 + 2);
+    let w = w.max(80).min(area.width);
+    // The cautions are wrapped to the box, never cut: they stay whole on any screen.
+    let caution = "Space works in every screen and prompt. It is a software stop, not a \
+                   safety function: wire a hardware emergency stop.";
+    let mut notes: Vec<Line<'static>> = wrap(caution, usize::from(w.saturating_sub(4)))
+        .into_iter()
+        .map(|l| Line::from(Span::styled(l, t.warn())))
+        .collect();
+    notes.push(Line::from(Span::styled(log, t.dim())));
+    let r = centred(area, w, rows + notes.len() as u16 + 2);
+    let inner_h = r.height.saturating_sub(2);
+    let key_rows = inner_h.saturating_sub(notes.len() as u16);
+    let hidden = rows.saturating_sub(key_rows);
+    let top = app.help_top.min(hidden);
     Clear.render(r, buf);
-    let block = Block::new()
+    let mut block = Block::new()
         .borders(Borders::ALL)
         .border_style(t.border(true))
         .title(Span::styled(" keys ", t.bold()))
         .title(Span::styled(" Esc closes ", t.dim()));
+    if hidden > 0 {
+        let more = match (top > 0, top < hidden) {
+            (true, true) => " ↑↓ more ",
+            (false, _) => " ↓ more ",
+            (true, false) => " ↑ more ",
+        };
+        block = block.title(Span::styled(more, t.warn()));
+    }
     let inner = block.inner(r);
     block.render(r, buf);
     let cw = if two { inner.width / 2 } else { inner.width };
-    // The cautions stay on screen when the keys do not all fit (80×24): they give way last.
-    let notes_y = (inner.y + rows).min(inner.bottom().saturating_sub(notes.len() as u16));
+    // The cautions give way last: when the keys do not all fit, they scroll above them.
+    let notes_y = inner.y + rows.saturating_sub(top).min(key_rows);
     for (c, lines) in cols.iter().enumerate() {
-        for (k, l) in lines.iter().enumerate() {
+        for (k, l) in lines.iter().skip(usize::from(top)).enumerate() {
             let y = inner.y + k as u16;
             if y >= notes_y {
                 break;
