@@ -368,11 +368,10 @@ async fn run_experiment(
     bounds: ExperimentBounds,
 ) -> Result<ExperimentResult, String> {
     a.send(AxisCommand::Experiment { spec, bounds }).await.map_err(|e| e.to_string())?;
-    let mut rx = a.watch();
     let limit = Duration::from_secs_f64(bounds.seconds + 5.0);
     let _ = tokio::time::timeout(
         limit,
-        rx.wait_for(|s| !matches!(s.state, AxisState::Trialing | AxisState::Stopping)),
+        a.wait_until(|s| !matches!(s.state, AxisState::Trialing | AxisState::Stopping)),
     )
     .await;
     match a.send(AxisCommand::TakeExperiment).await.map_err(|e| e.to_string())? {

@@ -30,9 +30,9 @@ async fn wait_for(
 ) -> servotty::engine::AxisSnapshot {
     let x = h.axis("x").expect("x");
     let mut rx = x.watch();
-    let r = tokio::time::timeout(within, rx.wait_for(f)).await;
+    let reached = tokio::time::timeout(within, rx.wait_for(f)).await.is_ok();
     let snap = x.snapshot();
-    assert!(r.is_ok(), "not reached within {within:?}; last snapshot: {snap:#?}");
+    assert!(reached, "not reached within {within:?}; last snapshot: {snap:#?}");
     snap
 }
 

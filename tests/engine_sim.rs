@@ -33,9 +33,9 @@ async fn wait_for(
     f: impl FnMut(&servotty::engine::AxisSnapshot) -> bool,
 ) -> servotty::engine::AxisSnapshot {
     let mut rx = h.axis(axis).expect("axis").watch();
-    let r = tokio::time::timeout(within, rx.wait_for(f)).await;
+    let reached = tokio::time::timeout(within, rx.wait_for(f)).await.is_ok();
     let snap = h.axis(axis).expect("axis").snapshot();
-    assert!(r.is_ok(), "condition not reached within {within:?}; last snapshot: {snap:#?}");
+    assert!(reached, "condition not reached within {within:?}; last snapshot: {snap:#?}");
     snap
 }
 

@@ -250,10 +250,9 @@ pub async fn stop_then_off(axes: &[&AxisHandle]) {
         let _ = a.send(AxisCommand::Stop).await;
     }
     for a in axes {
-        let mut rx = a.watch();
         let _ = tokio::time::timeout(
             Duration::from_secs_f64(STOP_WAIT_S),
-            rx.wait_for(|s| s.state != AxisState::Stopping && s.state != AxisState::Moving),
+            a.wait_until(|s| s.state != AxisState::Stopping && s.state != AxisState::Moving),
         )
         .await;
         if a.snapshot().state.motor_on() {

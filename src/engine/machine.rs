@@ -460,15 +460,15 @@ impl MachineHandle {
             for name in &group {
                 let Some(a) = self.axis(name) else { continue };
                 let bound = self.config.axis(name).map_or(120.0, |c| c.homing.timeout_s) + 5.0;
-                let mut rx = a.watch();
-                let done = tokio::time::timeout(
+                let timed_out = tokio::time::timeout(
                     Duration::from_secs_f64(bound),
-                    rx.wait_for(|s| s.state != AxisState::Homing),
+                    a.wait_until(|s| s.state != AxisState::Homing),
                 )
-                .await;
+                .await
+                .is_err();
                 let s = a.snapshot();
-                if done.is_err() || !s.homed || s.state != AxisState::Steady {
-                    let reason = match (&s.trip, done.is_err()) {
+                if timed_out || !s.homed || s.state != AxisState::Steady {
+                    let reason = match (&s.trip, timed_out) {
                         (Some(t), _) => format!("{}: {}", t.cause, t.detail),
                         (None, true) => "homing did not finish in time".to_owned(),
                         (None, false) => format!("homing interrupted ({})", s.state),
@@ -517,9 +517,8 @@ impl MachineHandle {
     pub async fn wait_linked(&self, timeout: Duration) -> Vec<String> {
         let deadline = tokio::time::Instant::now() + timeout;
         for a in self.axes.iter() {
-            let mut rx = a.watch();
             let _ =
-                tokio::time::timeout_at(deadline, rx.wait_for(|s| s.state != AxisState::Offline))
+                tokio::time::timeout_at(deadline, a.wait_until(|s| s.state != AxisState::Offline))
                     .await;
         }
         self.axes

@@ -31,6 +31,9 @@ use crate::engine::{Machine, MachineHandle, PortOverride, StartError};
 /// Longest wait for the axis tasks to end at shutdown; their boards' watchdogs are the
 /// backstop if a link hangs.
 pub const SHUTDOWN_LIMIT: Duration = Duration::from_secs(3);
+/// How long the front end waits for the engine thread's shutdown report: the engine's own
+/// limit plus room for the runtime to wind down.
+const FINISH_LIMIT: Duration = Duration::from_secs(SHUTDOWN_LIMIT.as_secs() + 2);
 
 /// Nice value of blocking-pool threads (0 is normal, 19 the lowest priority). Raising one's
 /// own nice value needs no privilege; lowering it again would.
@@ -154,11 +157,20 @@ impl EngineThread {
         if let Some(stop) = self.stop.take() {
             let _ = stop.send(());
         }
-        let mut report = self
-            .report
-            .take()
-            .and_then(|r| r.recv().ok())
-            .unwrap_or_else(|| ShutdownReport::engine_failed("the engine thread ended early"));
+        let mut report = match self.report.take().map(|r| r.recv_timeout(FINISH_LIMIT)) {
+            Some(Ok(report)) => report,
+            // A wedged engine must not wedge the front end too (it would ignore SIGTERM):
+            // report it and leave the thread behind; each board's watchdog cuts its motor.
+            Some(Err(std_mpsc::RecvTimeoutError::Timeout)) => {
+                self.thread = None;
+                return ShutdownReport::engine_failed(&format!(
+                    "the engine thread did not stop within {} s; the boards' watchdogs turn \
+                     their motors off",
+                    FINISH_LIMIT.as_secs()
+                ));
+            }
+            _ => ShutdownReport::engine_failed("the engine thread ended early"),
+        };
         if let Some(t) = self.thread.take() {
             if t.join().is_err() {
                 report = ShutdownReport::engine_failed("the engine thread panicked");

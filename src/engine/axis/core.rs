@@ -403,6 +403,21 @@ mod tests {
         assert_eq!(core.on_frame(&f.next(0), now).ticks, 3);
     }
 
+    /// docs/protocol.md §8: the lost-frame count is the wrapping difference minus one; a
+    /// seq that steps back is the board's restart at 0 after a repeated Configure.
+    #[test]
+    fn a_seq_that_restarts_is_not_counted_as_lost_frames() {
+        let (mut core, mut f, now) = linked_x(1);
+        f.seq = 65_534;
+        core.on_frame(&f.next(0), now);
+        assert_eq!(core.on_frame(&f.next(0), now).ticks, 1);
+        assert_eq!(core.on_frame(&f.next(0), now).ticks, 1, "across the wrap");
+        f.seq = 7;
+        assert_eq!(core.on_frame(&f.next(0), now).ticks, 7, "7 ahead: 6 lost");
+        f.seq = 2;
+        assert_eq!(core.on_frame(&f.next(0), now).ticks, 1, "restarted after Configure");
+    }
+
     #[test]
     fn an_encoder_jump_trips_and_the_answer_is_stop() {
         let (mut core, mut f, now) = holding_x(1);

@@ -21,6 +21,17 @@ const STANDSTILL_FRACTION: f64 = 0.005;
 /// Longest wait for standstill after a category 1 ramp before power is removed anyway, s.
 const STANDSTILL_WAIT_S: f64 = 0.25;
 
+/// Ticks from one frame's seq to the next's (1: none lost). A step back (a wrapping
+/// difference of half the range or more) is the board restarting its count after a
+/// Configure the host sent again, not 65 000 lost frames: a gap that long would have ended
+/// the link (its timeout is well under the 32 s that half the range lasts at 1 kHz).
+fn ticks_between(prev: u16, now: u16) -> u32 {
+    match now.wrapping_sub(prev) {
+        d if d >= 0x8000 => 1,
+        d => u32::from(d),
+    }
+}
+
 impl AxisCore {
     /// Runs the loop for one frame; returns the ticks it accounts for by sequence number.
     pub(super) fn on_telemetry(&mut self, tm: &Telemetry, now: Instant) -> u32 {
@@ -29,7 +40,7 @@ impl AxisCore {
             None => (tick_s, 1u32, 0i64),
             Some(prev) => {
                 let dt = f64::from(tm.board_time_us.wrapping_sub(prev.board_time_us)) * 1e-6;
-                let ticks = u32::from(tm.seq.wrapping_sub(prev.seq));
+                let ticks = ticks_between(prev.seq, tm.seq);
                 // The wire count is 32 bits and wraps; differences stay right across a wrap.
                 let delta = i64::from(tm.count.wrapping_sub(prev.count));
                 (dt, ticks, delta)

@@ -219,6 +219,18 @@ impl AxisHandle {
         self.snapshots.borrow().clone()
     }
 
+    /// Waits until a published snapshot satisfies `pred` (true), or the axis task ends
+    /// (false). Wrap it in a timeout to bound the wait.
+    ///
+    /// Prefer this to `watch().wait_for(..)`: that answer borrows the snapshot, and a borrow
+    /// kept alive blocks the axis loop's next publish — and, once the loop is queued for it,
+    /// any further `snapshot()` on the borrowing thread, a deadlock of both threads.
+    pub async fn wait_until(&self, pred: impl FnMut(&AxisSnapshot) -> bool) -> bool {
+        let mut rx = self.snapshots.clone();
+        let reached = rx.wait_for(pred).await.is_ok();
+        reached
+    }
+
     /// A receiver for waiting on changes.
     pub fn watch(&self) -> watch::Receiver<AxisSnapshot> {
         self.snapshots.clone()
