@@ -211,14 +211,14 @@ fn toward_room(
     }
 }
 
-/// Time the position must stay on one count to count as at rest before a test, s.
+/// Time the position must stay on one count to count as at rest before a trial, s.
 const REST_S: f64 = 0.1;
 
-/// Longest wait for rest before a test starts anyway, s.
+/// Longest wait for rest before a trial starts anyway, s.
 const REST_WAIT_S: f64 = 3.0;
 
 /// Waits until the axis's position has not changed for [`REST_S`] (at most [`REST_WAIT_S`]):
-/// an open-loop test must start from rest. After homing, the demo lift creeps the last counts
+/// an open-loop trial must start from rest. After homing, the demo lift creeps the last counts
 /// to its target for about a second under its hold, and a breakaway ramp started then reads
 /// that creep as motion.
 async fn at_rest(axis: &AxisHandle) {
