@@ -6,35 +6,12 @@
 
 use std::time::Duration;
 
-use servotty::config::MachineConfig;
 use servotty::engine::events::ChangedBy;
-use servotty::engine::{AxisCommand, AxisState, EventKind, Machine, MachineHandle, TripCause};
+use servotty::engine::{AxisCommand, AxisState, EventKind, TripCause};
 use servotty::sim::plant::PlantFaults;
 
-fn demo() -> MachineConfig {
-    MachineConfig::demo().expect("demo config")
-}
-
-async fn started(cfg: &MachineConfig) -> (Machine, MachineHandle) {
-    let m = Machine::start(cfg, &[]).expect("starts");
-    let h = m.handle();
-    assert!(h.wait_linked(Duration::from_secs(2)).await.is_empty(), "all axes link");
-    h.home(None).await.expect("homes");
-    (m, h)
-}
-
-async fn wait_for(
-    h: &MachineHandle,
-    within: Duration,
-    f: impl FnMut(&servotty::engine::AxisSnapshot) -> bool,
-) -> servotty::engine::AxisSnapshot {
-    let x = h.axis("x").expect("x");
-    let mut rx = x.watch();
-    let reached = tokio::time::timeout(within, rx.wait_for(f)).await.is_ok();
-    let snap = x.snapshot();
-    assert!(reached, "not reached within {within:?}; last snapshot: {snap:#?}");
-    snap
-}
+mod engine_support;
+use engine_support::{demo, started, wait_for};
 
 /// A 1 mm move into a jam: the duty settles around 30–50 %, below `stall_duty` (60 %) and far
 /// inside the following-error band (3 mm), so only the breakaway stall rule can catch it.
@@ -49,7 +26,7 @@ async fn a_jam_on_a_short_move_trips_stall() {
         .set_plant_faults(PlantFaults { blocked: true, ..PlantFaults::default() });
     let start = x.snapshot().position;
     x.send(AxisCommand::MoveTo(start + 1.0)).await.expect("move");
-    let s = wait_for(&h, Duration::from_secs(3), |s| s.state == AxisState::Tripped).await;
+    let s = wait_for(&h, "x", Duration::from_secs(3), |s| s.state == AxisState::Tripped).await;
     let trip = s.trip.expect("trip");
     assert_eq!(trip.cause, TripCause::Stall, "{trip:?}");
     assert!(trip.duty.abs() < cfg.axes[0].limits.stall_duty, "{trip:?}");
@@ -71,7 +48,7 @@ async fn a_move_that_never_arrives_trips_not_in_position() {
     let start = x.snapshot().position;
     x.send(AxisCommand::MoveTo(start + 1.0)).await.expect("move");
     let t0 = tokio::time::Instant::now();
-    let s = wait_for(&h, Duration::from_secs(5), |s| s.state == AxisState::Tripped).await;
+    let s = wait_for(&h, "x", Duration::from_secs(5), |s| s.state == AxisState::Tripped).await;
     assert_eq!(s.trip.as_ref().map(|t| t.cause), Some(TripCause::NotInPosition), "{s:#?}");
     // Planned time of a 1 mm move is tens of ms; the margin is settle_timeout_s.
     let took = t0.elapsed().as_secs_f64();
@@ -91,10 +68,10 @@ async fn a_board_watchdog_during_a_move_latches_a_trip() {
     let x = h.axis("x").expect("x");
     x.send(AxisCommand::Enable).await.expect("enable");
     x.send(AxisCommand::MoveTo(800.0)).await.expect("move");
-    wait_for(&h, Duration::from_secs(3), |s| s.velocity > 100.0).await;
+    wait_for(&h, "x", Duration::from_secs(3), |s| s.velocity > 100.0).await;
     let sim = m.sim("x").expect("sim");
     sim.black_out(70);
-    let s = wait_for(&h, Duration::from_secs(1), |s| s.state == AxisState::Tripped).await;
+    let s = wait_for(&h, "x", Duration::from_secs(1), |s| s.state == AxisState::Tripped).await;
     let trip = s.trip.expect("trip");
     assert_eq!(trip.cause, TripCause::BoardWatchdog, "{trip:?}");
     // Never re-driven: the board's motor stays off after the link is back.

@@ -12,32 +12,8 @@ use servotty::engine::{AxisCommand, AxisState, Machine, MachineHandle, TripCause
 use servotty::sim::board::LinkFaults;
 use servotty::sim::plant::PlantFaults;
 
-fn demo() -> MachineConfig {
-    MachineConfig::demo().expect("demo config")
-}
-
-/// Starts the machine, links it and homes every axis (moves are refused before homing).
-async fn started(cfg: &MachineConfig) -> (Machine, MachineHandle) {
-    let m = Machine::start(cfg, &[]).expect("starts");
-    let h = m.handle();
-    assert!(h.wait_linked(Duration::from_secs(2)).await.is_empty(), "all axes link");
-    h.home(None).await.expect("homes");
-    (m, h)
-}
-
-/// Waits (in simulated time) until the axis snapshot satisfies `f`.
-async fn wait_for(
-    h: &MachineHandle,
-    axis: &str,
-    within: Duration,
-    f: impl FnMut(&servotty::engine::AxisSnapshot) -> bool,
-) -> servotty::engine::AxisSnapshot {
-    let mut rx = h.axis(axis).expect("axis").watch();
-    let reached = tokio::time::timeout(within, rx.wait_for(f)).await.is_ok();
-    let snap = h.axis(axis).expect("axis").snapshot();
-    assert!(reached, "condition not reached within {within:?}; last snapshot: {snap:#?}");
-    snap
-}
+mod engine_support;
+use engine_support::{demo, started, wait_for};
 
 // The 300 mm move and its 0.1 mm bar come from the engine issue; the band is the demo
 // configuration's (3 mm + 0.01 s × 180 mm/s).

@@ -13,15 +13,14 @@ use std::time::Duration;
 use servotty::cli::move_cmd::{resolve, run_moves};
 use servotty::config::MachineConfig;
 use servotty::engine::line_move::{move_line, plan_line};
-use servotty::engine::{AxisCommand, AxisState, Machine, MachineHandle};
+use servotty::engine::{AxisCommand, AxisState, MachineHandle};
 use servotty::move_list::runner::{run_list, ListControl};
 use servotty::move_list::{check, ListError, MoveList, Start};
 use servotty::sim::plant::PlantFaults;
 use tokio::sync::watch;
 
-fn demo() -> MachineConfig {
-    MachineConfig::demo().expect("demo")
-}
+mod engine_support;
+use engine_support::{demo, started};
 
 fn demo_list(cfg: &MachineConfig) -> MoveList {
     let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("configs/tray-inspection-list.toml");
@@ -30,14 +29,6 @@ fn demo_list(cfg: &MachineConfig) -> MoveList {
 
 fn list(text: &str) -> Result<MoveList, ListError> {
     MoveList::from_toml_str(text, "test.toml", &demo())
-}
-
-async fn started(cfg: &MachineConfig) -> (Machine, MachineHandle) {
-    let m = Machine::start(cfg, &[]).expect("starts");
-    let h = m.handle();
-    assert!(h.wait_linked(Duration::from_secs(2)).await.is_empty());
-    h.home(None).await.expect("homes");
-    (m, h)
 }
 
 fn zeros() -> BTreeMap<String, f64> {
