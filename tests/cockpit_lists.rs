@@ -5,6 +5,7 @@
 //! IEC 60204-1 §9.2.2's; "arrive within one tick" is the coordinated-move rule of
 //! docs/daily.md (common practice, no source).
 mod cockpit_support;
+mod engine_support;
 
 use std::future::Future;
 use std::sync::{Arc, Mutex};
@@ -12,6 +13,7 @@ use std::time::Duration;
 
 use cockpit_support as s;
 use crossterm::event::{Event, KeyCode, KeyEvent, KeyModifiers};
+use engine_support::{assert_at_spot, demo, started};
 use futures::Stream;
 use ratatui::backend::TestBackend;
 use ratatui::Terminal;
@@ -169,11 +171,8 @@ impl Recorded {
 }
 
 async fn homed_demo() -> (Machine, MachineHandle, MachineConfig) {
-    let cfg = MachineConfig::demo().expect("demo");
-    let m = Machine::start(&cfg, &[]).expect("starts");
-    let h = m.handle();
-    assert!(h.wait_linked(Duration::from_secs(2)).await.is_empty());
-    h.home(None).await.expect("homes");
+    let cfg = demo();
+    let (m, h) = started(&cfg).await;
     (m, h, cfg)
 }
 
@@ -280,11 +279,7 @@ async fn the_demo_list_runs_from_the_list_screen_pauses_and_resumes() {
     let log: Vec<String> = app.log.entries().iter().map(|e| e.text_with_count()).collect();
     assert!(log.iter().any(|l| l.contains("step 3/15 paused")), "{log:#?}");
     assert!(log.iter().any(|l| l == "list finished"), "{log:#?}");
-    let park = cfg.spots.get("park").expect("park");
-    for (axis, want) in park {
-        let s = h.axis(axis).expect("axis").snapshot();
-        assert!((s.position - want).abs() <= 0.1, "{axis} at {}", s.position);
-    }
+    assert_at_spot(&h, &cfg, "park");
     m.shutdown().await;
 }
 

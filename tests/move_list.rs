@@ -20,7 +20,7 @@ use servotty::sim::plant::PlantFaults;
 use tokio::sync::watch;
 
 mod engine_support;
-use engine_support::{demo, started};
+use engine_support::{assert_at_spot, demo, started};
 
 fn demo_list(cfg: &MachineConfig) -> MoveList {
     let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("configs/tray-inspection-list.toml");
@@ -191,11 +191,7 @@ async fn the_demo_list_runs_end_to_end() {
     assert_eq!(out.steps.len(), l.steps.len());
     assert_eq!(events.iter().filter(|e| e.1 == "done").count(), l.steps.len());
     // It ends parked.
-    let park = cfg.spots.get("park").expect("park");
-    for (axis, want) in park {
-        let s = h.axis(axis).expect("axis").snapshot();
-        assert!((s.position - want).abs() <= 0.1, "{axis} at {}", s.position);
-    }
+    assert_at_spot(&h, &cfg, "park");
     m.shutdown().await;
 }
 

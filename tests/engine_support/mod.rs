@@ -35,3 +35,12 @@ pub async fn wait_for(
     assert!(reached, "{axis}: not reached within {within:?}; last snapshot: {snap:#?}");
     snap
 }
+
+/// Asserts every axis of the spot `name` stands within 0.1 of the spot's value.
+pub fn assert_at_spot(h: &MachineHandle, cfg: &MachineConfig, name: &str) {
+    let spot = cfg.spots.get(name).expect("the spot exists");
+    for (axis, want) in spot {
+        let s = h.axis(axis).expect("axis").snapshot();
+        assert!((s.position - want).abs() <= 0.1, "{axis} at {}, spot {name} {want}", s.position);
+    }
+}
